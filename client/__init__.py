@@ -1,0 +1,1 @@
+"""taprig workstation client: discover rigs, pull point sets, export."""

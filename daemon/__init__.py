@@ -1,0 +1,1 @@
+"""taprig daemon: acquisition, checks, spectra, session, store and service."""

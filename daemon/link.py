@@ -1,0 +1,186 @@
+"""The serial link: one reader thread owns the port and hands bytes over a bounded queue.
+
+Any pyserial URL works (/dev/ttyACM0, socket://host:port, rfc2217://...). The
+reader reconnects after an unplug, a read error or a stall, with capped
+exponential backoff, and reports each state change in the same queue as the
+bytes, so the consumer sees them in stream order.
+"""
+
+from __future__ import annotations
+
+import enum
+import logging
+import queue
+import threading
+import time
+from dataclasses import dataclass
+
+import serial
+
+log = logging.getLogger(__name__)
+
+READ_TIMEOUT_S = 0.02  # bounds the latency from a byte's arrival to its hand-over
+BACKOFF_FIRST_S = 0.05
+BACKOFF_MAX_S = 2.0
+
+
+class LinkState(enum.Enum):
+    CONNECTING = "connecting"
+    CONNECTED = "connected"
+    DISCONNECTED = "disconnected"
+    STALLED = "stalled"
+    CLOSED = "closed"
+
+
+@dataclass(frozen=True, slots=True)
+class LinkChange:
+    """A state change of the link; `detail` says why, in words."""
+
+    state: LinkState
+    detail: str
+
+
+Item = bytes | LinkChange
+
+
+class SerialLink:
+    """Reads a pyserial URL in its own thread. `items` yields bytes and LinkChange values."""
+
+    def __init__(
+        self,
+        url: str,
+        *,
+        baudrate: int = 921_600,
+        stall_after_s: float = 2.0,
+        queue_chunks: int = 4096,
+    ) -> None:
+        self.url = url
+        self.baudrate = baudrate
+        self.stall_after_s = stall_after_s
+        self.items: queue.Queue[Item] = queue.Queue(maxsize=queue_chunks)
+        self.state = LinkState.CONNECTING
+        self.dropped_chunks = 0
+        self.reconnects = 0
+        self._port: serial.SerialBase | None = None
+        self._write_lock = threading.Lock()
+        self._stop = threading.Event()
+        self._kick = threading.Event()
+        self._kick_reason = ""
+        self._thread = threading.Thread(target=self._run, name="serial-reader", daemon=True)
+        self._closed = False
+
+    def start(self) -> SerialLink:
+        self._thread.start()
+        return self
+
+    def close(self) -> None:
+        """Stop the reader and close the port. Safe to call twice."""
+        if self._closed:
+            return
+        self._closed = True
+        self._stop.set()
+        if self._thread.is_alive():
+            self._thread.join(timeout=5.0)
+        self._close_port()
+        self._set_state(LinkState.CLOSED, "closed by the host")
+
+    def send(self, data: bytes) -> bool:
+        """Write to the device; False (nothing sent) while it is not connected."""
+        with self._write_lock:
+            port = self._port
+            if port is None:
+                return False
+            try:
+                port.write(data)
+                return True
+            except (serial.SerialException, OSError) as exc:
+                log.debug("write to %s failed: %s", self.url, exc)
+                return False
+
+    def reconnect(self, why: str) -> None:
+        """Ask the reader to drop the port and open it again (e.g. the stream stalled)."""
+        self._kick_reason = why
+        self._kick.set()
+
+    # --- reader thread ------------------------------------------------------
+
+    def _run(self) -> None:
+        backoff = BACKOFF_FIRST_S
+        while not self._stop.is_set():
+            if not self._open():
+                self._stop.wait(backoff)
+                backoff = min(backoff * 2.0, BACKOFF_MAX_S)
+                continue
+            backoff = BACKOFF_FIRST_S
+            self._read_until_lost()
+            self._close_port()
+
+    def _open(self) -> bool:
+        try:
+            port = serial.serial_for_url(
+                self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S, exclusive=None
+            )
+        except (serial.SerialException, OSError, ValueError) as exc:
+            self._set_state(LinkState.DISCONNECTED, f"cannot open {self.url}: {exc}")
+            return False
+        with self._write_lock:
+            self._port = port
+        if self.state is not LinkState.CONNECTING:
+            self.reconnects += 1
+        self._set_state(LinkState.CONNECTED, f"opened {self.url}")
+        return True
+
+    def _read_until_lost(self) -> None:
+        port = self._port
+        assert port is not None
+        last_data = time.monotonic()
+        stalled = False
+        while not self._stop.is_set():
+            if self._kick.is_set():
+                self._kick.clear()
+                self._set_state(LinkState.DISCONNECTED, self._kick_reason or "reset by the host")
+                return
+            try:
+                waiting = port.in_waiting
+                data = port.read(max(1, min(waiting, 1 << 16)))
+            except (serial.SerialException, OSError) as exc:
+                self._set_state(LinkState.DISCONNECTED, f"lost {self.url}: {exc}")
+                return
+            now = time.monotonic()
+            if data:
+                last_data = now
+                if stalled:
+                    stalled = False
+                    self._set_state(LinkState.CONNECTED, "data flowing again")
+                self._hand_over(data)
+            elif not stalled and now - last_data > self.stall_after_s:
+                stalled = True
+                self._set_state(LinkState.STALLED, f"no bytes for {self.stall_after_s:g} s")
+
+    def _hand_over(self, data: bytes) -> None:
+        try:
+            self.items.put(data, timeout=0.5)
+        except queue.Full:
+            # The consumer has fallen far behind; losing bytes here shows up
+            # downstream as a gap in the sample index, never as wrong samples.
+            self.dropped_chunks += 1
+
+    def _close_port(self) -> None:
+        with self._write_lock:
+            port, self._port = self._port, None
+        if port is not None:
+            try:
+                port.close()
+            except (serial.SerialException, OSError):
+                pass
+
+    def _set_state(self, state: LinkState, detail: str) -> None:
+        if state is self.state and state is LinkState.DISCONNECTED:
+            log.debug("%s: %s", state.value, detail)
+        else:
+            log.info("device link %s: %s", state.value, detail)
+        self.state = state
+        try:
+            self.items.put_nowait(LinkChange(state, detail))
+        except queue.Full:
+            pass

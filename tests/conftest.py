@@ -1,0 +1,21 @@
+"""Shared test guards: no test may leave a thread running behind it."""
+
+from __future__ import annotations
+
+import threading
+from collections.abc import Iterator
+
+import pytest
+
+
+@pytest.fixture(autouse=True)
+def no_leaked_threads() -> Iterator[None]:
+    """Fail a test that starts a thread and does not stop it."""
+    before = set(threading.enumerate())
+    yield
+    deadline = 5.0
+    leaked = [t for t in threading.enumerate() if t not in before and t.is_alive()]
+    for t in leaked:
+        t.join(timeout=deadline)
+    still = [t.name for t in leaked if t.is_alive()]
+    assert not still, f"threads left running: {still}"
