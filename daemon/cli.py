@@ -9,7 +9,7 @@ from __future__ import annotations
 import logging
 import signal
 import threading
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
 
@@ -23,12 +23,12 @@ app = typer.Typer(
 )
 
 
-class InputFormat(str, Enum):
+class InputFormat(StrEnum):
     binary = "binary"
     text = "text"
 
 
-class Transport(str, Enum):
+class Transport(StrEnum):
     pty = "pty"
     tcp = "tcp"
 
@@ -51,13 +51,18 @@ def probe(
     rate: Annotated[
         float | None, typer.Option(help="text input: sample rate in Hz if the device does not say")
     ] = None,
+    truth: Annotated[
+        Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
+    ] = None,
     verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
 ) -> None:
     """Check a device link: identify the device, stream, and report what arrived."""
     from .probe import probe as run_probe
 
     _setup_logging(verbose)
-    report = run_probe(device, fmt.value, seconds, taps if device == "virtual" else 0, rate)
+    report = run_probe(
+        device, fmt.value, seconds, taps if device == "virtual" else 0, rate, truth_path=truth
+    )
     info = report.info
     typer.echo(f"device      {report.url}")
     if info is None:
@@ -92,17 +97,21 @@ def probe(
 
 @app.command()
 def instrument(
-    transport: Annotated[Transport, typer.Option(help="pty (USB serial stand-in) or tcp (Wi-Fi)")] = (
-        Transport.pty
-    ),
+    transport: Annotated[
+        Transport, typer.Option(help="pty (USB serial stand-in) or tcp (Wi-Fi)")
+    ] = (Transport.pty),
     link: Annotated[
         Path | None, typer.Option(help="pty only: stable symlink to the tty, kept across replugs")
     ] = None,
-    fmt: Annotated[InputFormat, typer.Option("--format", help="output format")] = InputFormat.binary,
+    fmt: Annotated[
+        InputFormat, typer.Option("--format", help="output format")
+    ] = InputFormat.binary,
     control: Annotated[
         int, typer.Option(help="loopback TCP port of the control interface (0: any free port)")
     ] = 0,
-    truth: Annotated[Path | None, typer.Option(help="write the true modal model here (JSON)")] = None,
+    truth: Annotated[
+        Path | None, typer.Option(help="write the true modal model here (JSON)")
+    ] = None,
     verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
 ) -> None:
     """Run the virtual instrument on its own until interrupted (for demos and manual tests)."""
@@ -112,13 +121,17 @@ def instrument(
 
     _setup_logging(verbose)
     vi = open_virtual(
-        transport.value, link=str(link) if link else None, settings=InstrumentSettings(output=fmt.value)
+        transport.value,
+        link=str(link) if link else None,
+        settings=InstrumentSettings(output=fmt.value),
     )
     server = ControlServer(vi, port=control).start()
     if truth is not None:
         write_truth(vi.model, truth)
     typer.echo(f"device  {vi.url}")
-    typer.echo(f"control 127.0.0.1:{server.port}  (JSON lines, e.g. {{\"op\": \"tap\", \"point\": \"B3\"}})")
+    typer.echo(
+        f'control 127.0.0.1:{server.port}  (JSON lines, e.g. {{"op": "tap", "point": "B3"}})'
+    )
     stop = threading.Event()
     signal.signal(signal.SIGTERM, lambda *_: stop.set())
     try:

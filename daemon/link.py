@@ -8,12 +8,14 @@ bytes, so the consumer sees them in stream order.
 
 from __future__ import annotations
 
+import contextlib
 import enum
 import logging
 import queue
 import threading
 import time
 from dataclasses import dataclass
+from typing import cast
 
 import serial
 
@@ -61,7 +63,7 @@ class SerialLink:
         self.state = LinkState.CONNECTING
         self.dropped_chunks = 0
         self.reconnects = 0
-        self._port: serial.SerialBase | None = None
+        self._port: serial.Serial | None = None
         self._write_lock = threading.Lock()
         self._stop = threading.Event()
         self._kick = threading.Event()
@@ -117,8 +119,10 @@ class SerialLink:
 
     def _open(self) -> bool:
         try:
-            port = serial.serial_for_url(
-                self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S, exclusive=None
+            # Every backend (tty, socket://, rfc2217://) has Serial's read interface.
+            port = cast(
+                serial.Serial,
+                serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S),
             )
         except (serial.SerialException, OSError, ValueError) as exc:
             self._set_state(LinkState.DISCONNECTED, f"cannot open {self.url}: {exc}")
@@ -169,10 +173,8 @@ class SerialLink:
         with self._write_lock:
             port, self._port = self._port, None
         if port is not None:
-            try:
+            with contextlib.suppress(serial.SerialException, OSError):
                 port.close()
-            except (serial.SerialException, OSError):
-                pass
 
     def _set_state(self, state: LinkState, detail: str) -> None:
         if state is self.state and state is LinkState.DISCONNECTED:
@@ -180,7 +182,5 @@ class SerialLink:
         else:
             log.info("device link %s: %s", state.value, detail)
         self.state = state
-        try:
+        with contextlib.suppress(queue.Full):
             self.items.put_nowait(LinkChange(state, detail))
-        except queue.Full:
-            pass

@@ -11,8 +11,7 @@ import math
 import queue
 import time
 from dataclasses import dataclass, field
-
-import numpy as np
+from pathlib import Path
 
 from taprig.firmware_protocol import (
     Command,
@@ -26,6 +25,7 @@ from taprig.firmware_protocol import (
     SampleBlock,
     make_decoder,
 )
+from taprig.firmware_protocol.virtual import write_truth
 from taprig.firmware_protocol.virtual.instrument import (
     InstrumentSettings,
     TapRecord,
@@ -67,8 +67,12 @@ def probe(
     seconds: float = 3.0,
     taps: int = 0,
     text_rate_hz: float | None = None,
+    truth_path: Path | None = None,
 ) -> ProbeReport:
-    """Open `device` (a pyserial URL, or "virtual"), stream for `seconds`, report."""
+    """Open `device` (a pyserial URL, or "virtual"), stream for `seconds`, report.
+
+    truth_path: for the virtual device, where to write its true modal model.
+    """
     vi: VirtualInstrument | None = None
     url = device
     if device == "virtual":
@@ -77,6 +81,8 @@ def probe(
         vi = open_virtual("pty", settings=InstrumentSettings(output=fmt, rate_hz=rate))
         url = vi.url
         text_rate_hz = text_rate_hz or (rate if fmt == "text" else None)
+        if truth_path is not None:
+            write_truth(vi.model, truth_path)
     decoder: Decoder = make_decoder(fmt, **({"rate_hz": text_rate_hz} if fmt == "text" else {}))
     link = SerialLink(url).start()
     try:
@@ -132,13 +138,12 @@ def _stream(
                         blocks.append(ev)
                 elif isinstance(ev, ProtocolViolation):
                     report.messages.append(ev.message)
-        if vi is not None and started is not None and tap_plan:
-            if time.monotonic() - started >= tap_plan[0]:
-                tap_plan.pop(0)
-                point = vi.model.grid[len(records) * 7 % len(vi.model.grid)]
-                rec = vi.tap(point)
-                if rec is not None:
-                    records.append(rec)
+        if vi is not None and started is not None and tap_plan and now - started >= tap_plan[0]:
+            tap_plan.pop(0)
+            point = vi.model.grid[len(records) * 7 % len(vi.model.grid)]
+            rec = vi.tap(point)
+            if rec is not None:
+                records.append(rec)
     if vi is not None:
         report.taps = _check_taps(vi, records, blocks)
     return report

@@ -207,7 +207,7 @@ def frame_crc_ok(buf: bytes | bytearray | memoryview, pos: int, length: int) -> 
     """True if the CRC-32 of the frame at `pos` with payload `length` matches."""
     end = pos + HEADER_SIZE + length
     (crc,) = _CRC.unpack_from(buf, end)
-    return crc32(memoryview(buf)[pos:end]) == crc
+    return crc32(memoryview(buf)[pos:end]) == int(crc)
 
 
 # --- payloads ---------------------------------------------------------------

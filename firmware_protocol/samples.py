@@ -11,7 +11,7 @@ import numpy.typing as npt
 
 from .frames import SampleFormat
 
-_INT_DTYPES = {
+_INT_DTYPES: dict[SampleFormat, np.dtype[np.signedinteger]] = {
     SampleFormat.INT16: np.dtype("<i2"),
     SampleFormat.INT32: np.dtype("<i4"),
 }
@@ -43,10 +43,13 @@ def pack_samples(codes: npt.ArrayLike, fmt: SampleFormat) -> bytes:
     if fmt is SampleFormat.INT24:
         as32 = np.ascontiguousarray(arr, dtype="<i4").reshape(-1)
         return as32.view(np.uint8).reshape(-1, 4)[:, :3].tobytes()
-    return np.ascontiguousarray(arr, dtype=_INT_DTYPES[fmt]).tobytes()
+    packed: bytes = np.ascontiguousarray(arr, dtype=_INT_DTYPES[fmt]).tobytes()
+    return packed
 
 
-def unpack_codes(raw: bytes | bytearray | memoryview, fmt: SampleFormat, channels: int) -> np.ndarray:
+def unpack_codes(
+    raw: bytes | bytearray | memoryview, fmt: SampleFormat, channels: int
+) -> np.ndarray:
     """Raw interleaved sample bytes to an (n, channels) array.
 
     int32 codes for the integer formats, float32 volts for float32.
@@ -62,7 +65,8 @@ def unpack_codes(raw: bytes | bytearray | memoryview, fmt: SampleFormat, channel
         w[:, 1:] = b
         v = w.view("<i4").reshape(-1) >> 8
         return v.reshape(-1, channels)
-    return np.frombuffer(raw, dtype=_INT_DTYPES[fmt]).reshape(-1, channels).astype(np.int32)
+    ints: np.ndarray = np.frombuffer(raw, dtype=_INT_DTYPES[fmt])
+    return ints.reshape(-1, channels).astype(np.int32)
 
 
 def codes_to_volts(codes: np.ndarray, volts_per_code: npt.ArrayLike) -> np.ndarray:

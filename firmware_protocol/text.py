@@ -57,6 +57,8 @@ _TO_SPACE = bytes.maketrans(b",\t\r\n", b"    ")
 # `# rate=<Hz>`, spaces tolerated around the parts, an optional "Hz" unit.
 _RATE = re.compile(rb"#\s*rate\s*=\s*(.*?)\s*(?:hz)?\s*", re.IGNORECASE)
 
+_RANGE = "1 Hz to 1 MHz"  # MIN_RATE_HZ to MAX_RATE_HZ, for messages
+
 _NO_RATE_MESSAGE = (
     'text input has no sample rate: add a "# rate=<Hz>" comment line to the stream '
     "or set rate_hz in the configuration"
@@ -75,12 +77,9 @@ _FaultFn = Callable[[int], str]
 def _rate_error(rate: float) -> str | None:
     """Why `rate` (Hz) is refused, or None if it is inside the protocol's range."""
     if not (math.isfinite(rate) and MIN_RATE_HZ <= rate <= MAX_RATE_HZ):
-        return (
-            f"rate {rate:g} Hz is outside the allowed range {MIN_RATE_HZ:g} Hz to "
-            f"{MAX_RATE_HZ:g} Hz"
-        )
+        return f"rate {rate:g} Hz is outside the allowed range {_RANGE}"
     if not fr.MIN_RATE_MILLI_HZ <= round(rate * 1000.0) <= fr.MAX_RATE_MILLI_HZ:
-        return f"rate {rate!r} Hz rounds outside the allowed range 1 Hz to 1 MHz"
+        return f"rate {rate!r} Hz rounds outside the allowed range {_RANGE}"
     return None
 
 
@@ -105,9 +104,9 @@ def _line_fault(line: bytes, channels: int | None) -> str | None:
     tokens = line.translate(_TO_SPACE).split()
     if channels is None:
         if not 1 <= len(tokens) <= fr.MAX_CHANNELS:
-            return f"{len(tokens)} values; expected 1 to {fr.MAX_CHANNELS}"
+            return f"{_values(len(tokens))}; expected 1 to {fr.MAX_CHANNELS}"
     elif len(tokens) != channels:
-        return f"{len(tokens)} values; expected {channels}"
+        return f"{_values(len(tokens))}; expected {channels}"
     for tok in tokens:
         try:
             value = float(tok)
@@ -116,6 +115,10 @@ def _line_fault(line: bytes, channels: int | None) -> str | None:
         if not math.isfinite(value):
             return f"{tok.decode('ascii')!r} is not a finite number"
     return None
+
+
+def _values(count: int) -> str:
+    return f"{count} value" if count == 1 else f"{count} values"
 
 
 def _parse_line(line: bytes) -> list[float] | None:
@@ -305,8 +308,7 @@ class TextDecoder:
         except ValueError:
             self._violation(
                 events,
-                f"rate comment value {text!r} is not a number; allowed {MIN_RATE_HZ:g} Hz to "
-                f"{MAX_RATE_HZ:g} Hz; {keeping}",
+                f"rate comment value {text!r} is not a number; allowed {_RANGE}; {keeping}",
             )
             return events
         problem = _rate_error(rate)

@@ -74,8 +74,10 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
         return {"ok": False, "error": f"{op}: missing field {exc}"}
     except ValueError as exc:
         return {"ok": False, "error": f"{op}: {exc}"}
-    return {"ok": False, "error": f"unknown op {op!r}; allowed tap, fault, unplug, replug, "
-            "move_sensor, state"}
+    return {
+        "ok": False,
+        "error": f"unknown op {op!r}; allowed tap, fault, unplug, replug, move_sensor, state",
+    }
 
 
 def _opt_float(request: dict[str, Any], key: str) -> float | None:

@@ -68,7 +68,7 @@ class Faults:
     overload_probability: float = 0.0
     drop_frame_probability: float = 0.0
     corrupt_probability: float = 0.0  # per frame: one byte flipped
-    stalled: bool = False  # the device stops sending; its sample clock runs on
+    stalled: bool = False  # the device sends nothing at all; its sample clock runs on
 
 
 @dataclass(frozen=True, slots=True)
@@ -124,7 +124,7 @@ class VirtualInstrument:
         self._overload_mask = 0
         self._last_info = 0.0
         self._last_status = 0.0
-        self._requests: queue.SimpleQueue[str] = queue.SimpleQueue()
+        self._requests: queue.SimpleQueue[tuple[str, threading.Event]] = queue.SimpleQueue()
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._closed = False
@@ -162,9 +162,7 @@ class VirtualInstrument:
             rate_milli_hz=round(self._rate_hz * 1000),
             device_id=s.device_id,
             firmware=s.firmware,
-            channels=tuple(
-                fr.ChannelInfo(s.full_scale_v, s.adc_bits) for _ in self.channel_labels
-            ),
+            channels=tuple(fr.ChannelInfo(s.full_scale_v, s.adc_bits) for _ in self.channel_labels),
         )
 
     def start(self) -> VirtualInstrument:
@@ -172,7 +170,9 @@ class VirtualInstrument:
             if self.settings.output == "text":  # a printing board streams from power-up
                 with self._lock:
                     self._begin_stream()
-            self._thread = threading.Thread(target=self._run, name="virtual-instrument", daemon=True)
+            self._thread = threading.Thread(
+                target=self._run, name="virtual-instrument", daemon=True
+            )
             self._thread.start()
         return self
 
@@ -247,10 +247,17 @@ class VirtualInstrument:
 
     def unplug(self) -> None:
         """Pull the cable: the link closes and the device loses power (it comes back idle)."""
-        self._requests.put("unplug")
+        self._request("unplug")
 
     def replug(self) -> None:
-        self._requests.put("replug")
+        """Plug the cable back in; returns once the device end can be opened again."""
+        self._request("replug")
+
+    def _request(self, what: str) -> None:
+        done = threading.Event()
+        self._requests.put((what, done))
+        if self._thread is not None and self._thread.is_alive():
+            done.wait(timeout=5.0)
 
     # --- the instrument thread ---------------------------------------------
 
@@ -272,7 +279,7 @@ class VirtualInstrument:
     def _serve_requests(self) -> None:
         while True:
             try:
-                req = self._requests.get_nowait()
+                req, done = self._requests.get_nowait()
             except queue.Empty:
                 return
             if req == "unplug":
@@ -283,6 +290,7 @@ class VirtualInstrument:
                 self.port.replug()
                 if self.settings.output == "text":
                     self._begin_stream()
+            done.set()
 
     def _power_off(self) -> None:
         self._streaming = False
@@ -317,7 +325,9 @@ class VirtualInstrument:
                 self._command(event.command)
             elif isinstance(event, BadCommand):
                 self.counters.commands += 1
-                self._queue(self._enc.ack(fr.Ack(event.opcode, fr.AckResult(event.result), event.tag)))
+                self._queue(
+                    self._enc.ack(fr.Ack(event.opcode, fr.AckResult(event.result), event.tag))
+                )
 
     def _command(self, cmd: fr.Command) -> None:
         ok, busy = fr.AckResult.OK, fr.AckResult.BUSY
@@ -361,7 +371,7 @@ class VirtualInstrument:
             self._queue(self._enc.info(self.device_info()))
 
     def _housekeeping(self, now: float) -> None:
-        if not self._streaming:
+        if not self._streaming or self.faults.stalled:
             return
         if now - self._last_info >= self.settings.info_interval_s:
             self._send_info(now)
@@ -400,6 +410,7 @@ class VirtualInstrument:
     def _quantise(self, force: np.ndarray, accel: np.ndarray) -> np.ndarray:
         """(n, channels) sample codes (or volts for float32), with noise and clipping."""
         s = self.settings
+        out: np.ndarray
         sens = np.asarray(self.sensitivities())
         volts = np.vstack([force[None, :], accel]) * sens[:, None]
         volts += self._rng.normal(0.0, s.noise_v_rms, size=volts.shape)

@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from taprig.firmware_protocol import (
     BinaryDecoder,
     ChannelInfo,
@@ -33,7 +32,9 @@ from taprig.firmware_protocol.crc import crc16_xmodem, crc32
 FULL_SCALE = 5.0
 
 
-def make_info(fmt: SampleFormat = SampleFormat.INT24, channels: int = 4, bits: int = 24) -> DeviceInfo:
+def make_info(
+    fmt: SampleFormat = SampleFormat.INT24, channels: int = 4, bits: int = 24
+) -> DeviceInfo:
     return DeviceInfo(
         protocol_version=1,
         sample_format=fmt,
@@ -90,7 +91,7 @@ def test_crc32_agrees_with_zlib(data: bytes) -> None:
 @pytest.mark.parametrize("fmt", list(SampleFormat))
 def test_round_trip_every_format(fmt: SampleFormat) -> None:
     """Volts = code × full_scale / 2^(bits−1) (PROTOCOL.md §3), exactly, for every format."""
-    frames, codes, info = make_stream(5, fmt=fmt if fmt is not SampleFormat.FLOAT32 else fmt)
+    frames, codes, info = make_stream(5, fmt=fmt)
     if fmt is SampleFormat.FLOAT32:
         values = (codes / float(1 << 23)).astype(np.float32)
         enc = FrameEncoder()
@@ -121,7 +122,7 @@ def test_int24_extremes_sign_extend() -> None:
 
 
 def test_frame_capacity_limit() -> None:
-    """(8192 − 12) / (4 × 3) = 681 sample frames of 4-channel int24 fit one frame (PROTOCOL.md §3)."""
+    """(8192 − 12) / (4 × 3) = 681 sample frames of 4-channel int24 fit a frame (PROTOCOL.md §3)."""
     assert max_frames_per_data(4, SampleFormat.INT24) == 681
     enc = FrameEncoder()
     enc.data(0, np.zeros((681, 4), dtype=np.int32), SampleFormat.INT24)

@@ -44,14 +44,21 @@ def examples() -> list[tuple[str, bytes]]:
         channels=(ChannelInfo(5.0, 24), ChannelInfo(5.0, 24)),
     )
     return [
-        ("Host → device, COMMAND START, seq 0, tag 0x0101", host.command(Command(Opcode.START, 0x0101))),
-        ("Device → host, ACK of START (result 0 ok), seq 0", dev.ack(Ack(Opcode.START, AckResult.OK, 0x0101))),
+        (
+            "Host → device, COMMAND START, seq 0, tag 0x0101",
+            host.command(Command(Opcode.START, 0x0101)),
+        ),
+        (
+            "Device → host, ACK of START (result 0 ok), seq 0",
+            dev.ack(Ack(Opcode.START, AckResult.OK, 0x0101)),
+        ),
         (
             "Device → host, INFO: 2 channels, int24, 51 200 Hz, ±5 V, 24 bits, seq 1",
             dev.info(info),
         ),
         (
-            "Device → host, DATA: first_sample 0, 2 sample frames, codes (1, −1), (8388607, −8388608)",
+            "Device → host, DATA: first_sample 0, 2 sample frames, "
+            "codes (1, −1), (8388607, −8388608)",
             dev.data(0, [[1, -1], [8388607, -8388608]], SampleFormat.INT24),
         ),
         (
@@ -93,8 +100,10 @@ def test_doc_examples_decode() -> None:
 
 if __name__ == "__main__":
     text = DOC.read_text(encoding="utf-8")
-    new = text.replace(_section(text), render()) if _section(text) else text.replace(
-        BEGIN + "\n", BEGIN + "\n" + render()
+    new = (
+        text.replace(_section(text), render())
+        if _section(text)
+        else text.replace(BEGIN + "\n", BEGIN + "\n" + render())
     )
     DOC.write_text(new, encoding="utf-8")
     print(f"rewrote examples in {DOC}")

@@ -1,0 +1,30 @@
+"""Run every benchmark and print each figure beside its goal or ceiling.
+
+    python tests/bench/run.py            # full size
+    python tests/bench/run.py --quick    # small inputs, to check the benchmarks still run
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+import bench_decode  # noqa: E402
+import bench_text_input  # noqa: E402
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description="taprig benchmarks")
+    parser.add_argument("--quick", action="store_true", help="small inputs, figures not meaningful")
+    quick = parser.parse_args().quick
+    print("== device link: binary frames")
+    bench_decode.show(bench_decode.run(4.0 if quick else 64.0))
+    print("== device link: text lines")
+    bench_text_input.show(bench_text_input.run(50_000 if quick else 1_000_000))
+
+
+if __name__ == "__main__":
+    main()

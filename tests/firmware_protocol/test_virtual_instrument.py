@@ -1,0 +1,365 @@
+"""The virtual instrument on a real link: pyserial on a pseudo-terminal and on TCP.
+
+Each test starts the instrument, talks to it with pyserial exactly as the
+daemon does, and waits on conditions with deadlines (never fixed sleeps).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import socket
+import time
+from collections.abc import Callable, Iterator
+from pathlib import Path
+
+import numpy as np
+import pytest
+import serial
+
+from taprig.firmware_protocol import (
+    AckReceived,
+    AckResult,
+    BinaryDecoder,
+    Command,
+    DeviceInfoReceived,
+    Event,
+    FrameEncoder,
+    Gap,
+    Opcode,
+    SampleBlock,
+    StatusReceived,
+    make_decoder,
+)
+from taprig.firmware_protocol.frames import frame
+from taprig.firmware_protocol.virtual import half_sine, modal_acceleration
+from taprig.firmware_protocol.virtual.control import ControlServer
+from taprig.firmware_protocol.virtual.instrument import (
+    InstrumentSettings,
+    VirtualInstrument,
+    open_virtual,
+)
+from taprig.firmware_protocol.virtual.ports import TcpPort
+
+
+class Host:
+    """A minimal host: pyserial port + decoder, collecting events."""
+
+    def __init__(self, url: str, fmt: str = "binary") -> None:
+        self.port = serial.serial_for_url(url, timeout=0.02)
+        self.decoder = make_decoder(fmt, **({"rate_hz": None} if fmt == "text" else {}))
+        self.enc = FrameEncoder()
+        self.events: list[Event] = []
+        self.tag = 0
+
+    def send(self, opcode: Opcode, argument: int = 0) -> int:
+        self.tag += 1
+        self.port.write(self.enc.command(Command(opcode, self.tag, argument)))
+        return self.tag
+
+    def pump(self) -> None:
+        data = self.port.read(65536)
+        if data:
+            self.events.extend(self.decoder.feed(data))
+
+    def wait(self, cond: Callable[[], bool], timeout: float = 5.0) -> None:
+        deadline = time.monotonic() + timeout
+        while not cond():
+            if time.monotonic() > deadline:
+                raise AssertionError("condition not met in time")
+            self.pump()
+
+    def ack(self, tag: int) -> AckReceived | None:
+        for e in self.events:
+            if isinstance(e, AckReceived) and e.ack.tag == tag:
+                return e
+        return None
+
+    def blocks(self) -> list[SampleBlock]:
+        return [e for e in self.events if isinstance(e, SampleBlock)]
+
+    def samples(self) -> int:
+        return sum(b.count for b in self.blocks())
+
+    def close(self) -> None:
+        self.port.close()
+
+
+@pytest.fixture
+def vi() -> Iterator[VirtualInstrument]:
+    inst = open_virtual("pty")
+    try:
+        yield inst
+    finally:
+        inst.close()
+
+
+def stitched(blocks: list[SampleBlock]) -> tuple[int, np.ndarray]:
+    """First index and (channels, n) volts of contiguous blocks."""
+    first = blocks[0].first_index
+    for a, b in zip(blocks, blocks[1:], strict=False):
+        assert b.first_index == a.end_index, "unexpected gap"
+    return first, np.concatenate([b.volts for b in blocks], axis=1)
+
+
+def test_commands_are_acknowledged(vi: VirtualInstrument) -> None:
+    host = Host(vi.url)
+    try:
+        ping = host.send(Opcode.PING, 0xCAFE)
+        ident = host.send(Opcode.IDENTIFY)
+        host.wait(lambda: host.ack(ping) is not None and host.ack(ident) is not None)
+        assert host.ack(ping).ack.value == 0xCAFE  # type: ignore[union-attr]
+        host.wait(lambda: any(isinstance(e, DeviceInfoReceived) for e in host.events))
+        bad_rate = host.send(Opcode.SET_RATE, 5)  # 5 mHz: absurd
+        ok_rate = host.send(Opcode.SET_RATE, 25_600_000)
+        host.wait(lambda: host.ack(bad_rate) is not None and host.ack(ok_rate) is not None)
+        assert host.ack(bad_rate).ack.result is AckResult.BAD_ARGUMENT  # type: ignore[union-attr]
+        assert host.ack(ok_rate).ack.value == 25_600_000  # type: ignore[union-attr]
+        start = host.send(Opcode.START)
+        host.wait(lambda: host.samples() > 2000)
+        busy = host.send(Opcode.SET_RATE, 51_200_000)
+        host.wait(lambda: host.ack(busy) is not None)
+        assert host.ack(start).ack.result is AckResult.OK  # type: ignore[union-attr]
+        assert host.ack(busy).ack.result is AckResult.BUSY  # type: ignore[union-attr]
+        assert host.decoder.info is not None and host.decoder.info.rate_hz == 25_600.0
+        host.port.write(frame(0x81, 99, b"\x7f\x00\x09\x00"))  # opcode 0x7F, tag 9
+        host.wait(lambda: host.ack(9) is not None)
+        assert host.ack(9).ack.result is AckResult.UNKNOWN_COMMAND  # type: ignore[union-attr]
+    finally:
+        host.close()
+
+
+def test_stream_rate_and_continuity(vi: VirtualInstrument) -> None:
+    """Sample frames arrive at the announced rate, contiguous, from index 0 after START."""
+    host = Host(vi.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 256)
+        t0, n0 = time.monotonic(), host.samples()
+        host.wait(lambda: host.samples() >= n0 + 51_200, timeout=5.0)
+        rate = (host.samples() - n0) / (time.monotonic() - t0)
+        first, volts = stitched(host.blocks())
+        assert first == 0
+        assert volts.shape[0] == 3
+        assert 0.8 * 51_200 < rate < 1.25 * 51_200
+        assert host.decoder.stats.crc_errors == 0
+        assert any(isinstance(e, StatusReceived) for e in host.events)
+    finally:
+        host.close()
+
+
+def test_tap_arrives_exactly(vi: VirtualInstrument) -> None:
+    """The streamed tap equals the exact modal response, to the ADC's quantisation and noise.
+
+    Reference: the closed-form model response (checked in test_virtual_physics against
+    scipy.integrate.solve_ivp) and the half-sine force; the residual must be at the level
+    of the configured sensor noise (20 µV rms) plus half an LSB of a 24-bit ±5 V converter.
+    """
+    host = Host(vi.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 1024)
+        rec = vi.tap("C4", force_n=40.0, width_s=0.001)
+        assert rec is not None
+        n_rec = 8192
+        host.wait(lambda: host.blocks()[-1].end_index > rec.first_index + n_rec)
+        first, volts = stitched(host.blocks())
+        lo = rec.first_index - 100 - first
+        seg = volts[:, lo : lo + n_rec]
+        t = (first + lo + np.arange(n_rec)) / vi.rate_hz
+        sens = np.asarray(vi.sensitivities())
+        force = half_sine(t - rec.t0_s, rec.width_s, rec.peak_n) * sens[0]
+        accel = modal_acceleration(vi.model, "C4", t, rec.t0_s, rec.width_s, rec.peak_n)
+        expected = np.vstack([force[None, :], accel * sens[1:, None]])
+        resid = seg - expected
+        noise = vi.settings.noise_v_rms
+        assert np.all(np.std(resid, axis=1) < 1.3 * noise)
+        assert np.all(np.abs(np.mean(resid, axis=1)) < 0.2 * noise)
+        assert np.max(seg[0]) / sens[0] == pytest.approx(40.0, rel=0.02)
+    finally:
+        host.close()
+
+
+def test_double_hit_and_overload_faults(vi: VirtualInstrument) -> None:
+    host = Host(vi.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 1024)
+        rec = vi.tap("A2", double_hit=True)
+        assert rec is not None and rec.double_hit
+        host.wait(lambda: host.blocks()[-1].end_index > rec.first_index + 2048)
+        first, volts = stitched(host.blocks())
+        f = volts[0, rec.first_index - first - 10 : rec.first_index - first + 2048]
+        above = f > 0.1 * f.max()
+        pulses = int(np.count_nonzero(np.diff(above.astype(int)) == 1)) + int(above[0])
+        assert pulses == 2
+        over = vi.tap("A2", overload=True)
+        assert over is not None
+        host.wait(
+            lambda: any(
+                isinstance(e, StatusReceived) and e.status.overload_mask for e in host.events
+            )
+        )
+        full = vi.settings.full_scale_v
+        host.wait(lambda: host.blocks()[-1].end_index > over.first_index + 512)
+        first, volts = stitched(host.blocks())
+        seg = volts[:, over.first_index - first : over.first_index - first + 512]
+        assert np.max(np.abs(seg)) >= full * (1 - 2**-22)
+    finally:
+        host.close()
+
+
+def test_dropped_and_corrupted_frames_are_seen_as_such(vi: VirtualInstrument) -> None:
+    host = Host(vi.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 1024)
+        vi.faults.drop_frame_probability = 0.05
+        vi.faults.corrupt_probability = 0.05
+        host.wait(lambda: vi.counters.frames_dropped >= 3 and vi.counters.frames_corrupted >= 3)
+        vi.faults.drop_frame_probability = 0.0
+        vi.faults.corrupt_probability = 0.0
+        sent = vi.counters.frames_sent
+        host.wait(lambda: host.decoder.stats.frames_ok > sent + 20)
+        st = host.decoder.stats
+        lost = vi.counters.frames_dropped * 256
+        assert st.samples_lost >= lost
+        assert st.crc_errors + st.resyncs >= 1
+        assert sum(e.count for e in host.events if isinstance(e, Gap)) == st.samples_lost
+    finally:
+        host.close()
+
+
+def test_stall_then_resume_shows_a_gap(vi: VirtualInstrument) -> None:
+    host = Host(vi.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 1024)
+        vi.faults.stalled = True
+        stalled_at = host.samples()
+        deadline = time.monotonic() + 0.3
+        while time.monotonic() < deadline:
+            host.pump()
+        vi.faults.stalled = False
+        host.wait(lambda: any(isinstance(e, Gap) for e in host.events))
+        gap = next(e for e in host.events if isinstance(e, Gap))
+        assert gap.count >= 0.2 * vi.rate_hz
+        assert stalled_at <= host.samples()
+    finally:
+        host.close()
+
+
+def test_unplug_replug_at_stable_name(tmp_path: Path) -> None:
+    """The pty disappears on unplug (the host's read fails) and returns at the same link name."""
+    link = tmp_path / "ttyTAPRIG0"
+    inst = open_virtual("pty", link=str(link))
+    try:
+        assert inst.url == str(link) and link.is_symlink()
+        host = Host(inst.url)
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 512)
+        inst.unplug()
+        with pytest.raises(serial.SerialException):
+            deadline = time.monotonic() + 5
+            while time.monotonic() < deadline:
+                host.port.read(4096)
+        host.close()
+        inst.replug()
+        deadline = time.monotonic() + 5
+        while not link.exists():
+            assert time.monotonic() < deadline
+            time.sleep(0.01)
+        host = Host(inst.url)
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 512)
+        assert host.blocks()[0].first_index == 0  # power was lost: a fresh stream
+        host.close()
+    finally:
+        inst.close()
+
+
+def test_tcp_transport_like_a_wifi_board() -> None:
+    inst = VirtualInstrument(port=TcpPort()).start()
+    try:
+        assert inst.url.startswith("socket://127.0.0.1:")
+        host = Host(inst.url)
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 2048)
+        assert host.decoder.stats.crc_errors == 0
+        host.close()
+        inst.unplug()
+        with pytest.raises(serial.SerialException):
+            serial.serial_for_url(inst.url, timeout=0.1)
+        inst.replug()
+        host = Host(inst.url)
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 512)
+        host.close()
+    finally:
+        inst.close()
+
+
+def test_text_output_over_pty() -> None:
+    inst = open_virtual("pty", settings=InstrumentSettings(output="text", rate_hz=2000.0))
+    try:
+        host = Host(inst.url, fmt="text")
+        host.wait(lambda: host.decoder.info is not None and host.samples() > 500)
+        assert host.decoder.info is not None and host.decoder.info.rate_hz == 2000.0
+        assert host.decoder.stats.malformed_lines == 0
+        host.close()
+    finally:
+        inst.close()
+
+
+def test_control_interface(vi: VirtualInstrument) -> None:
+    server = ControlServer(vi).start()
+    host = Host(vi.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 512)
+        with socket.create_connection(("127.0.0.1", server.port), timeout=5) as s:
+            f = s.makefile("rwb")
+
+            def ask(obj: object) -> dict[str, object]:
+                f.write(json.dumps(obj).encode() + b"\n")
+                f.flush()
+                reply: dict[str, object] = json.loads(f.readline())
+                return reply
+
+            assert ask({"op": "tap", "point": "B3", "force_n": 12.5})["ok"] is True
+            assert "unknown" in str(ask({"op": "tap", "point": "Z9"})["error"])
+            assert ask({"op": "fault", "name": "stalled", "value": "yes"})["ok"] is False
+            assert ask({"op": "fault", "name": "nope", "value": 1})["ok"] is False
+            assert ask({"op": "frobnicate"})["ok"] is False
+            f.write(b"{not json\n")
+            f.flush()
+            assert json.loads(f.readline())["ok"] is False
+            state = ask({"op": "state"})
+            assert state["taps"] == 1 and state["streaming"] is True
+        assert vi.counters.taps[0].peak_n == 12.5
+        assert not vi.faults.stalled
+    finally:
+        host.close()
+        server.close()
+
+
+def test_decoder_sees_tap_time_exactly() -> None:
+    """Sample k is at k / rate (PROTOCOL.md §3): the force onset sits at ceil(t0 · rate)."""
+    inst = open_virtual("pty", settings=InstrumentSettings(noise_v_rms=1e-7))
+    host = Host(inst.url)
+    try:
+        host.send(Opcode.START)
+        host.wait(lambda: host.samples() >= 512)
+        rec = inst.tap("D5", force_n=20.0, width_s=0.0005)
+        assert rec is not None
+        host.wait(lambda: host.blocks()[-1].end_index > rec.first_index + 64)
+        first, volts = stitched(host.blocks())
+        onset = int(np.argmax(volts[0] > 1e-4)) + first
+        assert onset == math.ceil(rec.t0_s * inst.rate_hz)
+    finally:
+        host.close()
+        inst.close()
+
+
+def test_binary_decoder_type_is_used() -> None:
+    assert isinstance(make_decoder("binary"), BinaryDecoder)
