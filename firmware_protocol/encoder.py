@@ -31,6 +31,8 @@ class FrameEncoder:
         """One DATA frame. codes: (n, channels), integer codes or float32 volts."""
         raw = pack_samples(codes, fmt)
         channels = _channels_of(codes)
+        if not 1 <= channels <= fr.MAX_CHANNELS:
+            raise ValueError(f"{channels} channels; a DATA frame carries 1..{fr.MAX_CHANNELS}")
         count = len(raw) // (channels * fmt.size) if channels else 0
         head = fr.pack_data_header(first_sample, channels, fmt, count)
         return self._next(fr.FrameType.DATA, head + raw)

@@ -38,6 +38,7 @@ _STATUS = struct.Struct("<QHBxI")
 _COMMAND = struct.Struct("<BxH")
 _COMMAND_ARG = struct.Struct("<BxHI")
 _ACK = struct.Struct("<BBHI")
+_F32 = struct.Struct("<f")
 
 
 class FrameType(enum.IntEnum):
@@ -287,7 +288,8 @@ def validate_info(info: DeviceInfo) -> None:
         raise ProtocolError(f"INFO channels = {info.channel_count}; allowed 1..{MAX_CHANNELS}")
     bits_limit = info.sample_format.container_bits
     for c, ch in enumerate(info.channels):
-        if not (ch.full_scale_v > 0.0 and ch.full_scale_v < float("inf")):
+        as_f32 = _F32.unpack(_F32.pack(ch.full_scale_v))[0] if abs(ch.full_scale_v) < 3e38 else 0.0
+        if not (as_f32 > 0.0 and as_f32 < float("inf")):
             raise ProtocolError(
                 f"INFO channel {c} full_scale_v = {ch.full_scale_v}; allowed a finite value > 0"
             )

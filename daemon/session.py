@@ -1,0 +1,258 @@
+"""The measuring session: a test plan, a cursor on the current point, and its averages.
+
+Fed checked hits, it keeps the current point's running spectra, every hit and
+every rejection, and hands back a completed PointSet when the point has the
+averages the plan asks for. Pure state: no threads, no I/O; the rig commits
+what it returns.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from .errors import SessionError
+from .records import (
+    ChannelSpec,
+    Finding,
+    GridPoint,
+    HitRecord,
+    HitVerdict,
+    PointSet,
+    Role,
+    RovingMode,
+    StoredHit,
+)
+from .spectra import SpectralAverager, WindowSettings, hit_spectra, single_average_warning
+
+
+def utc_now() -> str:
+    return dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+@dataclass(frozen=True)
+class Plan:
+    """What the session needs of a test: its grid, roving mode, reference and averages."""
+
+    name: str
+    grid: tuple[GridPoint, ...]
+    roving_mode: RovingMode
+    reference: str
+    averages: int
+    sensor_points: dict[str, str] = field(default_factory=dict)
+    """Roving hammer: response label -> the point where that sensor sits (default reference)."""
+
+
+@dataclass(frozen=True, slots=True)
+class HitOutcome:
+    """What one hit did to the session, for the operator's display and the event stream."""
+
+    point: str
+    verdict: HitVerdict
+    counted: bool  # added to the point's averages
+    waiting: bool  # held for the operator to accept or reject
+    averages: int  # accepted averages at this point so far
+    completed: PointSet | None
+
+
+class Session:
+    """One test being measured. Not thread-safe: the rig's processing thread owns it."""
+
+    def __init__(
+        self,
+        plan: Plan,
+        channels: Sequence[ChannelSpec],
+        rate_hz: float,
+        block: int,
+        windows: WindowSettings,
+        *,
+        auto_accept: bool = True,
+        meta: dict[str, Any] | None = None,
+        done: Sequence[str] = (),
+    ) -> None:
+        if not plan.grid:
+            raise SessionError(f"test {plan.name!r} has an empty grid")
+        self.plan = plan
+        self.channels = tuple(sorted(channels, key=lambda c: c.index))
+        self.force = next(i for i, c in enumerate(self.channels) if c.role is Role.FORCE)
+        self.responses = tuple(i for i, c in enumerate(self.channels) if c.role is Role.RESPONSE)
+        self.rate_hz = rate_hz
+        self.block = block
+        self.windows = windows
+        self.auto_accept = auto_accept
+        self.meta = dict(meta or {})
+        self.labels = tuple(p.label for p in plan.grid)
+        self.done: set[str] = set(done)
+        self.cursor = next((p for p in self.labels if p not in self.done), self.labels[0])
+        self._new_point()
+
+    # --- cursor ---------------------------------------------------------------
+
+    def goto(self, label: str) -> None:
+        if label not in self.labels:
+            raise SessionError(f"point {label!r} is not on the grid of test {self.plan.name!r}")
+        self.cursor = label
+        self._new_point()
+
+    def step(self, delta: int) -> None:
+        """Next (+1) or previous (-1) point on the grid, wrapping round."""
+        i = self.labels.index(self.cursor)
+        self.goto(self.labels[(i + delta) % len(self.labels)])
+
+    def redo(self) -> None:
+        """Start the current point again; a completed version stays in the store."""
+        self._new_point()
+
+    @property
+    def averages(self) -> int:
+        return self._avg.count
+
+    @property
+    def waiting(self) -> bool:
+        return self._waiting is not None
+
+    # --- hits -----------------------------------------------------------------
+
+    def on_hit(self, record: HitRecord, verdict: HitVerdict) -> HitOutcome:
+        if not verdict.accepted:
+            self._keep(record, verdict, accepted=False)
+            return self._outcome(verdict, counted=False)
+        if not self.auto_accept:
+            self._waiting = (record, verdict)
+            return self._outcome(verdict, counted=False, waiting=True)
+        return self._count(record, verdict)
+
+    def accept(self) -> HitOutcome:
+        """The operator accepts the hit held for them."""
+        record, verdict = self._take_waiting()
+        return self._count(record, verdict)
+
+    def reject(self, reason: str = "rejected by the operator") -> HitOutcome:
+        """The operator rejects the hit held for them."""
+        record, verdict = self._take_waiting()
+        finding = Finding("operator", reason)
+        rejected = HitVerdict(
+            False, (*verdict.rejections, finding), verdict.warnings,
+            verdict.peak_force_n, verdict.pulse_width_s, verdict.pulse_end,
+        )  # fmt: skip
+        self._keep(record, rejected, accepted=False)
+        return self._outcome(rejected, counted=False)
+
+    def _take_waiting(self) -> tuple[HitRecord, HitVerdict]:
+        if self._waiting is None:
+            raise SessionError("no hit is waiting for a decision")
+        held, self._waiting = self._waiting, None
+        return held
+
+    def _count(self, record: HitRecord, verdict: HitVerdict) -> HitOutcome:
+        spectra = hit_spectra(
+            record.data, self.force, self.responses, record.pretrigger, verdict.pulse_end,
+            record.rate_hz, self.windows,
+        )  # fmt: skip
+        self._avg.add(spectra)
+        self._tau_s = spectra.tau_s
+        self._keep(record, verdict, accepted=True)
+        completed = None
+        if self._avg.count >= self.plan.averages:
+            completed = self._point_set()
+            self.done.add(self.cursor)
+        outcome = self._outcome(verdict, counted=True, completed=completed)
+        if completed is not None:
+            self._advance()
+        return outcome
+
+    def _keep(self, record: HitRecord, verdict: HitVerdict, *, accepted: bool) -> None:
+        self._hits.append(
+            StoredHit(
+                trigger_index=record.trigger_index,
+                utc=utc_now(),
+                accepted=accepted,
+                peak_force_n=verdict.peak_force_n,
+                pulse_width_s=verdict.pulse_width_s,
+                findings=verdict.rejections + verdict.warnings,
+                data=record.data.astype(np.float32),
+            )
+        )
+
+    def _outcome(
+        self,
+        verdict: HitVerdict,
+        *,
+        counted: bool,
+        waiting: bool = False,
+        completed: PointSet | None = None,
+    ) -> HitOutcome:
+        return HitOutcome(self.cursor, verdict, counted, waiting, self._avg.count, completed)
+
+    def _advance(self) -> None:
+        """After a completed point, move to the next point not yet measured (if any)."""
+        i = self.labels.index(self.cursor)
+        order = self.labels[i + 1 :] + self.labels[: i + 1]
+        nxt = next((p for p in order if p not in self.done), None)
+        if nxt is not None:
+            self.cursor = nxt
+        self._new_point()
+
+    def _new_point(self) -> None:
+        self._avg = SpectralAverager(len(self.responses), self.block, self.rate_hz)
+        self._hits: list[StoredHit] = []
+        self._waiting: tuple[HitRecord, HitVerdict] | None = None
+        self._tau_s = float("inf")
+
+    # --- the completed point set ---------------------------------------------
+
+    def _point_set(self) -> PointSet:
+        plan = self.plan
+        resp = [self.channels[i] for i in self.responses]
+        labels = tuple(c.label for c in resp)
+        if plan.roving_mode is RovingMode.HAMMER:
+            drive = self.cursor
+            points = tuple(plan.sensor_points.get(label, plan.reference) for label in labels)
+        else:
+            drive = plan.reference
+            points = (self.cursor,) * len(labels)
+        meta = {
+            **self.meta,
+            "sample_rate_hz": self.rate_hz,
+            "block": self.block,
+            "exp_tau_s": self._tau_s,
+            "windows": {
+                "force_margin_s": self.windows.force_margin_s,
+                "force_taper_s": self.windows.force_taper_s,
+                "exponential_end": self.windows.exp_end_value,
+            },
+            "channels": [
+                {
+                    "index": c.index, "role": str(c.role), "label": c.label,
+                    "sensitivity": c.sensitivity, "unit": c.sensitivity_unit,
+                    "si_per_volt": c.si_per_volt,
+                }
+                for c in self.channels
+            ],
+            "warnings": [w for w in [single_average_warning(self._avg.count)] if w],
+        }  # fmt: skip
+        avg = self._avg
+        return PointSet(
+            test=plan.name,
+            point=self.cursor,
+            version=0,
+            roving_mode=plan.roving_mode,
+            drive_point=drive,
+            response_labels=labels,
+            response_points=points,
+            n_averages=avg.count,
+            freq_hz=avg.freq_hz,
+            h1=avg.h1(),
+            h2=avg.h2(),
+            coherence=avg.coherence(),
+            gff=avg.gff,
+            gxx=avg.gxx,
+            gfx=avg.gfx,
+            hits=tuple(self._hits),
+            meta=meta,
+            completed_utc=utc_now(),
+        )
