@@ -1,0 +1,392 @@
+"""The rig: one device, one processing thread, the capture pipeline end to end.
+
+    SerialLink (reader thread) ─► Decoder ─► Acquirer ─► check_hit ─► Session ─► Store
+
+The processing thread owns the decoder, the acquirer and the session; other
+threads (the CLI, later the HTTP service) talk to it through `call`, which
+queues a command and waits for its result, so nothing is shared unlocked.
+Observers get every outcome as a plain event.
+"""
+
+from __future__ import annotations
+
+import logging
+import queue
+import shutil
+import threading
+import time
+from collections.abc import Callable
+from concurrent.futures import Future
+from dataclasses import dataclass, field
+from typing import Any, TypeVar
+
+import numpy as np
+
+from taprig.firmware_protocol import (
+    Command,
+    Decoder,
+    DeviceInfo,
+    DeviceInfoReceived,
+    FrameEncoder,
+    Gap,
+    IndexReset,
+    Opcode,
+    ProtocolViolation,
+    SampleBlock,
+    StatusReceived,
+    make_decoder,
+)
+
+from . import __version__
+from .acquire import Acquirer, TriggerSettings
+from .config import Config
+from .errors import SessionError, TaprigError
+from .hits import CheckSettings, check_hit
+from .link import LinkChange, LinkState, SerialLink
+from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
+from .session import HitOutcome, Plan, Session
+from .spectra import WindowSettings
+from .store import Store
+
+log = logging.getLogger(__name__)
+T = TypeVar("T")
+
+
+@dataclass(frozen=True, slots=True)
+class RigEvent:
+    """Something an operator display wants to know. kind: hit, completed, device, cursor, message."""
+
+    kind: str
+    data: dict[str, Any]
+
+
+@dataclass
+class RigStats:
+    hits_seen: int = 0
+    hits_while_disarmed: int = 0
+    commit_latency_s: list[float] = field(default_factory=list)
+
+
+class Rig:
+    """Start with `start()`, stop with `close()`; drive with the methods below."""
+
+    def __init__(self, config: Config, store: Store, url: str | None = None) -> None:
+        self.config = config
+        self.store = store
+        self.url = url or config.device.url
+        self.stats = RigStats()
+        self.info: DeviceInfo | None = None
+        self.link_state = LinkState.CONNECTING
+        self.armed = False
+        self.session: Session | None = None
+        self._decoder = self._make_decoder()
+        self._acq: Acquirer | None = None
+        self._enc = FrameEncoder()
+        self._link = SerialLink(self.url, baudrate=config.device.baudrate,
+                                stall_after_s=config.device.stall_s)  # fmt: skip
+        self._commands: queue.SimpleQueue[tuple[Callable[[], Any], Future[Any]]] = (
+            queue.SimpleQueue()
+        )
+        self._observers: list[Callable[[RigEvent], None]] = []
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="rig", daemon=True)
+        self._closed = False
+        self._item_time = 0.0
+
+    # --- lifecycle ------------------------------------------------------------
+
+    def start(self) -> Rig:
+        self._link.start()
+        self._thread.start()
+        return self
+
+    def close(self) -> None:
+        """Stop processing and close the link. Safe to call twice; the store is the caller's."""
+        if self._closed:
+            return
+        self._closed = True
+        self._stop.set()
+        if self._thread.is_alive():
+            self._thread.join(timeout=5.0)
+        self._link.close()
+
+    def subscribe(self, observer: Callable[[RigEvent], None]) -> None:
+        """`observer` is called on the processing thread: it must return quickly."""
+        self._observers.append(observer)
+
+    # --- commands (any thread) ----------------------------------------------
+
+    def call(self, fn: Callable[[], T], timeout: float = 10.0) -> T:
+        """Run `fn` on the processing thread and return its result (or raise its error)."""
+        fut: Future[T] = Future()
+        self._commands.put((fn, fut))
+        return fut.result(timeout=timeout)
+
+    def create_test(
+        self,
+        name: str,
+        grid: list[GridPoint],
+        roving_mode: RovingMode = RovingMode.HAMMER,
+        reference: str | None = None,
+        averages: int | None = None,
+        sensor_points: dict[str, str] | None = None,
+    ) -> None:
+        ref = reference if reference is not None else grid[0].label
+        if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
+            raise SessionError(f"reference {ref!r} is not a point of the grid")
+        meta = {"sensor_points": sensor_points or {}}
+        avg = averages if averages is not None else self.config.capture.averages
+        self.store.save_test(name, grid, roving_mode, ref, avg, meta)
+
+    def select_test(self, name: str) -> None:
+        self.call(lambda: self._select(name))
+
+    def arm(self) -> None:
+        self.call(self._arm)
+
+    def disarm(self) -> None:
+        self.call(self._disarm)
+
+    def accept(self) -> HitOutcome:
+        return self.call(lambda: self._after(self._need_session().accept()))
+
+    def reject(self) -> HitOutcome:
+        return self.call(lambda: self._after(self._need_session().reject()))
+
+    def redo(self) -> None:
+        self.call(lambda: self._cursor(lambda s: s.redo()))
+
+    def goto(self, label: str) -> None:
+        self.call(lambda: self._cursor(lambda s: s.goto(label)))
+
+    def step(self, delta: int) -> None:
+        self.call(lambda: self._cursor(lambda s: s.step(delta)))
+
+    def snapshot(self) -> dict[str, Any]:
+        return self.call(self._snapshot)
+
+    # --- processing thread ----------------------------------------------------
+
+    def _run(self) -> None:
+        while not self._stop.is_set():
+            self._serve_commands()
+            try:
+                item = self._link.items.get(timeout=0.02)
+            except queue.Empty:
+                continue
+            self._item_time = time.perf_counter()
+            try:
+                if isinstance(item, LinkChange):
+                    self._link_change(item)
+                else:
+                    self._bytes(item)
+            except Exception:
+                # A bug in one stage must not stop the rig: log it and carry on with the stream.
+                log.exception("processing failed; continuing with the next data")
+
+    def _serve_commands(self) -> None:
+        while True:
+            try:
+                fn, fut = self._commands.get_nowait()
+            except queue.Empty:
+                return
+            try:
+                fut.set_result(fn())
+            except Exception as exc:
+                fut.set_exception(exc)
+
+    def _link_change(self, change: LinkChange) -> None:
+        self.link_state = change.state
+        self._emit("device", {"state": change.state.value, "detail": change.detail})
+        if change.state is LinkState.CONNECTED and change.detail.startswith("opened"):
+            self._decoder.reset_link()
+            if self._decoder.name == "binary":
+                self._link.send(self._enc.command(Command(Opcode.IDENTIFY, 1)))
+                self._link.send(self._enc.command(Command(Opcode.START, 2)))
+        elif change.state is LinkState.STALLED:
+            self._link.reconnect("no data: reopening the device")
+
+    def _bytes(self, data: bytes) -> None:
+        for ev in self._decoder.feed(data):
+            if isinstance(ev, SampleBlock):
+                if self._acq is not None:
+                    for rec in self._acq.feed(ev.first_index, ev.volts):
+                        self._hit(rec)
+            elif isinstance(ev, DeviceInfoReceived):
+                self._new_info(ev.info)
+            elif isinstance(ev, Gap) and self._acq is not None:
+                self._acq.gap(ev.first_index, ev.count)
+            elif isinstance(ev, IndexReset) and self._acq is not None:
+                self._acq.restart(ev.first_index)
+            elif isinstance(ev, StatusReceived) and self._acq is not None:
+                self._acq.status(ev.status.sample_index, ev.status.overload_mask)
+            elif isinstance(ev, ProtocolViolation):
+                self._emit("message", {"text": ev.message})
+
+    def _new_info(self, info: DeviceInfo) -> None:
+        changed = self.info is None or (info.rate_milli_hz, info.channels) != (
+            self.info.rate_milli_hz, self.info.channels,
+        )  # fmt: skip
+        self.info = info
+        if not changed and self._acq is not None:
+            return
+        cfg = self.config
+        needed = max(c.index for c in cfg.channels) + 1
+        if info.channel_count < needed:
+            self._emit("message", {"text": f"the device has {info.channel_count} channels; "
+                                   f"the configuration uses {needed}"})  # fmt: skip
+            self._acq = None
+            return
+        cap = cfg.capture
+        trig = TriggerSettings(cap.trigger_level_n, cap.hysteresis_n, cap.trigger_slope,
+                               cap.pretrigger, cap.block)  # fmt: skip
+        self._acq = Acquirer(
+            cfg.channels, trig, info.rate_hz, [c.full_scale_v for c in info.channels],
+            ring_seconds=cap.ring_seconds, full_scale_margin=cap.full_scale_margin,
+        )  # fmt: skip
+        log.info("device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz)
+
+    def _hit(self, record: HitRecord) -> None:
+        self.stats.hits_seen += 1
+        session = self.session
+        if not self.armed or session is None:
+            self.stats.hits_while_disarmed += 1
+            return
+        verdict = check_hit(record, self._check_settings())
+        self._after(session.on_hit(record, verdict))
+
+    def _after(self, outcome: HitOutcome) -> HitOutcome:
+        v = outcome.verdict
+        self._emit("hit", {
+            "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
+            "waiting": outcome.waiting, "averages": outcome.averages,
+            "peak_force_n": v.peak_force_n, "pulse_width_s": v.pulse_width_s,
+            "rejections": [(f.code, f.message) for f in v.rejections],
+            "warnings": [(f.code, f.message) for f in v.warnings],
+        })  # fmt: skip
+        if outcome.completed is not None:
+            self._commit(outcome.completed)
+        return outcome
+
+    def _commit(self, ps: PointSet) -> None:
+        try:
+            stored = self.store.commit_point_set(ps)
+        except TaprigError as exc:
+            # Keep capturing; the operator is told the point must be measured again.
+            self._emit("message", {"text": f"point {ps.point} not stored: {exc}"})
+            if self.session is not None:
+                self.session.done.discard(ps.point)
+            return
+        self.stats.commit_latency_s.append(time.perf_counter() - self._item_time)
+        self._emit("completed", {"point": stored.point, "version": stored.version,
+                                 "seq": stored.seq, "averages": stored.n_averages})  # fmt: skip
+
+    def _check_settings(self) -> CheckSettings:
+        cap = self.config.capture
+        chans = sorted(self.config.channels, key=lambda c: c.index)
+        force = next(i for i, c in enumerate(chans) if c.role is Role.FORCE)
+        return CheckSettings(
+            force_channel=force,
+            response_channels=tuple(i for i, c in enumerate(chans) if c.role is Role.RESPONSE),
+            trigger_level_n=cap.trigger_level_n,
+            force_floor_n=cap.force_floor_n,
+            double_hit_fraction=cap.double_hit_fraction,
+            decay_warning_fraction=cap.decay_warning_fraction,
+            exponential_window=self.config.windows.exponential_end is not None,
+            sign=1.0 if cap.trigger_slope == "rising" else -1.0,
+        )
+
+    # --- command bodies (processing thread) ----------------------------------
+
+    def _select(self, name: str) -> None:
+        plan = self.store.get_test(name)
+        if self.info is None:
+            raise SessionError("the device has not identified itself yet; check the link")
+        done = [s.point for s in self.store.list_point_sets(test=name, latest_only=True)]
+        cfg = self.config
+        w = cfg.windows
+        self.session = Session(
+            Plan(plan.name, tuple(plan.grid), RovingMode(plan.roving_mode), plan.reference,
+                 plan.averages, dict(plan.meta.get("sensor_points", {}))),
+            cfg.channels, self.info.rate_hz, cfg.capture.block,
+            WindowSettings(w.force_margin_s, w.force_taper_s, w.exponential_end),
+            auto_accept=cfg.capture.accept == "auto", meta=self._meta(), done=done,
+        )  # fmt: skip
+        self._emit("cursor", {"test": name, "point": self.session.cursor})
+
+    def _meta(self) -> dict[str, Any]:
+        info = self.info
+        assert info is not None
+        cap = self.config.capture
+        return {
+            "rig": self.config.rig.name,
+            "daemon_version": __version__,
+            "pretrigger": cap.pretrigger,
+            "trigger_level_n": cap.trigger_level_n,
+            "device": {
+                "id": info.device_id, "firmware": info.firmware,
+                "protocol_version": info.protocol_version,
+                "sample_format": info.sample_format.name.lower(), "rate_hz": info.rate_hz,
+                "full_scale_v": [c.full_scale_v for c in info.channels],
+                "adc_bits": [c.adc_bits for c in info.channels],
+            },
+        }  # fmt: skip
+
+    def _arm(self) -> None:
+        self._need_session()
+        free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
+        if free_mb < self.config.store.min_free_mb:
+            raise SessionError(
+                f"only {free_mb:.0f} MB free in {self.store.path.parent}; "
+                f"the rig needs {self.config.store.min_free_mb:g} MB to arm"
+            )
+        self.armed = True
+        self._emit("cursor", self._snapshot())
+
+    def _disarm(self) -> None:
+        self.armed = False
+
+    def _need_session(self) -> Session:
+        if self.session is None:
+            raise SessionError("no test is selected")
+        return self.session
+
+    def _cursor(self, move: Callable[[Session], None]) -> None:
+        session = self._need_session()
+        move(session)
+        self._emit("cursor", self._snapshot())
+
+    def _snapshot(self) -> dict[str, Any]:
+        s = self.session
+        st = self._decoder.stats
+        return {
+            "device": self.url, "state": self.link_state.value, "armed": self.armed,
+            "rate_hz": self.info.rate_hz if self.info else None,
+            "test": s.plan.name if s else None, "point": s.cursor if s else None,
+            "averages": s.averages if s else 0,
+            "required": s.plan.averages if s else 0, "waiting": s.waiting if s else False,
+            "done": sorted(s.done) if s else [],
+            "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
+                     "resyncs": st.resyncs, "frames_ok": st.frames_ok,
+                     "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
+        }  # fmt: skip
+
+    def _emit(self, kind: str, data: dict[str, Any]) -> None:
+        event = RigEvent(kind, data)
+        for observer in self._observers:
+            try:
+                observer(event)
+            except Exception:
+                log.exception("an observer failed on %s", kind)
+
+    def _make_decoder(self) -> Decoder:
+        d = self.config.device
+        if d.format == "text":
+            return make_decoder("text", rate_hz=d.text_rate_hz or None,
+                                full_scale_v=d.text_full_scale_v)  # fmt: skip
+        return make_decoder("binary")
+
+
+def latency_summary(values: list[float]) -> float:
+    """Median of a list of seconds (nan when empty)."""
+    return float(np.median(values)) if values else float("nan")
