@@ -11,9 +11,12 @@ import signal
 import threading
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
+
+if TYPE_CHECKING:
+    from .rig import Rig
 
 app = typer.Typer(
     help="taprig capture daemon: reads a hammer-and-accelerometer device over a serial link.",
@@ -141,6 +144,99 @@ def instrument(
     finally:
         server.close()
         vi.close()
+
+
+class Roving(StrEnum):
+    hammer = "hammer"
+    sensor = "sensor"
+
+
+@app.command()
+def run(
+    config: Annotated[
+        Path | None, typer.Option("--config", "-c", help="TOML configuration")
+    ] = None,
+    set_: Annotated[
+        list[str] | None, typer.Option("--set", help="override a setting: section.key=value")
+    ] = None,
+    test: Annotated[str | None, typer.Option(help="test to select (created with --grid)")] = None,
+    grid: Annotated[
+        Path | None, typer.Option(help="CSV grid (label,x,y,z[,direction], metres): new test")
+    ] = None,
+    roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
+    reference: Annotated[
+        str | None, typer.Option(help="fixed sensor (hammer mode) or hammer point (sensor mode)")
+    ] = None,
+    virtual_taps: Annotated[
+        float, typer.Option(help="virtual device only: a simulated operator taps every N s")
+    ] = 0.0,
+    verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
+) -> None:
+    """Capture: open the device, select a test, arm, and store every completed point set."""
+    from .errors import TaprigError
+
+    _setup_logging(verbose)
+    try:
+        _run(config, set_ or [], test, grid, roving, reference, virtual_taps)
+    except TaprigError as exc:
+        typer.echo(f"taprigd: {exc}", err=True)
+        raise typer.Exit(code=exc.exit_code) from None
+
+
+def _run(
+    config_path: Path | None,
+    overrides: list[str],
+    test: str | None,
+    grid: Path | None,
+    roving: Roving,
+    reference: str | None,
+    virtual_taps: float,
+) -> None:
+    from .config import load_config
+    from .records import RovingMode
+    from .rig import RigEvent
+    from .runner import start_rig
+    from .store import import_grid_csv
+
+    cfg = load_config(config_path, overrides)
+    running = start_rig(cfg)
+    log = logging.getLogger("taprig.daemon")
+    stop = threading.Event()
+    signal.signal(signal.SIGTERM, lambda *_: stop.set())
+
+    def show(event: RigEvent) -> None:
+        log.info("%s %s", event.kind, event.data)
+
+    try:
+        rig = running.rig
+        rig.subscribe(show)
+        if test is not None:
+            if grid is not None:
+                points = import_grid_csv(grid.read_text(encoding="utf-8"))
+                rig.create_test(test, points, RovingMode(roving.value), reference)
+            _wait_for_device(rig, stop)
+            rig.select_test(test)
+            rig.arm()
+        while not stop.wait(virtual_taps if virtual_taps > 0 else 1.0):
+            vi = running.instrument
+            if vi is not None and virtual_taps > 0 and rig.session is not None:
+                vi.tap(rig.snapshot()["point"])
+    except KeyboardInterrupt:
+        pass
+    finally:
+        running.close()
+
+
+def _wait_for_device(rig: Rig, stop: threading.Event, timeout: float = 30.0) -> None:
+    from .errors import SessionError
+
+    deadline = timeout
+    while rig.info is None:
+        if stop.wait(0.05):
+            return
+        deadline -= 0.05
+        if deadline <= 0:
+            raise SessionError(f"the device at {rig.url} did not identify itself in {timeout:g} s")
 
 
 def main() -> None:

@@ -231,6 +231,12 @@ class Rig:
         if not changed and self._acq is not None:
             return
         cfg = self.config
+        try:
+            cfg.check_rate(info.rate_hz)
+        except TaprigError as exc:
+            self._emit("message", {"text": str(exc)})
+            self._acq = None
+            return
         needed = max(c.index for c in cfg.channels) + 1
         if info.channel_count < needed:
             self._emit("message", {"text": f"the device has {info.channel_count} channels; "
@@ -244,7 +250,9 @@ class Rig:
             cfg.channels, trig, info.rate_hz, [c.full_scale_v for c in info.channels],
             ring_seconds=cap.ring_seconds, full_scale_margin=cap.full_scale_margin,
         )  # fmt: skip
-        log.info("device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz)
+        log.info(
+            "device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz
+        )
 
     def _hit(self, record: HitRecord) -> None:
         self.stats.hits_seen += 1

@@ -391,9 +391,10 @@ def single_average_warning(count: int) -> str | None:
 
 
 def _divide(num: NDArray[_T], den: NDArray[np.generic]) -> NDArray[_T]:
-    """num/den with NaN where den is 0, and no floating-point warning for it."""
+    """num/den, NaN where den is 0 or either is not finite, without floating-point warnings."""
     out = np.full(np.broadcast_shapes(num.shape, den.shape), np.nan, dtype=num.dtype)
-    np.divide(num, den, out=out, where=den != 0)
+    # NaN operands are masked out too: complex division by NaN raises "invalid value".
+    np.divide(num, den, out=out, where=(den != 0) & np.isfinite(den) & np.isfinite(num))
     return out
 
 

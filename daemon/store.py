@@ -87,14 +87,15 @@ _SCHEMA_1 = (
         gff BLOB NOT NULL, gxx BLOB NOT NULL, gfx BLOB NOT NULL,
         UNIQUE (test_id, point, version),
         FOREIGN KEY (test_id, point) REFERENCES points (test_id, label) ON DELETE CASCADE)""",
+    # SQLite stores a NaN as NULL, so the hit measures may be NULL; they read back as NaN.
     """CREATE TABLE hits (
         point_set_id INTEGER NOT NULL REFERENCES point_sets (id) ON DELETE CASCADE,
         ordinal INTEGER NOT NULL,
         trigger_index INTEGER NOT NULL,
         utc TEXT NOT NULL,
         accepted INTEGER NOT NULL CHECK (accepted IN (0, 1)),
-        peak_force_n REAL NOT NULL,
-        pulse_width_s REAL NOT NULL,
+        peak_force_n REAL,
+        pulse_width_s REAL,
         findings TEXT NOT NULL,
         data BLOB,
         PRIMARY KEY (point_set_id, ordinal))""",
@@ -776,8 +777,8 @@ def _stored_hit(h: sqlite3.Row) -> StoredHit:
         h["trigger_index"],
         h["utc"],
         bool(h["accepted"]),
-        h["peak_force_n"],
-        h["pulse_width_s"],
+        math.nan if h["peak_force_n"] is None else h["peak_force_n"],
+        math.nan if h["pulse_width_s"] is None else h["pulse_width_s"],
         tuple(Finding(c, m) for c, m in json.loads(h["findings"])),
         None if h["data"] is None else decode_array(h["data"]),
     )

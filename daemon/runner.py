@@ -1,0 +1,69 @@
+"""Start-up and shut-down of a whole rig, in order: instrument (if virtual), store, rig.
+
+Parts start in the order listed and stop in reverse; every close is idempotent.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+
+from taprig.firmware_protocol.virtual import ModalModel
+from taprig.firmware_protocol.virtual.instrument import (
+    InstrumentSettings,
+    VirtualInstrument,
+    open_virtual,
+)
+
+from .config import Config
+from .rig import Rig
+from .store import Store
+
+log = logging.getLogger(__name__)
+
+
+@dataclass
+class RunningRig:
+    config: Config
+    store: Store
+    rig: Rig
+    instrument: VirtualInstrument | None = None
+    _closed: bool = field(default=False, repr=False)
+
+    def close(self) -> None:
+        if self._closed:
+            return
+        self._closed = True
+        self.rig.close()
+        self.store.close()
+        if self.instrument is not None:
+            self.instrument.close()
+
+
+def start_rig(
+    config: Config,
+    instrument_settings: InstrumentSettings | None = None,
+    model: ModalModel | None = None,
+) -> RunningRig:
+    """Open everything the configuration names and start capturing.
+
+    instrument_settings, model: for a virtual device, how to build it (default: the demo panel).
+    """
+    instrument = None
+    url = config.device.url
+    if config.device.is_virtual:
+        transport = "tcp" if url == "virtual:tcp" else "pty"
+        settings = instrument_settings or InstrumentSettings(
+            output="text" if url == "virtual:text" else "binary"
+        )
+        instrument = open_virtual(transport, settings=settings, model=model)
+        url = instrument.url
+        log.info("virtual instrument on %s", url)
+    try:
+        store = Store(config.store.data_dir)
+    except Exception:
+        if instrument is not None:
+            instrument.close()
+        raise
+    rig = Rig(config, store, url=url).start()
+    return RunningRig(config, store, rig, instrument)

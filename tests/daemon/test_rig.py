@@ -1,0 +1,172 @@
+"""The whole capture pipeline on the virtual instrument over a real pty, into a real store."""
+
+from __future__ import annotations
+
+import dataclasses
+import queue
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from taprig.daemon.config import load_config
+from taprig.daemon.errors import SessionError
+from taprig.daemon.records import GridPoint, RovingMode
+from taprig.daemon.rig import RigEvent
+from taprig.daemon.runner import RunningRig, start_rig
+from taprig.firmware_protocol.virtual import demo_panel
+from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
+
+
+# The demo panel with 4 % damping: it rings down in a fraction of a second, so the
+# simulated operator need not wait long between taps for the previous one to die away.
+DAMPED = dataclasses.replace(demo_panel(), damping_ratio=np.full(demo_panel().n_modes, 0.04))
+PAUSE_S = 0.25  # the operator's pause between taps: e^(-0.04·2π·66·0.25) ≈ 1.6 %
+
+
+@pytest.fixture
+def running(tmp_path: Path) -> Iterator[RunningRig]:
+    cfg = load_config(
+        None,
+        [f"store.data_dir={tmp_path}", "capture.block=8192", "capture.averages=3",
+         "store.min_free_mb=1"],
+    )  # fmt: skip
+    r = start_rig(cfg, model=DAMPED)
+    try:
+        yield r
+    finally:
+        r.close()
+
+
+class Events:
+    def __init__(self, r: RunningRig) -> None:
+        self.q: queue.Queue[RigEvent] = queue.Queue()
+        r.rig.subscribe(self.q.put)
+
+    def clear(self) -> None:
+        while not self.q.empty():
+            self.q.get_nowait()
+
+    def next(self, kind: str, timeout: float = 10.0) -> RigEvent:
+        deadline = time.monotonic() + timeout
+        while True:
+            left = deadline - time.monotonic()
+            if left <= 0:
+                raise AssertionError(f"no {kind} event in {timeout} s")
+            try:
+                ev = self.q.get(timeout=left)
+            except queue.Empty:
+                continue
+            if ev.kind == kind:
+                return ev
+
+
+def grid_of(vi: VirtualInstrument, labels: list[str]) -> list[GridPoint]:
+    m = vi.model
+    return [GridPoint(lab, *map(float, m.coords[m.index(lab)])) for lab in labels]
+
+
+def wait_info(r: RunningRig) -> None:
+    deadline = time.monotonic() + 10
+    while r.rig.info is None:
+        assert time.monotonic() < deadline, "device never identified itself"
+        time.sleep(0.01)
+
+
+def tap_and_wait(r: RunningRig, ev: Events, point: str, **kw: object) -> RigEvent:
+    assert r.instrument is not None
+    time.sleep(PAUSE_S)  # the simulated operator's pause, part of the scenario
+    ev.clear()
+    assert r.instrument.tap(point, **kw) is not None  # type: ignore[arg-type]
+    return ev.next("hit")
+
+
+def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
+    r, vi = running, running.instrument
+    assert vi is not None
+    ev = Events(r)
+    wait_info(r)
+    labels = ["A1", "B3", "C4"]
+    r.rig.create_test("panel-1", grid_of(vi, labels), RovingMode.HAMMER, reference="B3",
+                      sensor_points={"acc1": "B3", "acc2": "X1"})  # fmt: skip
+    with pytest.raises(SessionError, match="no test is selected"):
+        r.rig.arm()
+    r.rig.select_test("panel-1")
+    r.rig.arm()
+    for label in labels:
+        assert r.rig.snapshot()["point"] == label
+        for k in range(3):
+            if label == "B3" and k == 1:
+                hit = tap_and_wait(r, ev, label, double_hit=True)
+                assert not hit.data["accepted"]
+                assert hit.data["rejections"][0][0] == "double_hit"
+            hit = tap_and_wait(r, ev, label, force_n=20.0 + 5 * k)
+            assert hit.data["accepted"], hit.data["rejections"]
+        done = ev.next("completed")
+        assert done.data["point"] == label and done.data["version"] == 1
+    sets = r.store.list_point_sets(test="panel-1")
+    assert [s.point for s in sets] == labels
+    b3 = r.store.get_point_set(sets[1].id, with_hits=True)
+    assert b3.n_averages == 3
+    assert b3.response_labels == ("acc1", "acc2") and b3.response_points == ("B3", "X1")
+    assert [h.accepted for h in b3.hits].count(False) == 1
+    assert b3.hits[0].data is not None and b3.hits[0].data.shape == (3, 8192)
+    assert b3.meta["device"]["id"] == "VIRTUAL-PANEL"
+    assert np.isfinite(b3.meta["exp_tau_s"])
+    assert b3.h1.shape == (2, 4097)
+    # coherence: clean taps on a noiseless-ish panel are coherent at the first mode
+    f1 = int(np.argmin(np.abs(b3.freq_hz - vi.model.freqs_hz[0])))
+    assert b3.coherence[0, f1] > 0.99
+    # measure B3 again: a new version, the old one kept
+    r.rig.goto("B3")
+    for k in range(3):
+        tap_and_wait(r, ev, "B3", force_n=30.0)
+    again = ev.next("completed")
+    assert again.data["version"] == 2
+    assert len(r.store.list_point_sets(test="panel-1")) == 4
+    assert r.store.integrity_check() == "ok"
+    assert r.rig.stats.commit_latency_s
+
+
+def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
+    r, vi = running, running.instrument
+    assert vi is not None
+    wait_info(r)
+    r.rig.create_test("idle", grid_of(vi, ["A1"]))
+    r.rig.select_test("idle")
+    vi.tap("A1")
+    deadline = time.monotonic() + 5
+    while r.rig.stats.hits_seen == 0:
+        assert time.monotonic() < deadline
+        time.sleep(0.01)
+    assert r.rig.stats.hits_while_disarmed == 1
+    assert r.store.list_point_sets() == []
+
+
+def test_operator_accept_policy(tmp_path: Path) -> None:
+    cfg = load_config(None, [f"store.data_dir={tmp_path}", "capture.block=4096",
+                             "capture.averages=2", "capture.accept=operator",
+                             "store.min_free_mb=1"])  # fmt: skip
+    r = start_rig(cfg, model=DAMPED)
+    try:
+        assert r.instrument is not None
+        ev = Events(r)
+        wait_info(r)
+        r.rig.create_test("manual", grid_of(r.instrument, ["D2"]))
+        r.rig.select_test("manual")
+        r.rig.arm()
+        hit = tap_and_wait(r, ev, "D2")
+        assert hit.data["waiting"] and not hit.data["counted"]
+        assert r.rig.reject().averages == 0
+        for _ in range(2):
+            tap_and_wait(r, ev, "D2")
+            assert r.rig.accept().counted
+        ev.next("completed")
+        (ps,) = r.store.list_point_sets(test="manual")
+        full = r.store.get_point_set(ps.id)
+        assert [h.accepted for h in full.hits] == [False, True, True]
+        assert full.hits[0].findings[-1].code == "operator"
+    finally:
+        r.close()
