@@ -201,7 +201,7 @@ class Acquirer:
             trigger_index=trig,
             rate_hz=self.rate_hz,
             data=data,
-            near_full_scale=tuple(bool(x) for x in near.any(axis=1)),
+            near_full_scale=tuple(bool(x) for x in np.asarray(near.any(axis=1)).tolist()),
             device_overload=overload,
             gap=gap,
         )

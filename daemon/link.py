@@ -15,7 +15,6 @@ import queue
 import threading
 import time
 from dataclasses import dataclass
-from typing import cast
 
 import serial
 
@@ -120,10 +119,7 @@ class SerialLink:
     def _open(self) -> bool:
         try:
             # Every backend (tty, socket://, rfc2217://) has Serial's read interface.
-            port = cast(
-                serial.Serial,
-                serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S),
-            )
+            port = serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S)
         except (serial.SerialException, OSError, ValueError) as exc:
             self._set_state(LinkState.DISCONNECTED, f"cannot open {self.url}: {exc}")
             return False

@@ -21,7 +21,6 @@ from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
 import numpy as np
-
 from taprig.firmware_protocol import (
     Command,
     Decoder,
@@ -54,7 +53,10 @@ T = TypeVar("T")
 
 @dataclass(frozen=True, slots=True)
 class RigEvent:
-    """Something an operator display wants to know. kind: hit, completed, device, cursor, message."""
+    """Something an operator display wants to know.
+
+    kind: "hit", "completed", "device", "cursor" or "message".
+    """
 
     kind: str
     data: dict[str, Any]

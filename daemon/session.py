@@ -87,6 +87,7 @@ class Session:
         self.meta = dict(meta or {})
         self.labels = tuple(p.label for p in plan.grid)
         self.done: set[str] = set(done)
+        self._waiting: tuple[HitRecord, HitVerdict] | None = None
         self.cursor = next((p for p in self.labels if p not in self.done), self.labels[0])
         self._new_point()
 
@@ -145,7 +146,8 @@ class Session:
     def _take_waiting(self) -> tuple[HitRecord, HitVerdict]:
         if self._waiting is None:
             raise SessionError("no hit is waiting for a decision")
-        held, self._waiting = self._waiting, None
+        held = self._waiting
+        self._waiting = None
         return held
 
     def _count(self, record: HitRecord, verdict: HitVerdict) -> HitOutcome:
@@ -200,7 +202,7 @@ class Session:
     def _new_point(self) -> None:
         self._avg = SpectralAverager(len(self.responses), self.block, self.rate_hz)
         self._hits: list[StoredHit] = []
-        self._waiting: tuple[HitRecord, HitVerdict] | None = None
+        self._waiting = None
         self._tau_s = float("inf")
 
     # --- the completed point set ---------------------------------------------

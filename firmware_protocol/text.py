@@ -64,8 +64,9 @@ _NO_RATE_MESSAGE = (
     "or set rate_hz in the configuration"
 )
 
-# Lines parsed together on the error path before falling back to one line at a time.
-_FALLBACK_GROUP = 64
+# Lines parsed by one C call, and on the error path before one line at a time.
+_GROUP_LINES = 256
+_SMALL_GROUP_LINES = 16
 
 _Int = npt.NDArray[np.int64]
 _Bool = npt.NDArray[np.bool_]
@@ -401,7 +402,7 @@ class TextDecoder:
         values = np.empty((0, channels or 1), dtype=np.float64)
         if good_lines.size:
             assert channels is not None
-            values, ok = self._parse(data, starts, cends, good_lines, good, tokens, channels)
+            values, ok = self._parse(data, starts, cends, good, tokens, channels)
             if not ok.all():
                 good[good_lines[~ok]] = False
                 values = values[ok]
@@ -444,52 +445,57 @@ class TextDecoder:
         data: bytes,
         starts: _Int,
         cends: _Int,
-        good_lines: _Int,
         good: _Bool,
         tokens: _Int,
         channels: int,
     ) -> tuple[_Float, _Bool]:
         """Values (n_good, channels) of the good lines and which of them really parsed.
 
-        Fast path: the byte runs of good and token-free lines are joined and parsed
-        in one call. If that fails (a token such as "1.2.3" or "1e" passed the
-        character check), groups of lines are parsed, and one line at a time only
-        inside a group that fails.
+        Lines are parsed in groups of _GROUP_LINES, each group in one C call on the
+        bytes between its first and last line (token-free lines add nothing). A
+        group fails only if a token passed the character check without being a
+        number ("1.2.3", "1e"); it is parsed again in groups of _SMALL_GROUP_LINES,
+        and one line at a time only inside a small group that fails. So a rare bad
+        line costs a re-parse of a few hundred lines, not of the chunk.
         """
-        n_good = good_lines.size
-        joinable = good | (tokens == 0)
-        if joinable.all():
-            text = data.translate(_TO_SPACE)
-        else:
-            edges = np.diff(joinable.astype(np.int8), prepend=np.int8(0), append=np.int8(0))
-            run_first = np.flatnonzero(edges == 1)
-            run_last = np.flatnonzero(edges == -1) - 1
-            text = b" ".join(
-                data[s:e]
-                for s, e in zip(starts[run_first].tolist(), cends[run_last].tolist(), strict=True)
-            ).translate(_TO_SPACE)
-        flat = _fromstring(text, n_good * channels)
+        n_lines = good.size
+        good_before = np.zeros(n_lines + 1, dtype=np.int64)
+        np.cumsum(good, out=good_before[1:])
+        n_good = int(good_before[-1])
+        values = np.empty((n_good, channels), dtype=np.float64)
         ok = np.ones(n_good, dtype=np.bool_)
-        if flat is not None:
-            values = flat.reshape(n_good, channels)
-        else:
-            values = np.zeros((n_good, channels), dtype=np.float64)
-            s_list = starts[good_lines].tolist()
-            e_list = cends[good_lines].tolist()
-            for g0 in range(0, n_good, _FALLBACK_GROUP):
-                g1 = min(g0 + _FALLBACK_GROUP, n_good)
-                pairs = zip(s_list[g0:g1], e_list[g0:g1], strict=True)
-                group = b" ".join(data[s:e] for s, e in pairs)
-                part = _fromstring(group.translate(_TO_SPACE), (g1 - g0) * channels)
-                if part is not None:
-                    values[g0:g1] = part.reshape(-1, channels)
+        spaced = data.translate(_TO_SPACE)  # one byte for one byte: offsets still hold
+        joinable = good | (tokens == 0)
+        first = starts.tolist()
+        last = cends.tolist()
+        before = good_before.tolist()
+
+        def text_of(lo: int, hi: int) -> bytes:
+            if joinable[lo:hi].all():
+                return spaced[first[lo] : last[hi - 1]]
+            lines = (np.flatnonzero(good[lo:hi]) + lo).tolist()
+            return b" ".join(spaced[first[j] : last[j]] for j in lines)
+
+        def parse(lo: int, hi: int, step: int) -> None:
+            for g_lo in range(lo, hi, step):
+                g_hi = min(g_lo + step, hi)
+                k0, k1 = before[g_lo], before[g_hi]
+                if k0 == k1:
                     continue
-                for k in range(g0, g1):
-                    row = _parse_line(data[s_list[k] : e_list[k]])
-                    if row is None:
-                        ok[k] = False
-                    else:
-                        values[k] = row
+                part = _fromstring(text_of(g_lo, g_hi), (k1 - k0) * channels)
+                if part is not None:
+                    values[k0:k1] = part.reshape(-1, channels)
+                elif step > _SMALL_GROUP_LINES:
+                    parse(g_lo, g_hi, _SMALL_GROUP_LINES)
+                else:
+                    for j in (np.flatnonzero(good[g_lo:g_hi]) + g_lo).tolist():
+                        row = _parse_line(data[first[j] : last[j]])
+                        if row is None:
+                            ok[before[j]] = False
+                        else:
+                            values[before[j]] = row
+
+        parse(0, n_lines, _GROUP_LINES)
         ok &= np.isfinite(values).all(axis=1)
         return values, ok
 

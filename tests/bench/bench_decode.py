@@ -1,7 +1,8 @@
 """Binary decode throughput on a 64 MB stream of 4-channel int24 DATA frames.
 
 Printed beside, from the same run: numpy.frombuffer on the same payload bytes
-(materialised, 64 KiB at a time: the memory-bandwidth ceiling of any decoder), the bare int24-to-volts
+(materialised, 64 KiB at a time: the memory-bandwidth ceiling of any decoder),
+the bare int24-to-volts
 conversion of those bytes in one call (the numpy work alone, without framing),
 and the USB 2.0 full-speed CDC link of about 1 MB/s (common practice figure).
 Goal: at least 50 MB/s on one core, 50 times the link.
@@ -15,7 +16,6 @@ import argparse
 import time
 
 import numpy as np
-
 from taprig.firmware_protocol import (
     BinaryDecoder,
     ChannelInfo,

@@ -17,7 +17,6 @@ import time
 from collections.abc import Callable
 
 import numpy as np
-
 from taprig.daemon.spectra import (
     SpectralAverager,
     WindowSettings,

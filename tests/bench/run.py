@@ -12,8 +12,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-import bench_decode  # noqa: E402
-import bench_text_input  # noqa: E402
+import bench_decode
+import bench_text_input
 
 
 def main() -> None:

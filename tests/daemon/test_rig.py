@@ -10,7 +10,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from taprig.daemon.config import load_config
 from taprig.daemon.errors import SessionError
 from taprig.daemon.records import GridPoint, RovingMode
@@ -18,7 +17,6 @@ from taprig.daemon.rig import RigEvent
 from taprig.daemon.runner import RunningRig, start_rig
 from taprig.firmware_protocol.virtual import demo_panel
 from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
-
 
 # The demo panel with 4 % damping: it rings down in a fraction of a second, so the
 # simulated operator need not wait long between taps for the previous one to die away.
@@ -121,7 +119,7 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     assert b3.coherence[0, f1] > 0.99
     # measure B3 again: a new version, the old one kept
     r.rig.goto("B3")
-    for k in range(3):
+    for _ in range(3):
         tap_and_wait(r, ev, "B3", force_n=30.0)
     again = ev.next("completed")
     assert again.data["version"] == 2

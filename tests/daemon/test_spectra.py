@@ -15,7 +15,6 @@ import numpy as np
 import pytest
 from numpy.typing import NDArray
 from scipy import signal
-
 from taprig.daemon.spectra import (
     NO_EXP_TAU_S,
     HitSpectra,
@@ -77,12 +76,15 @@ def synthetic_hits(
 
 
 def windowed_concatenation(
-    records: Sequence[FloatArray], spectra: Sequence[HitSpectra], force_row: int,
+    records: Sequence[FloatArray],
+    spectra: Sequence[HitSpectra],
+    force_row: int,
     response_rows: Sequence[int],
 ) -> tuple[FloatArray, FloatArray]:
     """The windowed force (n_hits·block,) and responses (n_resp, n_hits·block), hit after hit."""
-    forces = [r[force_row] * s.force_window * s.exp_window for r, s in zip(records, spectra)]
-    resps = [r[list(response_rows)] * s.exp_window for r, s in zip(records, spectra)]
+    pairs = list(zip(records, spectra, strict=True))
+    forces = [r[force_row] * s.force_window * s.exp_window for r, s in pairs]
+    resps = [r[list(response_rows)] * s.exp_window for r, s in pairs]
     return np.concatenate(forces), np.concatenate(resps, axis=1)
 
 
@@ -101,7 +103,10 @@ def test_densities_h1_h2_coherence_equal_scipy(block: int) -> None:
     records, ends = synthetic_hits(rng, 5, block, rate, pre)
     windows = WindowSettings(force_margin_s=0.010, force_taper_s=0.005, exp_end_value=0.05)
     responses = (0, 1, 3)
-    spectra = [hit_spectra(r, 2, responses, pre, e, rate, windows) for r, e in zip(records, ends)]
+    spectra = [
+        hit_spectra(r, 2, responses, pre, e, rate, windows)
+        for r, e in zip(records, ends, strict=True)
+    ]
     avg = SpectralAverager(3, block, rate)
     for s in spectra:
         avg.add(s)
@@ -153,7 +158,7 @@ def averaged(n_hits: int, seed: int) -> SpectralAverager:
     records, ends = synthetic_hits(rng, n_hits, 1024, 1000.0, 50)
     windows = WindowSettings(force_margin_s=0.01, force_taper_s=0.005, exp_end_value=0.05)
     avg = SpectralAverager(3, 1024, 1000.0)
-    for rec, end in zip(records, ends):
+    for rec, end in zip(records, ends, strict=True):
         avg.add(hit_spectra(rec, 2, (0, 1, 3), 50, end, 1000.0, windows))
     return avg
 
@@ -321,7 +326,11 @@ def anti_alias_taps(rate_hz: float, oversample: int) -> FloatArray:
 
 
 def sampled_through_anti_alias(
-    model: ModalModel, drive: str, sensors: Sequence[str], t0: float, peak_n: float,
+    model: ModalModel,
+    drive: str,
+    sensors: Sequence[str],
+    t0: float,
+    peak_n: float,
     taps: FloatArray,
 ) -> FloatArray:
     """Record (1 + n_sensors, BLOCK): force and accelerations sampled as a front end does.

@@ -6,6 +6,7 @@ daemon does, and waits on conditions with deadlines (never fixed sleeps).
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 import socket
@@ -16,7 +17,6 @@ from pathlib import Path
 import numpy as np
 import pytest
 import serial
-
 from taprig.firmware_protocol import (
     AckReceived,
     AckResult,
@@ -97,7 +97,7 @@ def vi() -> Iterator[VirtualInstrument]:
 def stitched(blocks: list[SampleBlock]) -> tuple[int, np.ndarray]:
     """First index and (channels, n) volts of contiguous blocks."""
     first = blocks[0].first_index
-    for a, b in zip(blocks, blocks[1:], strict=False):
+    for a, b in itertools.pairwise(blocks):
         assert b.first_index == a.end_index, "unexpected gap"
     return first, np.concatenate([b.volts for b in blocks], axis=1)
 
