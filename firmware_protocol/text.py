@@ -7,9 +7,10 @@ lines, the device description synthesized from configuration and
 `# rate=<Hz>` comments, and protocol violations.
 
 Speed: every complete line of a chunk is classified with numpy (line ends,
-a byte-class lookup table, token counts per line) and the numbers of all
-good lines are parsed by one C call (`np.fromstring`). Python loops run only
-over comments, over runs of malformed lines and on the error path.
+a byte-class lookup table, token counts per line) and the numbers of the good
+lines are parsed by one C call (`np.fromstring`) per group of 256 lines.
+Python loops run only over comments, over runs of malformed lines and on the
+error path (a group whose one-call parse fails).
 """
 
 from __future__ import annotations
@@ -268,7 +269,7 @@ class TextDecoder:
             tail = b""
         self._partial = tail
         if last >= 0:
-            self._lines(data[: last + 1], overlong_first, events)
+            self._lines(data, last + 1, overlong_first, events)
         return events
 
     # --- state --------------------------------------------------------------
@@ -338,9 +339,9 @@ class TextDecoder:
 
     # --- lines --------------------------------------------------------------
 
-    def _lines(self, data: bytes, overlong_first: bool, events: list[Event]) -> None:
-        """Decode `data`, complete lines each ending in "\\n"."""
-        a = np.frombuffer(data, dtype=np.uint8)
+    def _lines(self, data: bytes, size: int, overlong_first: bool, events: list[Event]) -> None:
+        """Decode data[:size], complete lines each ending in "\\n" (the rest is ignored)."""
+        a = np.frombuffer(data, dtype=np.uint8, count=size)
         ends: _Int = np.flatnonzero(a == 0x0A)
         n_lines = ends.size
         starts: _Int = np.empty(n_lines, dtype=np.int64)
@@ -466,20 +467,17 @@ class TextDecoder:
         ok = np.ones(n_good, dtype=np.bool_)
         spaced = data.translate(_TO_SPACE)  # one byte for one byte: offsets still hold
         joinable = good | (tokens == 0)
-        first = starts.tolist()
-        last = cends.tolist()
-        before = good_before.tolist()
 
         def text_of(lo: int, hi: int) -> bytes:
             if joinable[lo:hi].all():
-                return spaced[first[lo] : last[hi - 1]]
+                return spaced[int(starts[lo]) : int(cends[hi - 1])]
             lines = (np.flatnonzero(good[lo:hi]) + lo).tolist()
-            return b" ".join(spaced[first[j] : last[j]] for j in lines)
+            return b" ".join(spaced[int(starts[j]) : int(cends[j])] for j in lines)
 
         def parse(lo: int, hi: int, step: int) -> None:
             for g_lo in range(lo, hi, step):
                 g_hi = min(g_lo + step, hi)
-                k0, k1 = before[g_lo], before[g_hi]
+                k0, k1 = int(good_before[g_lo]), int(good_before[g_hi])
                 if k0 == k1:
                     continue
                 part = _fromstring(text_of(g_lo, g_hi), (k1 - k0) * channels)
@@ -489,11 +487,12 @@ class TextDecoder:
                     parse(g_lo, g_hi, _SMALL_GROUP_LINES)
                 else:
                     for j in (np.flatnonzero(good[g_lo:g_hi]) + g_lo).tolist():
-                        row = _parse_line(data[first[j] : last[j]])
+                        row = _parse_line(data[int(starts[j]) : int(cends[j])])
+                        k = int(good_before[j])
                         if row is None:
-                            ok[before[j]] = False
+                            ok[k] = False
                         else:
-                            values[before[j]] = row
+                            values[k] = row
 
         parse(0, n_lines, _GROUP_LINES)
         ok &= np.isfinite(values).all(axis=1)

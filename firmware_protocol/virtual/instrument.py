@@ -56,7 +56,7 @@ class InstrumentSettings:
     default_width_s: float = 0.0008  # a medium (plastic) tip
     info_interval_s: float = 1.0
     status_interval_s: float = 0.25
-    device_buffer_bytes: int = 65_536  # what the device can hold while the host is not reading
+    device_buffer_bytes: int = 262_144  # what the device can hold while the host is not reading
     seed: int = 0
 
 

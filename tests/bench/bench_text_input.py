@@ -78,7 +78,7 @@ def run() -> list[tuple[str, float, str, float]]:
 
     return [
         ("text decode", FRAMES / best, "samples/s", GOAL),
-        (f"text decode, 1 bad line per {JUNK_EVERY}", FRAMES / best_junk, "samples/s", GOAL),
+        (f"text decode, 1 bad line per {JUNK_EVERY}", FRAMES / best_junk, "samples/s", math.nan),
         ("ceiling (np.fromstring one call)", FRAMES / ceiling, "samples/s", math.nan),
     ]
 
@@ -88,10 +88,8 @@ def main() -> None:
     ceiling = rows[-1]
     print(f"{CHANNELS} channels × {FRAMES:.0e} sample frames, {CHUNK // 1024} KiB chunks")
     for name, value, unit, goal in rows[:-1]:
-        print(
-            f"{name:<34} {value:7.1e} {unit}   goal >= {goal:.1e}   "
-            f"{ceiling[0]} {ceiling[1]:.1e}"
-        )
+        target = "(no goal)      " if math.isnan(goal) else f"goal >= {goal:.1e}"
+        print(f"{name:<34} {value:7.1e} {unit}   {target}   {ceiling[0]} {ceiling[1]:.1e}")
 
 
 if __name__ == "__main__":

@@ -1,7 +1,7 @@
 """Run every benchmark and print each figure beside its goal or ceiling.
 
-    python tests/bench/run.py            # full size
-    python tests/bench/run.py --quick    # small inputs, to check the benchmarks still run
+python tests/bench/run.py            # full size
+python tests/bench/run.py --quick    # small inputs, to check the benchmarks still run
 """
 
 from __future__ import annotations
@@ -12,7 +12,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+import bench_capture
 import bench_decode
+import bench_spectra
 import bench_text_input
 
 
@@ -23,7 +25,11 @@ def main() -> None:
     print("== device link: binary frames")
     bench_decode.show(bench_decode.run(4.0 if quick else 64.0))
     print("== device link: text lines")
-    bench_text_input.show(bench_text_input.run(50_000 if quick else 1_000_000))
+    bench_text_input.main()
+    print("== spectra: per-hit update")
+    bench_spectra.show(bench_spectra.run(20 if quick else 200))
+    print("== capture: daemon CPU, memory, per-hit latency")
+    bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
 
 
 if __name__ == "__main__":

@@ -307,7 +307,7 @@ PRETRIGGER = 256
 OVERSAMPLE = 32
 PULSE_S = 50e-6
 """A hard-tip tap: the half-sine's first spectral zero, 1.5/T = 30 kHz, lies past Nyquist,
-so the force spectrum has no zero in the band and falls by less than 10 dB up to 0.8 ×
+so the force spectrum has no zero in the band and is down by only 10.1 dB at 0.8 ×
 Nyquist (common practice: choose the tip so the force spectrum stays within 10-20 dB
 over the band of interest). A longer pulse puts force zeros in the band, where every
 estimate of H is noise-dominated and γ² passes through 0.95 on lines of large error."""
@@ -338,8 +338,8 @@ def sampled_through_anti_alias(
     The virtual structure gives the continuous signals; a front end passes force and
     responses through the same anti-alias filter before sampling (common practice). Without
     it the half-sine's spectrum above Nyquist folds back into force and response alike,
-    and H1 misses the accelerance by up to 15-40 % at antiresonances (measured while
-    writing this test). Here the signals are evaluated OVERSAMPLE times finer around the
+    and H1 of this panel then misses the accelerance by 15-45 % near antiresonances and
+    force zeros. Here the signals are evaluated OVERSAMPLE times finer around the
     pulse, filtered with `taps` and decimated. Away from the pulse (farther than the
     filter's half length) the response is a free decay of modes below 5 kHz, which the
     filter passes with gain 1 to within 1e-5, so the plain samples are kept there.

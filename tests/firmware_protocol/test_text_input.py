@@ -423,6 +423,30 @@ def test_mixed_separators_and_edges() -> None:
     assert gaps == [3]  # "1,,2": two values
 
 
+def test_parse_failures_in_a_long_chunk_cost_only_their_own_lines() -> None:
+    """Lines like "1.2.3" pass the character check and fail the one-call parse; only they are lost.
+
+    A 2000-line chunk with such lines, a comment and a blank line in it (so
+    the group and sub-group fallbacks both run). Reference: numpy.loadtxt of
+    the good lines alone, an independent parser; indexes by construction.
+    """
+    rng = np.random.default_rng(5)
+    good = format_lines(rng.uniform(-3, 3, (3, 2000)), 7).splitlines()
+    bad_at = {0, 17, 300, 301, 777, 1999}
+    lines: list[bytes] = []
+    for k, line in enumerate(good):
+        lines.append(b"1.2.3,1e,5" if k in bad_at else line)
+        if k == 900:
+            lines += [b"# halfway", b""]
+    stream = b"\n".join(lines) + b"\n"
+    dec = TextDecoder(channels=3, rate_hz=100.0)
+    rows, gaps, _ = samples_of(dec.feed(stream))
+    assert gaps == sorted(bad_at)
+    keep = [k for k in range(2000) if k not in bad_at]
+    expected = np.loadtxt(io.BytesIO(b"\n".join(good[k] for k in keep)), delimiter=",")
+    assert np.array_equal(np.array([rows[k] for k in keep]), expected)
+
+
 def test_consecutive_good_lines_form_one_block_per_feed() -> None:
     """1000 good lines in one call are one SampleBlock of shape (channels, 1000).
 

@@ -1,0 +1,191 @@
+"""Capture benchmarks: daemon CPU share and peak memory while streaming, per-hit latency.
+
+1. `taprigd run` in its own process reads 4 channels × 51.2 kHz int24 from the
+   virtual instrument (in this process) over a pseudo-terminal. Its CPU share
+   is read from /proc/<pid>/stat over a fixed window, with no hits and then
+   with one hit a second; its peak RSS from /proc/<pid>/status (VmHWM).
+   Goals: CPU at most 5 % of one core idle, 10 % with a hit a second; RSS at
+   most 100 MB.
+2. Per-hit latency, block 16384 × 4 channels, in process: from the moment the
+   bytes completing a record are taken off the link queue to the point set's
+   commit (averages = 1, so every hit commits), median beside a bare numpy
+   rfft of the same (4, 16384) array. The reader batches bytes for up to
+   READ_TIMEOUT_S before handing them over; half of that is added on average
+   (all of it at worst) for the figure against the goal: median at most 30 ms.
+
+Run: python tests/bench/bench_capture.py [--seconds 10]
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from taprig.daemon.config import load_config
+from taprig.daemon.link import READ_TIMEOUT_S
+from taprig.daemon.records import GridPoint
+from taprig.daemon.runner import start_rig
+from taprig.firmware_protocol.virtual import ModalModel, demo_panel
+from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
+
+Row = tuple[str, float, str, str]
+TICK = os.sysconf("SC_CLK_TCK")
+CHANNELS_TOML = """
+[[channels]]
+index = 0
+role = "force"
+label = "hammer"
+sensitivity = 2.25
+unit = "mV/N"
+""" + "".join(
+    f"""
+[[channels]]
+index = {i}
+role = "response"
+label = "acc{i}"
+sensitivity = 1.02
+unit = "mV/(m/s^2)"
+"""
+    for i in (1, 2, 3)
+)
+
+
+def four_channel_panel() -> ModalModel:
+    """The demo panel with a third accelerometer (on grid point D5): 4 channels in all."""
+    m = demo_panel()
+    return dataclasses.replace(m, sensors={**m.sensors, "acc3": "D5"})
+
+
+def cpu_seconds(pid: int) -> float:
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / TICK  # utime + stime
+
+
+def peak_rss_mb(pid: int) -> float:
+    for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+def daemon_cpu_and_memory(seconds: float) -> list[Row]:
+    model = four_channel_panel()
+    with tempfile.TemporaryDirectory() as tmp:
+        link = Path(tmp) / "ttyBENCH"
+        vi = open_virtual("pty", link=str(link), model=model)
+        cfg = Path(tmp) / "taprigd.toml"
+        cfg.write_text(
+            f'[device]\nurl = "{link}"\n[store]\ndata_dir = "{tmp}"\nmin_free_mb = 1\n'
+            + CHANNELS_TOML
+        )
+        grid = Path(tmp) / "grid.csv"
+        grid.write_text("label,x,y,z\n" + "".join(
+            f"{lab},{model.coords[model.index(lab)][0]},{model.coords[model.index(lab)][1]},0\n"
+            for lab in model.grid
+        ))  # fmt: skip
+        log = Path(tmp) / "taprigd.log"
+        with log.open("w") as log_file:
+            proc = subprocess.Popen(
+                [sys.executable, "-m", "taprig.daemon", "run", "-c", str(cfg), "--test", "bench",
+                 "--grid", str(grid)],
+                stdout=subprocess.DEVNULL, stderr=log_file,
+            )  # fmt: skip
+        try:
+            deadline = time.monotonic() + 30
+            while "armed': True" not in log.read_text():  # the daemon says it has armed
+                if proc.poll() is not None or time.monotonic() > deadline:
+                    raise RuntimeError(f"taprigd did not arm:\n{log.read_text()}")
+                time.sleep(0.05)
+            time.sleep(1.0)  # let start-up work settle before measuring
+            c0, t0 = cpu_seconds(proc.pid), time.monotonic()
+            time.sleep(seconds)
+            idle = (cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
+            c0, t0 = cpu_seconds(proc.pid), time.monotonic()
+            k = 0
+            while time.monotonic() - t0 < seconds:
+                vi.tap(model.grid[k % len(model.grid)])
+                k += 1
+                time.sleep(1.0)
+            busy = (cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
+            rss = peak_rss_mb(proc.pid)
+        finally:
+            proc.terminate()
+            proc.wait(timeout=10)
+            vi.close()
+    return [
+        ("daemon CPU, streaming, no hits", 100 * idle, "% core", "goal <= 5 %"),
+        ("daemon CPU, streaming, 1 hit/s", 100 * busy, "% core", "goal <= 10 %"),
+        ("daemon peak RSS while capturing", rss, "MB", "goal <= 100 MB"),
+    ]
+
+
+def hit_latency(hits: int) -> list[Row]:
+    model = four_channel_panel()
+    with tempfile.TemporaryDirectory() as tmp:
+        cfg_file = Path(tmp) / "c.toml"
+        cfg_file.write_text(CHANNELS_TOML)
+        cfg = load_config(
+            cfg_file,
+            [f"store.data_dir={tmp}", "capture.block=16384", "capture.averages=1",
+             "store.min_free_mb=1", "device.url=virtual"],
+        )  # fmt: skip
+        r = start_rig(cfg, InstrumentSettings(), model=model)
+        try:
+            deadline = time.monotonic() + 10
+            while r.rig.info is None and time.monotonic() < deadline:
+                time.sleep(0.01)
+            grid = [GridPoint(p, *map(float, model.coords[model.index(p)])) for p in model.grid]
+            r.rig.create_test("latency", grid)
+            r.rig.select_test("latency")
+            r.rig.arm()
+            assert r.instrument is not None
+            for k in range(hits):
+                before = len(r.rig.stats.commit_latency_s)
+                r.instrument.tap(r.rig.snapshot()["point"])
+                deadline = time.monotonic() + 5
+                while len(r.rig.stats.commit_latency_s) == before:
+                    assert time.monotonic() < deadline, f"hit {k} never committed"
+                    time.sleep(0.005)
+                time.sleep(0.05)
+            lat = np.array(r.rig.stats.commit_latency_s) * 1e3
+        finally:
+            r.close()
+    arr = np.random.default_rng(0).normal(size=(4, 16384))
+    t0 = time.perf_counter()
+    for _ in range(50):
+        np.fft.rfft(arr, axis=-1)
+    rfft_ms = (time.perf_counter() - t0) / 50 * 1e3
+    batch_ms = READ_TIMEOUT_S * 1e3  # the reader hands bytes over at least this often
+    return [
+        ("per-hit latency, queue to commit, median", float(np.median(lat)), "ms",
+         f"p90 {np.percentile(lat, 90):.1f} ms over {lat.size} hits"),
+        ("  + link read batching (0..{:.0f} ms), median".format(batch_ms),
+         float(np.median(lat)) + batch_ms / 2, "ms",
+         f"goal <= 30 ms; worst case {float(np.median(lat)) + batch_ms:.1f} ms"),
+        ("bare numpy rfft of (4, 16384)", rfft_ms, "ms", "the FFT alone"),
+    ]  # fmt: skip
+
+
+def run(seconds: float = 10.0, hits: int = 20) -> list[Row]:
+    return daemon_cpu_and_memory(seconds) + hit_latency(hits)
+
+
+def show(rows: list[Row]) -> None:
+    for name, value, unit, note in rows:
+        print(f"{name:<44} {value:>10.1f} {unit:<6} {note}")
+
+
+if __name__ == "__main__":
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--seconds", type=float, default=10.0)
+    parser.add_argument("--hits", type=int, default=20)
+    args = parser.parse_args()
+    show(run(args.seconds, args.hits))
