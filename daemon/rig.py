@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
 import numpy as np
+
 from taprig.firmware_protocol import (
     Command,
     Decoder,

@@ -194,8 +194,14 @@ def plate_modes(
         freqs_hz: shape (n_modes,), ascending; ties are ordered by (m, n) so
             the order is deterministic.
     """
-    for name, value in (("a", a), ("b", b), ("h", h), ("youngs_pa", youngs_pa),
-                        ("density", density), ("f_max_hz", f_max_hz)):
+    for name, value in (
+        ("a", a),
+        ("b", b),
+        ("h", h),
+        ("youngs_pa", youngs_pa),
+        ("density", density),
+        ("f_max_hz", f_max_hz),
+    ):
         if not value > 0.0:
             raise ValueError(f"{name} must be positive")
     if not -1.0 < poisson < 0.5:
@@ -258,9 +264,7 @@ def _damping_for(spec: DampingSpec, freqs_hz: FloatArray) -> FloatArray:
     if values.ndim == 0:
         values = np.full(freqs_hz.shape, float(values))
     if values.shape != freqs_hz.shape:
-        raise ValueError(
-            f"damping gives {values.shape} values for {freqs_hz.size} modes"
-        )
+        raise ValueError(f"damping gives {values.shape} values for {freqs_hz.size} modes")
     return values
 
 
@@ -423,9 +427,7 @@ def truth_dict(model: ModalModel) -> dict[str, Any]:
             {
                 "freq_hz": float(model.freqs_hz[r]),
                 "damping_ratio": float(model.damping_ratio[r]),
-                "shape": {
-                    label: float(model.shapes[i, r]) for i, label in enumerate(model.labels)
-                },
+                "shape": {label: float(model.shapes[i, r]) for i, label in enumerate(model.labels)},
             }
             for r in range(model.n_modes)
         ],

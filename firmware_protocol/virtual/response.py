@@ -116,9 +116,7 @@ def half_sine_spectrum(
     return spectrum
 
 
-def _pair_factors(
-    model: ModalModel, drive_point: str, sensor_points: Sequence[str]
-) -> FloatArray:
+def _pair_factors(model: ModalModel, drive_point: str, sensor_points: Sequence[str]) -> FloatArray:
     """phi_r(k) phi_r(drive), shape (n_sensors, n_modes), kg^-1."""
     phi_drive = model.shape_at(drive_point)
     factors: FloatArray = model.shapes_at(sensor_points) * phi_drive

@@ -167,7 +167,7 @@ def hit_latency(hits: int) -> list[Row]:
     return [
         ("per-hit latency, queue to commit, median", float(np.median(lat)), "ms",
          f"p90 {np.percentile(lat, 90):.1f} ms over {lat.size} hits"),
-        ("  + link read batching (0..{:.0f} ms), median".format(batch_ms),
+        (f"  + link read batching (0..{batch_ms:.0f} ms), median",
          float(np.median(lat)) + batch_ms / 2, "ms",
          f"goal <= 30 ms; worst case {float(np.median(lat)) + batch_ms:.1f} ms"),
         ("bare numpy rfft of (4, 16384)", rfft_ms, "ms", "the FFT alone"),

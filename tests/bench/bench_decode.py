@@ -16,6 +16,7 @@ import argparse
 import time
 
 import numpy as np
+
 from taprig.firmware_protocol import (
     BinaryDecoder,
     ChannelInfo,

@@ -17,6 +17,7 @@ import time
 from collections.abc import Callable
 
 import numpy as np
+
 from taprig.daemon.spectra import (
     SpectralAverager,
     WindowSettings,

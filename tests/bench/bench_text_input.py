@@ -18,6 +18,7 @@ import math
 import time
 
 import numpy as np
+
 from taprig.firmware_protocol.text import TextDecoder, format_lines, rate_comment
 
 CHANNELS = 4

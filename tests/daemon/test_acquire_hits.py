@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 import pytest
+
 from taprig.daemon.acquire import Acquirer, RingBuffer, TriggerSettings
 from taprig.daemon.hits import (
     DOUBLE_HIT,

@@ -11,6 +11,7 @@ import typing
 from pathlib import Path
 
 import pytest
+
 from taprig.daemon import config as cfgmod
 from taprig.daemon.config import (
     CHANNEL_SETTINGS,

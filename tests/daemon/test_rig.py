@@ -10,6 +10,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+
 from taprig.daemon.config import load_config
 from taprig.daemon.errors import SessionError
 from taprig.daemon.records import GridPoint, RovingMode

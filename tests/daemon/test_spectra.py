@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 from numpy.typing import NDArray
 from scipy import signal
+
 from taprig.daemon.spectra import (
     NO_EXP_TAU_S,
     HitSpectra,

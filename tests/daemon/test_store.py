@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 import pytest
+
 from taprig.daemon import store as store_mod
 from taprig.daemon.errors import DiskFullError, StoreError
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit

@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+
 from taprig.firmware_protocol import (
     BinaryDecoder,
     ChannelInfo,

@@ -33,6 +33,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+
 from taprig.firmware_protocol import (
     DeviceInfoReceived,
     Event,

@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import serial
+
 from taprig.firmware_protocol import (
     AckReceived,
     AckResult,

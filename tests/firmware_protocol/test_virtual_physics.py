@@ -16,6 +16,7 @@ import pytest
 from numpy.typing import NDArray
 from scipy.integrate import cubature, solve_ivp
 from scipy.optimize import brentq
+
 from taprig.firmware_protocol.virtual import (
     DEMO_DRIVING_POINT,
     ModalModel,
@@ -37,8 +38,9 @@ FloatArray = NDArray[np.float64]
 STEEL = {"a": 0.5, "b": 0.3, "h": 0.002, "youngs_pa": 200e9, "poisson": 0.3, "density": 7850.0}
 
 
-def _leissa_freqs(a: float, b: float, h: float, e: float, nu: float, rho: float,
-                  f_max: float) -> tuple[FloatArray, list[tuple[int, int]]]:
+def _leissa_freqs(
+    a: float, b: float, h: float, e: float, nu: float, rho: float, f_max: float
+) -> tuple[FloatArray, list[tuple[int, int]]]:
     """omega_mn = pi^2 (m^2/a^2 + n^2/b^2) sqrt(D/(rho h)), written out independently."""
     d = e * h**3 / (12.0 * (1.0 - nu**2))
     found = []
@@ -53,9 +55,7 @@ def _leissa_freqs(a: float, b: float, h: float, e: float, nu: float, rho: float,
 
 def _three_mode_model() -> ModalModel:
     """A small hand-made model: 3 modes, 4 points, 2 sensors."""
-    shapes = np.array(
-        [[0.8, -0.5, 0.3], [0.4, 0.9, -0.7], [-0.6, 0.2, 1.1], [0.5, 0.5, 0.5]]
-    )
+    shapes = np.array([[0.8, -0.5, 0.3], [0.4, 0.9, -0.7], [-0.6, 0.2, 1.1], [0.5, 0.5, 0.5]])
     return ModalModel(
         labels=("p1", "p2", "p3", "p4"),
         coords=np.zeros((4, 3)),
@@ -82,8 +82,15 @@ def test_plate_frequencies_match_leissa() -> None:
     model = simply_supported_plate(
         **STEEL, damping_ratio=0.01, f_max_hz=f_max, points={"c": (0.2, 0.1)}
     )
-    expected, _ = _leissa_freqs(STEEL["a"], STEEL["b"], STEEL["h"], STEEL["youngs_pa"],
-                                STEEL["poisson"], STEEL["density"], f_max)
+    expected, _ = _leissa_freqs(
+        STEEL["a"],
+        STEEL["b"],
+        STEEL["h"],
+        STEEL["youngs_pa"],
+        STEEL["poisson"],
+        STEEL["density"],
+        f_max,
+    )
     assert model.n_modes == expected.size
     np.testing.assert_allclose(model.freqs_hz, expected, rtol=1e-12)
 
@@ -120,8 +127,10 @@ def test_mode_shapes_are_mass_normalised() -> None:
     _, order_list = _leissa_freqs(a, b, h, STEEL["youngs_pa"], STEEL["poisson"], rho, 1500.0)
     for label, (x, y) in points.items():
         ref = [
-            2.0 / math.sqrt(rho * h * a * b)
-            * math.sin(m * math.pi * x / a) * math.sin(n * math.pi * y / b)
+            2.0
+            / math.sqrt(rho * h * a * b)
+            * math.sin(m * math.pi * x / a)
+            * math.sin(n * math.pi * y / b)
             for m, n in order_list
         ]
         np.testing.assert_allclose(model.shape_at(label), ref, rtol=1e-12, atol=1e-14)
@@ -147,6 +156,7 @@ def test_half_sine_spectrum_first_zero() -> None:
     assert complex(half_sine_spectrum(0.5 / width, width, peak)) == pytest.approx(
         -0.5j * peak * width, rel=1e-12
     )
+
     # The spectrum is exp(-i w T/2) times a real amplitude; its root is the zero.
     def amplitude(f: float) -> float:
         return float((half_sine_spectrum(f, width, peak) * np.exp(1j * np.pi * f * width)).real)
@@ -182,9 +192,15 @@ def test_single_mode_matches_damped_free_vibration() -> None:
     Error below 1e-9 of the peak acceleration.
     """
     f_n, zeta, phi = 180.0, 0.03, 0.7
-    model = ModalModel(labels=("p",), coords=np.zeros((1, 3)), freqs_hz=np.array([f_n]),
-                       damping_ratio=np.array([zeta]), shapes=np.array([[phi]]),
-                       sensors={"acc": "p"}, grid=("p",))
+    model = ModalModel(
+        labels=("p",),
+        coords=np.zeros((1, 3)),
+        freqs_hz=np.array([f_n]),
+        damping_ratio=np.array([zeta]),
+        shapes=np.array([[phi]]),
+        sensors={"acc": "p"},
+        grid=("p",),
+    )
     width, peak, t0 = 1.2e-3, 50.0, 0.01234567
     w = 2.0 * math.pi * f_n
     w_d = w * math.sqrt(1.0 - zeta**2)
@@ -196,23 +212,26 @@ def test_single_mode_matches_damped_free_vibration() -> None:
         force = peak * math.sin(math.pi * tau / width)
         return [y[1], phi * force - 2.0 * zeta * w * y[1] - w**2 * y[0]]
 
-    sol = solve_ivp(rhs, (0.0, width), [0.0, 0.0], method="DOP853", rtol=1e-10, atol=1e-16,
-                    dense_output=True)
+    sol = solve_ivp(
+        rhs, (0.0, width), [0.0, 0.0], method="DOP853", rtol=1e-10, atol=1e-16, dense_output=True
+    )
     assert sol.success
     x_t, v_t = sol.y[:, -1]
     tau = t - t0
     ref = np.zeros_like(t)
     inside = (tau >= 0.0) & (tau <= width)
     x_in, v_in = sol.sol(tau[inside])
-    ref[inside] = phi * (phi * peak * np.sin(np.pi * tau[inside] / width)
-                         - 2.0 * zeta * w * v_in - w**2 * x_in)
+    ref[inside] = phi * (
+        phi * peak * np.sin(np.pi * tau[inside] / width) - 2.0 * zeta * w * v_in - w**2 * x_in
+    )
     s = tau[tau > width] - width
     sig = zeta * w
     coef_b = (v_t + sig * x_t) / w_d
     env = np.exp(-sig * s)
     x = env * (x_t * np.cos(w_d * s) + coef_b * np.sin(w_d * s))
-    v = env * ((w_d * coef_b - sig * x_t) * np.cos(w_d * s) - (sig * coef_b + w_d * x_t)
-               * np.sin(w_d * s))
+    v = env * (
+        (w_d * coef_b - sig * x_t) * np.cos(w_d * s) - (sig * coef_b + w_d * x_t) * np.sin(w_d * s)
+    )
     ref[tau > width] = phi * (-2.0 * sig * v - w**2 * x)
     assert inside.sum() > 10
     np.testing.assert_allclose(acc, ref, rtol=0, atol=1e-9 * np.abs(ref).max())
@@ -255,8 +274,15 @@ def test_three_mode_response_matches_ode_integration() -> None:
         (width, tau[-1] + 1.0 / fs, tau > width),
     ):
         # The segment end is appended to t_eval so the next segment starts from it.
-        sol = solve_ivp(rhs, (lo, hi), state, method="DOP853", rtol=1e-11, atol=1e-18,
-                        t_eval=np.append(tau[sel], hi))
+        sol = solve_ivp(
+            rhs,
+            (lo, hi),
+            state,
+            method="DOP853",
+            rtol=1e-11,
+            atol=1e-18,
+            t_eval=np.append(tau[sel], hi),
+        )
         assert sol.success
         q[:, sel], qd[:, sel] = sol.y[:3, :-1], sol.y[3:, :-1]
         state = sol.y[:, -1]
@@ -266,8 +292,10 @@ def test_three_mode_response_matches_ode_integration() -> None:
     for points in (None, ["p3", "p1", "p4"]):
         labels = list(model.sensors.values()) if points is None else points
         ref = model.shapes_at(labels) @ q_dd
-        chunks = [modal_acceleration(model, drive, t[i:i + 256], t0, width, peak, points)
-                  for i in range(0, t.size, 256)]
+        chunks = [
+            modal_acceleration(model, drive, t[i : i + 256], t0, width, peak, points)
+            for i in range(0, t.size, 256)
+        ]
         got = np.concatenate(chunks, axis=1)
         assert got.shape == (len(labels), t.size)
         np.testing.assert_allclose(got, ref, rtol=0, atol=1e-10 * np.abs(ref).max())
@@ -309,7 +337,7 @@ def test_accelerance_matches_fft_of_time_response(sigma: float) -> None:
     c = model.shape_at(resp) * model.shape_at(drive)
     wr, zr = model.omega, model.damping_ratio
     direct = sum(
-        c[r] * (-om**2) / (wr[r] ** 2 - om**2 + 2j * zr[r] * wr[r] * om) for r in range(3)
+        c[r] * (-(om**2)) / (wr[r] ** 2 - om**2 + 2j * zr[r] * wr[r] * om) for r in range(3)
     )
     np.testing.assert_allclose(analytic, direct, rtol=1e-12)
 
