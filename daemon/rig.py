@@ -349,7 +349,7 @@ class Rig:
         if free_mb < self.config.store.min_free_mb:
             raise SessionError(
                 f"only {free_mb:.0f} MB free in {self.store.path.parent}; "
-                f"the rig needs {self.config.store.min_free_mb:g} MB to arm"
+                f"the rig needs {self.config.store.min_free_mb} MB to arm"
             )
         self.armed = True
         self._emit("cursor", self._snapshot())

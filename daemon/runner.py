@@ -56,7 +56,11 @@ def start_rig(
         settings = instrument_settings or InstrumentSettings(
             output="text" if url == "virtual:text" else "binary"
         )
-        instrument = open_virtual(transport, settings=settings, model=model)
+        # Behind a stable name in the data folder, as udev gives a USB device, so the
+        # link finds it again after an unplug.
+        link = str(config.store.data_dir / "virtual-tty") if transport == "pty" else None
+        config.store.data_dir.mkdir(parents=True, exist_ok=True)
+        instrument = open_virtual(transport, link=link, settings=settings, model=model)
         url = instrument.url
         log.info("virtual instrument on %s", url)
     try:
