@@ -9,6 +9,8 @@ from __future__ import annotations
 import logging
 import signal
 import threading
+import time
+from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated
@@ -17,6 +19,7 @@ import typer
 
 if TYPE_CHECKING:
     from .rig import Rig
+    from .runner import RunningRig
 
 app = typer.Typer(
     help="taprig capture daemon: reads a hammer-and-accelerometer device over a serial link.",
@@ -161,42 +164,59 @@ def run(
     ] = None,
     test: Annotated[str | None, typer.Option(help="test to select (created with --grid)")] = None,
     grid: Annotated[
-        Path | None, typer.Option(help="CSV grid (label,x,y,z[,direction], metres): new test")
+        Path | None,
+        typer.Option(
+            help="CSV grid (label,x,y,z[,direction], metres) for a new test; "
+            "on the virtual device a new test takes the virtual structure's grid"
+        ),
     ] = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
     reference: Annotated[
         str | None, typer.Option(help="fixed sensor (hammer mode) or hammer point (sensor mode)")
     ] = None,
+    duration: Annotated[float, typer.Option(help="stop after this many seconds (0: run on)")] = 0.0,
     virtual_taps: Annotated[
         float, typer.Option(help="virtual device only: a simulated operator taps every N s")
     ] = 0.0,
+    virtual_double_hits: Annotated[
+        float, typer.Option(min=0.0, max=1.0, help="virtual device only: share of double hits")
+    ] = 0.0,
+    truth: Annotated[
+        Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
+    ] = None,
     verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
 ) -> None:
     """Capture: open the device, select a test, arm, and store every completed point set."""
     from .errors import TaprigError
 
     _setup_logging(verbose)
+    options = RunOptions(test, grid, roving, reference, duration, virtual_taps,
+                         virtual_double_hits, truth)  # fmt: skip
     try:
-        _run(config, set_ or [], test, grid, roving, reference, virtual_taps)
+        _run(config, set_ or [], options)
     except TaprigError as exc:
         typer.echo(f"taprigd: {exc}", err=True)
         raise typer.Exit(code=exc.exit_code) from None
 
 
-def _run(
-    config_path: Path | None,
-    overrides: list[str],
-    test: str | None,
-    grid: Path | None,
-    roving: Roving,
-    reference: str | None,
-    virtual_taps: float,
-) -> None:
+@dataclass(frozen=True)
+class RunOptions:
+    test: str | None
+    grid: Path | None
+    roving: Roving
+    reference: str | None
+    duration: float
+    virtual_taps: float
+    virtual_double_hits: float
+    truth: Path | None
+
+
+def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> None:
+    from taprig.firmware_protocol.virtual import write_truth
+
     from .config import load_config
-    from .records import RovingMode
     from .rig import RigEvent
     from .runner import start_rig
-    from .store import import_grid_csv
 
     cfg = load_config(config_path, overrides)
     running = start_rig(cfg)
@@ -210,21 +230,61 @@ def _run(
     try:
         rig = running.rig
         rig.subscribe(show)
-        if test is not None:
-            if grid is not None:
-                points = import_grid_csv(grid.read_text(encoding="utf-8"))
-                rig.create_test(test, points, RovingMode(roving.value), reference)
-            _wait_for_device(rig, stop)
-            rig.select_test(test)
-            rig.arm()
-        while not stop.wait(virtual_taps if virtual_taps > 0 else 1.0):
-            vi = running.instrument
-            if vi is not None and virtual_taps > 0 and rig.session is not None:
-                vi.tap(rig.snapshot()["point"])
+        vi = running.instrument
+        if vi is not None:
+            vi.faults.double_hit_probability = opt.virtual_double_hits
+            if opt.truth is not None:
+                write_truth(vi.model, opt.truth)
+        if opt.test is not None:
+            _open_test(running, opt, stop)
+        started = time.monotonic()
+        period = opt.virtual_taps if opt.virtual_taps > 0 else 0.5
+        while not stop.wait(period):
+            if opt.duration and time.monotonic() - started >= opt.duration:
+                break
+            if vi is not None and opt.virtual_taps > 0 and rig.session is not None:
+                _simulated_tap(running)
     except KeyboardInterrupt:
         pass
     finally:
         running.close()
+
+
+def _open_test(running: RunningRig, opt: RunOptions, stop: threading.Event) -> None:
+    from .records import GridPoint, RovingMode
+    from .store import import_grid_csv
+
+    rig, vi, name = running.rig, running.instrument, opt.test
+    assert name is not None
+    known = {t.name for t in running.store.list_tests()}
+    if opt.grid is not None:
+        points = import_grid_csv(opt.grid.read_text(encoding="utf-8"))
+    elif vi is not None and name not in known:
+        m = vi.model
+        xyz = [tuple(float(v) for v in m.coords[m.index(p)]) for p in m.grid]
+        points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
+    else:
+        points = []
+    if points:
+        sensor_points = dict(vi.model.sensors) if vi is not None else None
+        rig.create_test(name, points, RovingMode(opt.roving.value), opt.reference,
+                        sensor_points=sensor_points)  # fmt: skip
+    _wait_for_device(rig, stop)
+    rig.select_test(name)
+    rig.arm()
+
+
+def _simulated_tap(running: RunningRig) -> None:
+    """The virtual operator: in roving-sensor mode move the sensor, then tap."""
+    from .records import RovingMode
+
+    vi, session = running.instrument, running.rig.session
+    assert vi is not None and session is not None
+    point = running.rig.snapshot()["point"]
+    if session.plan.roving_mode is RovingMode.SENSOR:
+        vi.move_sensor(next(iter(vi.model.sensors)), point)
+        point = session.plan.reference
+    vi.tap(point)
 
 
 def _wait_for_device(rig: Rig, stop: threading.Event, timeout: float = 30.0) -> None:

@@ -16,7 +16,7 @@ from taprig.daemon.errors import SessionError
 from taprig.daemon.records import GridPoint, RovingMode
 from taprig.daemon.rig import RigEvent
 from taprig.daemon.runner import RunningRig, start_rig
-from taprig.firmware_protocol.virtual import demo_panel
+from taprig.firmware_protocol.virtual import accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
 
 # The demo panel with 4 % damping: it rings down in a fraction of a second, so the
@@ -167,5 +167,47 @@ def test_operator_accept_policy(tmp_path: Path) -> None:
         full = r.store.get_point_set(ps.id)
         assert [h.accepted for h in full.hits] == [False, True, True]
         assert full.hits[0].findings[-1].code == "operator"
+    finally:
+        r.close()
+
+
+def test_roving_sensor_mode(tmp_path: Path) -> None:
+    """Hammer fixed at the reference B3, one accelerometer moved from point to point.
+
+    Reference: by Maxwell–Betti reciprocity the FRF from B3 to P equals that from P to B3
+    (Ewins, Modal Testing, 2000, §2), so at the first mode |H1| matches the analytic
+    accelerance of the model from B3 to P.
+    """
+    cfg_file = tmp_path / "rove.toml"
+    cfg_file.write_text(
+        '[[channels]]\nindex = 0\nrole = "force"\nlabel = "hammer"\nsensitivity = 2.25\n'
+        'unit = "mV/N"\n[[channels]]\nindex = 1\nrole = "response"\nlabel = "rover"\n'
+        'sensitivity = 1.02\nunit = "mV/(m/s^2)"\n'
+    )
+    cfg = load_config(cfg_file, [f"store.data_dir={tmp_path}", "capture.block=8192",
+                                 "capture.averages=2", "store.min_free_mb=1"])  # fmt: skip
+    r = start_rig(cfg, model=DAMPED)
+    try:
+        vi = r.instrument
+        assert vi is not None
+        ev = Events(r)
+        wait_info(r)
+        r.rig.create_test("rove", grid_of(vi, ["A1", "B3", "C4"]), RovingMode.SENSOR, "B3")
+        r.rig.select_test("rove")
+        r.rig.arm()
+        for label in ["A1", "B3", "C4"]:
+            assert r.rig.snapshot()["point"] == label
+            vi.move_sensor("acc1", label)  # the operator moves the accelerometer
+            for _ in range(2):
+                assert tap_and_wait(r, ev, "B3").data["counted"]
+            assert ev.next("completed").data["point"] == label
+        for s in r.store.list_point_sets(test="rove"):
+            ps = r.store.get_point_set(s.id)
+            assert ps.drive_point == "B3" and ps.response_points == (s.point,)
+            assert ps.response_labels == ("rover",)
+            tau = ps.meta["exp_tau_s"]
+            f1 = int(np.argmax(np.abs(ps.h1[0, : int(150 / ps.freq_hz[1])])))
+            ref = accelerance(DAMPED, "B3", s.point, ps.freq_hz[f1 : f1 + 1], 1.0 / tau)
+            assert abs(ps.h1[0, f1]) == pytest.approx(abs(ref[0]), rel=0.02)
     finally:
         r.close()
