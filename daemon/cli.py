@@ -6,6 +6,7 @@ a part of the daemon; the parts never print.
 
 from __future__ import annotations
 
+import json
 import logging
 import signal
 import threading
@@ -184,6 +185,9 @@ def run(
     truth: Annotated[
         Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
     ] = None,
+    json_events: Annotated[
+        bool, typer.Option("--json-events", help="print every rig event as a JSON line")
+    ] = False,
     verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
 ) -> None:
     """Capture: open the device, select a test, arm, and store every completed point set."""
@@ -191,7 +195,7 @@ def run(
 
     _setup_logging(verbose)
     options = RunOptions(test, grid, roving, reference, duration, virtual_taps,
-                         virtual_double_hits, truth)  # fmt: skip
+                         virtual_double_hits, truth, json_events)  # fmt: skip
     try:
         _run(config, set_ or [], options)
     except TaprigError as exc:
@@ -209,6 +213,7 @@ class RunOptions:
     virtual_taps: float
     virtual_double_hits: float
     truth: Path | None
+    json_events: bool = False
 
 
 def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> None:
@@ -225,7 +230,10 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
     signal.signal(signal.SIGTERM, lambda *_: stop.set())
 
     def show(event: RigEvent) -> None:
-        log.info("%s %s", event.kind, event.data)
+        if opt.json_events:
+            print(json.dumps({"kind": event.kind, **event.data}, default=str), flush=True)
+        else:
+            log.info("%s %s", event.kind, event.data)
 
     try:
         rig = running.rig

@@ -45,7 +45,7 @@ from .hits import CheckSettings, check_hit
 from .link import LinkChange, LinkState, SerialLink
 from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
 from .session import HitOutcome, Plan, Session
-from .spectra import WindowSettings
+from .spectra import WindowSettings, single_average_warning
 from .store import Store
 
 log = logging.getLogger(__name__)
@@ -323,6 +323,10 @@ class Rig:
             WindowSettings(w.force_margin_s, w.force_taper_s, w.exponential_end),
             auto_accept=cfg.capture.accept == "auto", meta=self._meta(), done=done,
         )  # fmt: skip
+        warning = single_average_warning(plan.averages)
+        if warning:
+            log.warning("test %s: %s", name, warning)
+            self._emit("message", {"text": warning})
         self._emit("cursor", {"test": name, "point": self.session.cursor})
 
     def _meta(self) -> dict[str, Any]:
