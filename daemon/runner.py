@@ -53,8 +53,11 @@ def start_rig(
     url = config.device.url
     if config.device.is_virtual:
         transport = "tcp" if url == "virtual:tcp" else "pty"
-        settings = instrument_settings or InstrumentSettings(
-            output="text" if url == "virtual:text" else "binary"
+        # A board printing text lines manages a few kHz, not the binary link's 51.2 kHz.
+        settings = instrument_settings or (
+            InstrumentSettings(output="text", rate_hz=5_000.0)
+            if url == "virtual:text"
+            else InstrumentSettings()
         )
         # Behind a stable name in the data folder, as udev gives a USB device, so the
         # link finds it again after an unplug.

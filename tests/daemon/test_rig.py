@@ -211,3 +211,26 @@ def test_roving_sensor_mode(tmp_path: Path) -> None:
             assert abs(ps.h1[0, f1]) == pytest.approx(abs(ref[0]), rel=0.02)
     finally:
         r.close()
+
+
+def test_text_device_captures(tmp_path: Path) -> None:
+    """A board printing lines of volts: the same pipeline, rate from its "# rate=" comment."""
+    cfg = load_config(None, [f"store.data_dir={tmp_path}", "device.url=virtual:text",
+                             "device.format=text", "capture.block=2048", "capture.averages=2",
+                             "store.min_free_mb=1", "capture.pretrigger=64"])  # fmt: skip
+    r = start_rig(cfg, model=DAMPED)
+    try:
+        vi = r.instrument
+        assert vi is not None
+        ev = Events(r)
+        wait_info(r)
+        assert r.rig.info is not None and r.rig.info.rate_hz == 5000.0
+        r.rig.create_test("txt", grid_of(vi, ["E6"]))
+        r.rig.select_test("txt")
+        r.rig.arm()
+        for _ in range(2):
+            hit = tap_and_wait(r, ev, "E6", width_s=0.002)
+            assert hit.data["counted"], hit.data["rejections"]
+        assert ev.next("completed").data["point"] == "E6"
+    finally:
+        r.close()
