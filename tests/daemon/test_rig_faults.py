@@ -142,3 +142,13 @@ def test_config_error_stops_start_up_with_the_key(tmp_path: Path) -> None:
     assert out.returncode == 2
     assert "capture.block = 1000" in out.stderr and "power of two" in out.stderr
     assert not (tmp_path / "taprig.sqlite3").exists()
+
+
+def test_overload_from_the_instrument_is_rejected(running: RunningRig) -> None:
+    """A tap far too hard for the input range clips at full scale: rejected as overload."""
+    r = running
+    ev = Events(r)
+    hit = tap_and_wait(r, ev, "A1", overload=True)
+    assert not hit.data["accepted"]
+    assert "overload" in [code for code, _ in hit.data["rejections"]]
+    assert tap_and_wait(r, ev, "A1").data["counted"]  # the next clean tap counts
