@@ -1,0 +1,1 @@
+"""Tests of taprig.schema, the daemon↔client contract."""
