@@ -307,6 +307,51 @@ def _wait_for_device(rig: Rig, stop: threading.Event, timeout: float = 30.0) -> 
             raise SessionError(f"the device at {rig.url} did not identify itself in {timeout:g} s")
 
 
+@app.command()
+def pair(
+    config: Annotated[
+        Path | None, typer.Option("--config", "-c", help="TOML configuration")
+    ] = None,
+    set_: Annotated[
+        list[str] | None, typer.Option("--set", help="override a setting: section.key=value")
+    ] = None,
+    host: Annotated[
+        str | None,
+        typer.Option(help="address workstations reach the rig at (default: its LAN address)"),
+    ] = None,
+    rotate: Annotated[
+        bool, typer.Option("--rotate", help="make a new token; paired workstations must pair again")
+    ] = False,
+) -> None:
+    """Print the pairing address and a QR code for a phone camera."""
+    from .auth import pair_command_output
+    from .config import load_config
+    from .errors import TaprigError
+
+    try:
+        cfg = load_config(config, set_ or [])
+        text = pair_command_output(
+            cfg.store.data_dir, host or _lan_address(), cfg.service.port or 8470, rotate
+        )
+    except (TaprigError, ValueError) as exc:
+        typer.echo(f"taprigd: {exc}", err=True)
+        raise typer.Exit(code=getattr(exc, "exit_code", 2)) from None
+    typer.echo(text)
+
+
+def _lan_address() -> str:
+    """The first IPv4 address of a non-loopback interface, else 127.0.0.1."""
+    import ipaddress
+
+    import ifaddr
+
+    for adapter in ifaddr.get_adapters():
+        for ip in adapter.ips:
+            if isinstance(ip.ip, str) and not ipaddress.ip_address(ip.ip).is_loopback:
+                return ip.ip
+    return "127.0.0.1"
+
+
 def main() -> None:
     app()
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import difflib
 import enum
+import ipaddress
 import math
 import os
 import re
@@ -391,7 +392,37 @@ SETTINGS: tuple[Setting, ...] = (
         "refuse to arm while the data folder's disk has less free space than this",
         allowed="an integer ≥ 0", check=lambda n: n >= 0,
     ),
+    Setting(
+        "service", "bind", Kind.STR, "0.0.0.0", "",
+        "address the HTTP service listens on (0.0.0.0: every interface; 127.0.0.1: this "
+        "board only)",
+        allowed="an IPv4 or IPv6 address", check=lambda s: _is_ip(s),
+    ),
+    Setting(
+        "service", "port", Kind.INT, 8470, "",
+        "TCP port of the HTTP service (0: any free port)",
+        allowed="an integer from 0 to 65535", check=lambda n: 0 <= n <= 65535,
+    ),
+    Setting(
+        "service", "max_request_kb", Kind.INT, 1024, "KiB",
+        "largest request body the service accepts",
+        allowed="an integer from 1 to 65536", check=lambda n: 1 <= n <= 65536,
+    ),
+    Setting(
+        "service", "advertise", Kind.BOOL, True, "",
+        "announce the rig on the local network with mDNS",
+        allowed="true or false", check=lambda b: True,
+    ),
 )  # fmt: skip
+
+
+def _is_ip(text: str) -> bool:
+    try:
+        ipaddress.ip_address(text)
+    except ValueError:
+        return False
+    return True
+
 
 _UNITS: dict[str, str] = {
     # as written -> the spelling kept in ChannelSpec.sensitivity_unit
@@ -538,12 +569,23 @@ class StoreConfig:
     min_free_mb: int
 
 
+@dataclass(frozen=True, slots=True)
+class ServiceConfig:
+    """[service]: where the HTTP service listens, its request size limit (KiB), mDNS on/off."""
+
+    bind: str
+    port: int
+    max_request_kb: int
+    advertise: bool
+
+
 _SECTION_TYPES: dict[str, type[Any]] = {
     "rig": RigConfig,
     "device": DeviceConfig,
     "capture": CaptureConfig,
     "windows": WindowsConfig,
     "store": StoreConfig,
+    "service": ServiceConfig,
 }
 
 
@@ -560,6 +602,7 @@ class Config:
     capture: CaptureConfig
     windows: WindowsConfig
     store: StoreConfig
+    service: ServiceConfig
     source: Path | None = field(default=None, compare=False)
 
     def channels_of(self, role: Role) -> tuple[ChannelSpec, ...]:
@@ -646,6 +689,7 @@ def load_config(
         capture=capture,
         windows=sections["windows"],
         store=sections["store"],
+        service=sections["service"],
         source=path,
     )
 

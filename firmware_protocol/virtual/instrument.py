@@ -58,6 +58,9 @@ class InstrumentSettings:
     status_interval_s: float = 0.25
     device_buffer_bytes: int = 262_144  # what the device can hold while the host is not reading
     seed: int = 0
+    # The converter's linear-phase anti-alias filter on every channel (synth.converter_filter);
+    # False point-samples the continuous signals, so content above Nyquist folds back.
+    anti_alias: bool = True
 
 
 @dataclass
@@ -114,7 +117,9 @@ class VirtualInstrument:
         self._rng = np.random.default_rng(self.settings.seed)
         self._lock = threading.Lock()
         self._rate_hz = self.settings.rate_hz
-        self._synth = ResponseSynth(self.model, self._rate_hz, self.settings.frame_samples)
+        self._synth = ResponseSynth(
+            self.model, self._rate_hz, self.settings.frame_samples, self.settings.anti_alias
+        )
         self._enc = FrameEncoder()
         self._decoder = BinaryDecoder()
         self._pending = bytearray()
@@ -225,7 +230,7 @@ class VirtualInstrument:
                 peak *= 25.0  # struck far too hard for the input range
             rate = self._rate_hz
             # A few ms ahead of the samples already generated, at a random sub-sample time.
-            t0 = (self._synth.next_index + math.ceil(0.004 * rate)) / rate
+            t0 = (self._synth.next_index + math.ceil(max(0.004, self._synth.lead_s) * rate)) / rate
             t0 += float(self._rng.uniform(0.0, 1.0 / rate))
             echoes = []
             if double_hit:
@@ -349,7 +354,9 @@ class VirtualInstrument:
             else:
                 with self._lock:
                     self._rate_hz = rate
-                    self._synth = ResponseSynth(self.model, rate, self.settings.frame_samples)
+                    self._synth = ResponseSynth(
+                        self.model, rate, self.settings.frame_samples, self.settings.anti_alias
+                    )
                 self._queue(self._enc.ack(fr.Ack(cmd.opcode, ok, cmd.tag, cmd.argument)))
         elif cmd.opcode is fr.Opcode.PING:
             self._queue(self._enc.ack(fr.Ack(cmd.opcode, ok, cmd.tag, cmd.argument)))
