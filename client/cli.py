@@ -79,6 +79,9 @@ def demo(
 def _capture(folder: Path, truth: Path, seconds: float) -> list[dict[str, Any]]:
     cmd = _daemon(
         "run", "--set", f"store.data_dir={folder / 'rig'}", "--set", "store.min_free_mb=1",
+        # The demo stays on this machine: loopback only, no announcement on the LAN.
+        "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
+        "--set", "service.advertise=false",
         "--set", "capture.averages=3", "--test", "demo-panel", "--virtual-taps", "0.6",
         "--virtual-double-hits", "0.15", "--duration", str(seconds), "--truth", str(truth),
         "--json-events",

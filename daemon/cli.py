@@ -10,7 +10,6 @@ import json
 import logging
 import signal
 import threading
-import time
 from dataclasses import dataclass
 from enum import StrEnum
 from pathlib import Path
@@ -217,17 +216,18 @@ class RunOptions:
 
 
 def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> None:
+    import asyncio
+
     from taprig.firmware_protocol.virtual import write_truth
 
     from .config import load_config
     from .rig import RigEvent
     from .runner import start_rig
+    from .serve import serve
 
     cfg = load_config(config_path, overrides)
     running = start_rig(cfg)
     log = logging.getLogger("taprig.daemon")
-    stop = threading.Event()
-    signal.signal(signal.SIGTERM, lambda *_: stop.set())
 
     def show(event: RigEvent) -> None:
         if opt.json_events:
@@ -235,23 +235,22 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
         else:
             log.info("%s %s", event.kind, event.data)
 
+    async def tick() -> None:
+        vi = running.instrument
+        if vi is not None and opt.virtual_taps > 0 and running.rig.session is not None:
+            await asyncio.to_thread(_simulated_tap, running)
+
     try:
-        rig = running.rig
-        rig.subscribe(show)
+        running.rig.subscribe(show)
         vi = running.instrument
         if vi is not None:
             vi.faults.double_hit_probability = opt.virtual_double_hits
             if opt.truth is not None:
                 write_truth(vi.model, opt.truth)
         if opt.test is not None:
-            _open_test(running, opt, stop)
-        started = time.monotonic()
-        period = opt.virtual_taps if opt.virtual_taps > 0 else 0.5
-        while not stop.wait(period):
-            if opt.duration and time.monotonic() - started >= opt.duration:
-                break
-            if vi is not None and opt.virtual_taps > 0 and rig.session is not None:
-                _simulated_tap(running)
+            _open_test(running, opt, threading.Event())
+        period = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
+        asyncio.run(serve(running, duration_s=opt.duration, tick=tick, tick_s=period))
     except KeyboardInterrupt:
         pass
     finally:

@@ -1,0 +1,103 @@
+"""The daemon's event loop: HTTP service and mDNS advertiser around a running rig.
+
+Started in order (rig → service → advertiser) and stopped in reverse. The rig
+and the store keep their own threads; this loop only serves sockets.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+import signal
+from collections.abc import Awaitable, Callable
+from pathlib import Path
+
+from .advertise import Advertiser, new_rig_id
+from .auth import Auth
+from .rig import RigEvent
+from .runner import RunningRig
+from .service import Service
+
+log = logging.getLogger(__name__)
+
+RIG_ID_FILE = "rig-id"
+
+
+def rig_id(state_dir: Path) -> str:
+    """This rig's stable id, made on first start and kept in the state folder."""
+    path = state_dir / RIG_ID_FILE
+    try:
+        text = path.read_text(encoding="ascii").strip()
+    except FileNotFoundError:
+        text = ""
+    if not text:
+        text = new_rig_id()
+        path.write_text(text + "\n", encoding="ascii")
+    return text
+
+
+async def serve(
+    running: RunningRig,
+    *,
+    duration_s: float = 0.0,
+    tick: Callable[[], Awaitable[None]] | None = None,
+    tick_s: float = 1.0,
+) -> None:
+    """Serve until SIGTERM/SIGINT (or `duration_s`), calling `tick` every `tick_s` seconds."""
+    cfg = running.config
+    auth = Auth(cfg.store.data_dir)
+    service = Service(
+        running, auth, host=cfg.service.bind, port=cfg.service.port,
+        max_body=cfg.service.max_request_kb * 1024,
+    )  # fmt: skip
+    stop = asyncio.Event()
+    loop = asyncio.get_running_loop()
+    for sig in (signal.SIGTERM, signal.SIGINT):
+        loop.add_signal_handler(sig, stop.set)
+    advertiser: Advertiser | None = None
+    try:
+        await service.async_start()
+        if cfg.service.advertise:
+            advertiser = Advertiser(cfg.rig.name, rig_id(cfg.store.data_dir), service.port)
+            name = await advertiser.async_start(running=False)
+            log.info("announced on the LAN as %s", name)
+            _follow_state(running, advertiser, loop)
+        await _wait(stop, duration_s, tick, tick_s)
+    finally:
+        if advertiser is not None:
+            await advertiser.async_close()
+        await service.async_close()
+        for sig in (signal.SIGTERM, signal.SIGINT):
+            loop.remove_signal_handler(sig)
+
+
+async def _wait(
+    stop: asyncio.Event,
+    duration_s: float,
+    tick: Callable[[], Awaitable[None]] | None,
+    tick_s: float,
+) -> None:
+    loop = asyncio.get_running_loop()
+    end = loop.time() + duration_s if duration_s > 0 else float("inf")
+    while not stop.is_set() and loop.time() < end:
+        with contextlib.suppress(TimeoutError):
+            await asyncio.wait_for(stop.wait(), timeout=min(tick_s, max(end - loop.time(), 0)))
+        if tick is not None and not stop.is_set():
+            await tick()
+
+
+def _follow_state(
+    running: RunningRig, advertiser: Advertiser, loop: asyncio.AbstractEventLoop
+) -> None:
+    """Keep the TXT record's running flag and test name in step with the rig."""
+
+    def on_event(event: RigEvent) -> None:
+        if event.kind != "cursor":
+            return
+        armed = bool(event.data.get("armed", running.rig.armed))
+        test = event.data.get("test")
+        coro = advertiser.async_update(running=armed, test=test if isinstance(test, str) else None)
+        asyncio.run_coroutine_threadsafe(coro, loop)
+
+    running.rig.subscribe(on_event)
