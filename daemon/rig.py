@@ -40,6 +40,7 @@ from taprig.firmware_protocol import (
 from . import __version__
 from .acquire import Acquirer, TriggerSettings
 from .config import Config
+from .display import last_hit_view
 from .errors import SessionError, TaprigError
 from .hits import CheckSettings, check_hit
 from .link import LinkChange, LinkState, SerialLink
@@ -95,6 +96,9 @@ class Rig:
         self._thread = threading.Thread(target=self._run, name="rig", daemon=True)
         self._closed = False
         self._item_time = 0.0
+        self._last_record: HitRecord | None = None
+        self.last_hit: dict[str, Any] | None = None
+        """A display-sized view of the last hit; replaced whole, so any thread may read it."""
 
     # --- lifecycle ------------------------------------------------------------
 
@@ -264,6 +268,7 @@ class Rig:
             self.stats.hits_while_disarmed += 1
             return
         verdict = check_hit(record, self._check_settings())
+        self._last_record = record
         self._after(session.on_hit(record, verdict))
 
     def _after(self, outcome: HitOutcome) -> HitOutcome:
@@ -275,9 +280,30 @@ class Rig:
             "rejections": [(f.code, f.message) for f in v.rejections],
             "warnings": [(f.code, f.message) for f in v.warnings],
         })  # fmt: skip
+        self._remember(outcome)
         if outcome.completed is not None:
             self._commit(outcome.completed)
         return outcome
+
+    def _remember(self, outcome: HitOutcome) -> None:
+        """Keep a display-sized view of the last hit (and the point's FRF so far)."""
+        record, session = self._last_record, self.session
+        if record is None or session is None:
+            return
+        c = outcome.completed
+        frf = (c.freq_hz, c.h1, c.coherence) if c is not None else session.running_frf()
+        labels = tuple(ch.label for ch in session.channels)
+        view = last_hit_view(record.data, record.rate_hz, record.first_index, labels,
+                             *(frf if frf is not None else (None, None, None)))  # fmt: skip
+        v = outcome.verdict
+        view.update({
+            "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
+            "waiting": outcome.waiting, "averages": outcome.averages,
+            "peak_force_n": v.peak_force_n, "pulse_width_s": v.pulse_width_s,
+            "rejections": [{"code": f.code, "message": f.message} for f in v.rejections],
+            "warnings": [{"code": f.code, "message": f.message} for f in v.warnings],
+        })  # fmt: skip
+        self.last_hit = view
 
     def _commit(self, ps: PointSet) -> None:
         try:

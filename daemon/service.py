@@ -204,6 +204,10 @@ ROUTES: Final[tuple[Route, ...]] = (
           "this document", public=True),
     Route("GET", "/v1/state", "getState", "state",
           "session cursor, device state and link statistics", errors=(503,)),
+    Route("GET", "/v1/hits/last", "getLastHit", "last_hit",
+          "the last hit: verdict, reasons, min/max envelopes of every channel and the "
+          "point's FRF magnitude and coherence so far, decimated for display",
+          errors=(404,)),
     Route("GET", "/v1/tests", "listTests", "tests", "all tests, oldest first", errors=(503,)),
     Route("GET", "/v1/tests/{name}", "getTest", "test", "one test with its grid",
           params=(_TEST,), errors=(404, 503)),
@@ -764,6 +768,12 @@ class Service:
             "hits_seen": stats.hits_seen, "hits_while_disarmed": stats.hits_while_disarmed,
             "last_seq": last_seq,
         })  # fmt: skip
+
+    async def _on_last_hit(self, call: Call) -> web.StreamResponse:
+        view = self.rig.last_hit
+        if view is None:
+            raise ApiError(404, "no_hit", "no hit has been captured yet")
+        return json_response(view)
 
     async def _on_tests(self, call: Call) -> web.StreamResponse:
         plans = await asyncio.to_thread(self.store.list_tests)

@@ -112,6 +112,12 @@ class Session:
     def averages(self) -> int:
         return self._avg.count
 
+    def running_frf(self) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        """(freq Hz, H1 (n_resp, n_freq), γ²) of the current point so far; None before one."""
+        if self._avg.count == 0:
+            return None
+        return self._avg.freq_hz, self._avg.h1(), self._avg.coherence()
+
     @property
     def waiting(self) -> bool:
         return self._waiting is not None

@@ -296,6 +296,8 @@ def test_capture_over_http(running: RunningRig, auth: Auth) -> None:
             assert [row[0] for row in test["grid"]] == labels and test["averages"] == 2
             assert (await api.act("select", test="panel-http"))["state"]["point"] == "A1"
             assert (await api.act("arm"))["state"]["armed"] is True
+            status, none_yet = await api.get("/v1/hits/last")
+            assert status == 404 and none_yet["error"] == "no_hit"
             _, start = await api.get("/v1/changes", params={"since": 0})
             seq0 = start["last_seq"]
             poll = asyncio.create_task(api.get("/v1/changes", params={"since": seq0, "wait": 25}))
@@ -303,6 +305,14 @@ def test_capture_over_http(running: RunningRig, auth: Auth) -> None:
             first = await tap(running, stream, "A1")
             assert first["accepted"] and first["counted"] and first["averages"] == 1
             assert not poll.done(), "the long-poll returned before anything changed"
+            status, last = await api.get("/v1/hits/last")
+            assert status == 200 and last["point"] == "A1" and last["accepted"]
+            force = last["traces"]["hammer"]
+            assert len(force["max"]) == 256 and max(force["max"]) > 20.0  # N, a 25 N tap
+            # one average: γ² = 1 at every line (Bendat and Piersol, Random Data, 2010)
+            coh = np.asarray(last["spectra"]["coherence"])
+            assert coh.shape == (2, 512) and np.allclose(coh, 1.0, atol=1e-9)
+            assert len(last["spectra"]["freq_hz"]) == len(last["spectra"]["h1_abs"][0]) == 512
             await tap(running, stream, "A1")
             done = await stream.next("completed")
             assert done["point"] == "A1" and done["version"] == 1
