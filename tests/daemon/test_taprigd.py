@@ -1,0 +1,56 @@
+"""`taprigd run` as an operator starts it: a process that captures, serves and stops cleanly."""
+
+from __future__ import annotations
+
+import json
+import re
+import signal
+import subprocess
+import sys
+import time
+import urllib.error
+import urllib.request
+from pathlib import Path
+
+
+def get(url: str, token: str | None = None) -> tuple[int, dict[str, object]]:
+    req = urllib.request.Request(url)
+    if token is not None:
+        req.add_header("Authorization", f"Bearer {token}")
+    try:
+        with urllib.request.urlopen(req, timeout=5) as resp:
+            return resp.status, json.loads(resp.read())
+    except urllib.error.HTTPError as exc:
+        return exc.code, json.loads(exc.read())
+
+
+def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
+    log = tmp_path / "taprigd.log"
+    with log.open("w") as err:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "taprig.daemon", "run", "--set", f"store.data_dir={tmp_path}",
+             "--set", "store.min_free_mb=1", "--set", "service.bind=127.0.0.1",
+             "--set", "service.port=0", "--set", "service.advertise=false", "--test", "shop-1"],
+            stdout=subprocess.DEVNULL, stderr=err,
+        )  # fmt: skip
+    try:
+        deadline = time.monotonic() + 30
+        while not (m := re.search(r"service on (http://127\.0\.0\.1:\d+)/v1", log.read_text())):
+            assert proc.poll() is None, log.read_text()
+            assert time.monotonic() < deadline, "the service never came up"
+            time.sleep(0.05)
+        base = m.group(1)
+        status, info = get(f"{base}/v1/info")
+        assert status == 200 and info["rig"] == "taprig"
+        assert get(f"{base}/v1/state")[0] == 401
+        token = (tmp_path / "token").read_text().strip()
+        status, state = get(f"{base}/v1/state", token)
+        assert status == 200
+        session = state["session"]
+        assert isinstance(session, dict) and session["test"] == "shop-1" and session["armed"]
+        assert token not in log.read_text()
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(timeout=15)
+    assert code == 0, log.read_text()
+    assert "Traceback" not in log.read_text()
