@@ -23,7 +23,6 @@ app = typer.Typer(
 
 # Stages of the whole job that the demo cannot show yet, in data-flow order.
 NOT_YET = (
-    "HTTP API, pairing and tokens, mDNS discovery, live events (rig on the LAN)",
     "pull into a local mirror, export for fitting, quick-look check (workstation client)",
 )
 
