@@ -182,6 +182,10 @@ _F4, _F8, _C16 = np.dtype("<f4"), np.dtype("<f8"), np.dtype("<c16")
 _HEAD = struct.Struct("<4sB")
 
 
+PAGE_SIZE = 65536  # bytes, the largest SQLite allows
+MMAP_BYTES = 1 << 28  # reader connections map up to 256 MiB of the file
+
+
 def encode_array(a: Any, dtype: np.dtype[Any], ndim: int, what: str) -> bytes:
     """Header + raw little-endian bytes of `a` cast to `dtype`; StoreError if it does not fit."""
     arr = np.asarray(a)
@@ -352,6 +356,10 @@ class Store:
                 f"{self.path} has schema version {version}, newer than the "
                 f"version {len(MIGRATIONS)} this taprigd knows; upgrade taprigd"
             )
+        if version == 0:
+            # Large pages before the first table: a point set's arrays are megabytes, and
+            # reading a BLOB walks one overflow page per page_size bytes.
+            conn.execute(f"PRAGMA page_size = {PAGE_SIZE}")
         mode = conn.execute("PRAGMA journal_mode = WAL").fetchone()[0]
         if mode != "wal":
             raise StoreError(f"{self.path}: cannot switch to WAL journal (got {mode!r})")
@@ -447,7 +455,7 @@ class Store:
         self.close()
 
     def set_max_pages(self, pages: int) -> None:
-        """Test hook: set the write connection's `PRAGMA max_page_count` (4 KiB pages)."""
+        """Test hook: set the write connection's `PRAGMA max_page_count` (PAGE_SIZE pages)."""
         self._call(lambda c: c.execute(f"PRAGMA max_page_count = {int(pages)}"))
 
     # -- writing
@@ -544,6 +552,7 @@ class Store:
         try:
             conn.row_factory = sqlite3.Row
             conn.execute("PRAGMA query_only = ON")
+            conn.execute(f"PRAGMA mmap_size = {MMAP_BYTES}")  # BLOBs read without a copy
             conn.execute("BEGIN")
             yield conn
             conn.execute("COMMIT")

@@ -853,13 +853,57 @@ test_from_obj.__test__ = False  # type: ignore[attr-defined]
 # ---------------------------------------------------------------- msgpack
 
 
+SPLICE_MIN = 1 << 16  # bytes: bins this large are spliced in, not copied by the packer
+
+
 def pack(obj: Any) -> bytes:
-    """msgpack bytes of `obj` (str as str, bytes as bin); SchemaError if it cannot be packed."""
+    """msgpack bytes of `obj` (str as str, bytes as bin); SchemaError if it cannot be packed.
+
+    Exactly msgpack.packb's output. Large bins (array data) are packed as short
+    placeholders and joined in afterwards, so their bytes are copied once, by one join,
+    instead of through the packer's growing buffer: about twice as fast for point sets.
+    """
+    big: list[bytes | memoryview] = []
+    light = _lighten(obj, big)
     try:
-        data: bytes = msgpack.packb(obj, use_bin_type=True, datetime=False)
+        data: bytes = msgpack.packb(light, use_bin_type=True, datetime=False)
     except (TypeError, ValueError, OverflowError) as exc:
         raise SchemaError(f"cannot pack as msgpack: {exc}") from exc
-    return data
+    if not big:
+        return data
+    parts: list[bytes | memoryview] = []
+    pos = 0
+    for k, blob in enumerate(big):
+        marker = _marker(k)
+        at = data.index(marker, pos)
+        # bin 32: 0xc6 then the length as a big-endian u32 (the msgpack spec, "bin format
+        # family"); msgpack itself uses it for every bin of 65536 bytes or more.
+        parts += [data[pos:at], b"\xc6", len(blob).to_bytes(4, "big"), blob]
+        pos = at + len(marker)
+    parts.append(data[pos:])
+    return b"".join(parts)
+
+
+_MARK = b"\x00taprig-splice\x00"
+
+
+def _marker(k: int) -> bytes:
+    """The packed placeholder of the k-th large bin: a bin 8 that no real bin can equal
+    (real large bins are never this short)."""
+    body = _MARK + k.to_bytes(4, "big")
+    return b"\xc4" + bytes([len(body)]) + body
+
+
+def _lighten(obj: Any, big: list[bytes | memoryview]) -> Any:
+    """`obj` with every bin of SPLICE_MIN bytes or more replaced by a numbered placeholder."""
+    if isinstance(obj, bytes | bytearray | memoryview) and len(obj) >= SPLICE_MIN:
+        big.append(obj if isinstance(obj, bytes) else memoryview(obj).cast("B"))
+        return _marker(len(big) - 1)[2:]
+    if isinstance(obj, dict):
+        return {k: _lighten(v, big) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_lighten(v, big) for v in obj]
+    return obj
 
 
 def _no_ext(code: int, data: bytes) -> NoReturn:

@@ -3,6 +3,7 @@ a wrong configuration. It says what is wrong, keeps what it had, and carries on.
 
 from __future__ import annotations
 
+import sqlite3
 import subprocess
 import sys
 import time
@@ -104,7 +105,9 @@ def test_full_store_keeps_old_data_and_recovers(running: RunningRig) -> None:
         tap_and_wait(r, ev, "A1")
     ev.next("completed")
     before = r.store.list_point_sets()
-    r.store.set_max_pages(r.store.stats().db_bytes // 4096 + 1)  # test hook: the disk is full
+    with sqlite3.connect(r.store.path) as db:  # the pages in use now (WAL included)
+        pages = int(db.execute("PRAGMA page_count").fetchone()[0])
+    r.store.set_max_pages(pages)  # test hook: the disk is full
     for _ in range(2):
         tap_and_wait(r, ev, "B2")
     msg = ev.next("message")

@@ -28,6 +28,7 @@ import subprocess
 import sys
 from typing import Any
 
+import msgpack
 import numpy as np
 import pytest
 from hypothesis import given, settings
@@ -600,3 +601,15 @@ def test_digest_matches_the_published_sha256_vector() -> None:
     assert wire.digest(b"abc") == (
         "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
     )
+
+
+def test_pack_splices_large_bins_into_exactly_msgpacks_bytes() -> None:
+    """wire.pack must equal msgpack.packb (the reference implementation of the msgpack
+    spec) byte for byte, large bins included, at and around the splice threshold."""
+    rng = np.random.default_rng(5)
+    for size in (wire.SPLICE_MIN - 1, wire.SPLICE_MIN, wire.SPLICE_MIN + 1, 3_000_000):
+        blob = rng.bytes(size)
+        obj = {"a": [1, {"data": blob, "n": "x"}], "b": b"tiny", "c": (blob, memoryview(blob))}
+        ref = msgpack.packb(obj, use_bin_type=True)
+        assert wire.pack(obj) == ref
+        assert wire.unpack(wire.pack(obj), max_bytes=1 << 24)["a"][1]["data"] == blob
