@@ -413,6 +413,12 @@ SETTINGS: tuple[Setting, ...] = (
         "announce the rig on the local network with mDNS",
         allowed="true or false", check=lambda b: True,
     ),
+    Setting(
+        "service", "announce_on", Kind.STR, "", "",
+        "IPv4 addresses of the interfaces to announce on, separated by commas (empty: all)",
+        allowed="empty, or IPv4 addresses separated by commas",
+        check=lambda s: all(_is_ip(a.strip()) for a in s.split(",")) if s.strip() else True,
+    ),
 )  # fmt: skip
 
 
@@ -577,6 +583,12 @@ class ServiceConfig:
     port: int
     max_request_kb: int
     advertise: bool
+    announce_on: str
+
+    @property
+    def announce_addresses(self) -> list[str]:
+        """The interface addresses to announce on; empty for all."""
+        return [a.strip() for a in self.announce_on.split(",") if a.strip()]
 
 
 _SECTION_TYPES: dict[str, type[Any]] = {

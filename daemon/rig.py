@@ -386,6 +386,7 @@ class Rig:
 
     def _disarm(self) -> None:
         self.armed = False
+        self._emit("cursor", self._snapshot())
 
     def _need_session(self) -> Session:
         if self.session is None:

@@ -7,13 +7,16 @@ and the store keep their own threads; this loop only serves sockets.
 from __future__ import annotations
 
 import asyncio
+import concurrent.futures
 import contextlib
 import logging
 import signal
 from collections.abc import Awaitable, Callable
 from pathlib import Path
 
-from .advertise import Advertiser, new_rig_id
+from zeroconf import InterfaceChoice
+
+from .advertise import Advertiser, Interfaces, new_rig_id
 from .auth import Auth
 from .rig import RigEvent
 from .runner import RunningRig
@@ -59,10 +62,22 @@ async def serve(
     try:
         await service.async_start()
         if cfg.service.advertise:
-            advertiser = Advertiser(cfg.rig.name, rig_id(cfg.store.data_dir), service.port)
-            name = await advertiser.async_start(running=False)
+            where = cfg.service.announce_addresses
+            interfaces: Interfaces = where if where else InterfaceChoice.All
+            advertiser = Advertiser(
+                cfg.rig.name, rig_id(cfg.store.data_dir), service.port, interfaces=interfaces
+            )
+            session = running.rig.session
+            name = await advertiser.async_start(
+                running=running.rig.armed, test=session.plan.name if session else None
+            )
             log.info("announced on the LAN as %s", name)
             _follow_state(running, advertiser, loop)
+            # The state may have changed while the name was being probed for (a second or two).
+            session = running.rig.session
+            await advertiser.async_update(
+                running=running.rig.armed, test=session.plan.name if session else None
+            )
         await _wait(stop, duration_s, tick, tick_s)
     finally:
         if advertiser is not None:
@@ -98,6 +113,13 @@ def _follow_state(
         armed = bool(event.data.get("armed", running.rig.armed))
         test = event.data.get("test")
         coro = advertiser.async_update(running=armed, test=test if isinstance(test, str) else None)
-        asyncio.run_coroutine_threadsafe(coro, loop)
+        future = asyncio.run_coroutine_threadsafe(coro, loop)
+        future.add_done_callback(_log_failure)
 
     running.rig.subscribe(on_event)
+
+
+def _log_failure(future: concurrent.futures.Future[None]) -> None:
+    exc = future.exception()
+    if exc is not None:
+        log.warning("could not update the announcement: %s", exc)

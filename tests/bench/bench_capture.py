@@ -84,8 +84,7 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
         cfg = Path(tmp) / "taprigd.toml"
         cfg.write_text(
             f'[device]\nurl = "{link}"\n[store]\ndata_dir = "{tmp}"\nmin_free_mb = 1\n'
-            '[service]\nbind = "127.0.0.1"\nport = 0\nadvertise = false\n'
-            + CHANNELS_TOML
+            '[service]\nbind = "127.0.0.1"\nport = 0\nadvertise = false\n' + CHANNELS_TOML
         )
         grid = Path(tmp) / "grid.csv"
         grid.write_text("label,x,y,z\n" + "".join(

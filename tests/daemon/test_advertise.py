@@ -375,3 +375,47 @@ def test_flapping_interface_is_followed_and_warned_about_once(netns: str, peer: 
         assert about_v0 == ["WARNING"] + ["DEBUG"] * 3, about_v0
     finally:
         _ip("-n", netns, "link", "del", "v0")
+
+
+@pytest.mark.slow
+def test_taprigd_announces_itself_and_its_running_test(
+    netns: str, peer: Start, tmp_path: Path
+) -> None:
+    """`taprigd run` in the namespace: found by name with its port, and TXT run=1 with the
+    test's name once it has armed (the state follows the rig, RFC 6763 §6 TXT)."""
+    assert IP is not None
+    station = peer("station")
+    station.ask("browse", interfaces=station.here)
+    name = _unique("shop")
+    host = HOSTS[-1]
+    log = (tmp_path / "taprigd.log").open("wb")
+    proc = subprocess.Popen(
+        [IP, "netns", "exec", netns, sys.executable, "-m", "taprig.daemon", "run",
+         "--set", f"store.data_dir={tmp_path / 'rig'}", "--set", "store.min_free_mb=1",
+         "--set", f"rig.name={name}", "--set", f"service.bind={host}",
+         "--set", "service.port=8471", "--set", f"service.announce_on={host}",
+         "--test", "panel-7"],
+        stdout=subprocess.DEVNULL, stderr=log,
+    )  # fmt: skip
+    try:
+        want = {"name": name, "port": 8471, "running": True, "test": "panel-7"}
+        station.ask("wait", present=[want], timeout_s=20)
+        # The operator disarms over HTTP (from inside the namespace): the TXT follows.
+        token = (tmp_path / "rig" / "token").read_text().strip()
+        disarm = (
+            "import json, urllib.request as u; r = u.Request("
+            f"'http://{host}:8471/v1/session/disarm', method='POST', "
+            "data=json.dumps({'request_id': 'netns-disarm-1'}).encode(), headers={"
+            f"'Authorization': 'Bearer {token}', 'Content-Type': 'application/json'}}); "
+            "print(u.urlopen(r, timeout=10).status)"
+        )
+        out = subprocess.run([IP, "netns", "exec", netns, sys.executable, "-c", disarm],
+                             capture_output=True, text=True, timeout=30)  # fmt: skip
+        assert out.stdout.strip() == "200", out.stderr
+        station.ask("wait", present=[{**want, "running": False}], timeout_s=10)
+    finally:
+        proc.terminate()
+        code = proc.wait(timeout=15)
+        log.close()
+    assert code == 0, (tmp_path / "taprigd.log").read_text()
+    station.ask("wait", absent=[name], timeout_s=5)  # goodbye on shutdown
