@@ -72,3 +72,16 @@ def test_readme_has_exactly_two_setup_commands() -> None:
     readme = (ROOT / "README.md").read_text(encoding="utf-8")
     setup = readme.split("## Set up on a fresh machine", 1)[1].split("\n## ", 1)[0]
     assert len(re.findall(r"```sh\n", setup)) == 2
+
+
+@pytest.mark.parametrize(
+    ("part", "forbidden"),
+    [("client", ("taprig.daemon",)), ("schema", ("taprig.daemon", "taprig.client")),
+     ("firmware_protocol", ("taprig.daemon", "taprig.client", "taprig.schema"))],
+)  # fmt: skip
+def test_parts_keep_their_boundaries(part: str, forbidden: tuple[str, ...]) -> None:
+    """The client never imports daemon code; the contract and the device link import neither."""
+    pattern = re.compile(r"^\s*(?:from|import)\s+(taprig\.\w+)", re.M)
+    for path in (ROOT / part).rglob("*.py"):
+        for module in pattern.findall(path.read_text(encoding="utf-8")):
+            assert not module.startswith(forbidden), f"{path} imports {module}"
