@@ -273,6 +273,7 @@ class Rig:
 
     def _after(self, outcome: HitOutcome) -> HitOutcome:
         v = outcome.verdict
+        self._remember(outcome)  # before the event: a display told of a hit can fetch it
         self._emit("hit", {
             "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
             "waiting": outcome.waiting, "averages": outcome.averages,
@@ -280,7 +281,6 @@ class Rig:
             "rejections": [(f.code, f.message) for f in v.rejections],
             "warnings": [(f.code, f.message) for f in v.warnings],
         })  # fmt: skip
-        self._remember(outcome)
         if outcome.completed is not None:
             self._commit(outcome.completed)
         return outcome

@@ -18,6 +18,7 @@ from taprig.firmware_protocol.virtual.instrument import (
 from .config import Config
 from .rig import Rig
 from .store import Store
+from .wirebody import encode_body
 
 log = logging.getLogger(__name__)
 
@@ -67,7 +68,7 @@ def start_rig(
         url = instrument.url
         log.info("virtual instrument on %s", url)
     try:
-        store = Store(config.store.data_dir)
+        store = Store(config.store.data_dir, body_encoder=encode_body)
     except Exception:
         if instrument is not None:
             instrument.close()

@@ -116,7 +116,22 @@ def _run_statements(statements: Sequence[str]) -> Migration:
     return migrate
 
 
-MIGRATIONS: list[Migration] = [_run_statements(_SCHEMA_1)]
+# Version 2: each point set's wire body (msgpack, without raw hits) written once, at commit,
+# so that any number of workstations pull it without the rig encoding it again. It costs
+# disk (about the size of the arrays again) for pulls at close to the network's speed.
+_SCHEMA_2 = (
+    """CREATE TABLE wire_bodies (
+        point_set_id INTEGER PRIMARY KEY REFERENCES point_sets(id) ON DELETE CASCADE,
+        schema INTEGER NOT NULL,
+        digest TEXT NOT NULL,
+        body BLOB NOT NULL
+    )""",
+)
+
+MIGRATIONS: list[Migration] = [_run_statements(_SCHEMA_1), _run_statements(_SCHEMA_2)]
+
+BodyEncoder = Callable[[int, "PointSet"], tuple[int, str, bytes]]
+"""(point set id, the point set as stored, hits without data) -> (schema, digest, body)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -297,6 +312,25 @@ def _to_json(value: Any, what: str) -> str:
         raise StoreError(f"{what} is not plain JSON: {exc}") from exc
 
 
+def _fetch_point_set(conn: sqlite3.Connection, point_set_id: int, with_hits: bool) -> PointSet:
+    """One point set read on `conn`; its hits carry data=None unless with_hits."""
+    data = "data" if with_hits else "NULL AS data"
+    cur = conn.cursor()
+    cur.row_factory = sqlite3.Row
+    row = cur.execute(
+        "SELECT p.*, t.name AS test FROM point_sets p JOIN tests t "
+        "ON t.id = p.test_id WHERE p.id = ?",
+        (point_set_id,),
+    ).fetchone()
+    if row is None:
+        raise StoreError(f"no point set with id {point_set_id}")
+    hits = cur.execute(
+        f"SELECT {_HIT_FIELDS}, {data} FROM hits WHERE point_set_id = ? ORDER BY ordinal",
+        (point_set_id,),
+    ).fetchall()
+    return _point_set(row, hits)
+
+
 def _is_full(exc: Exception) -> bool:
     # Errors raised by SQLite carry the code; ones built in Python (tests) carry none.
     code = getattr(exc, "sqlite_errorcode", None)
@@ -318,10 +352,12 @@ class Store:
         *,
         max_pages: int | None = None,
         timeout_s: float = DEFAULT_TIMEOUT_S,
+        body_encoder: BodyEncoder | None = None,
     ) -> None:
         Path(data_dir).mkdir(parents=True, exist_ok=True)
         self.path = Path(data_dir).resolve() / FILE_NAME
         self.timeout_s = timeout_s
+        self._body_encoder = body_encoder
         self._conn = self._open_writer()
         self._jobs: queue.SimpleQueue[tuple[Job, Future[Any]] | None] = queue.SimpleQueue()
         self._lock = threading.Lock()
@@ -529,8 +565,12 @@ class Store:
             completed_utc=ps.completed_utc or utc_now(),
         )
         cur = conn.execute(_insert_sql("point_sets", _PS_COLUMNS), _point_set_row(test_id, done))
-        rows = _hit_rows(int(cur.lastrowid or 0), done.hits)
-        conn.executemany(_insert_sql("hits", _HIT_COLUMNS), rows)
+        pid = int(cur.lastrowid or 0)
+        conn.executemany(_insert_sql("hits", _HIT_COLUMNS), _hit_rows(pid, done.hits))
+        if self._body_encoder is not None:
+            # Encoded from what was just written, read back, so it is what a reader gets.
+            schema, digest, body = self._body_encoder(pid, _fetch_point_set(conn, pid, False))
+            conn.execute("INSERT INTO wire_bodies VALUES (?, ?, ?, ?)", (pid, schema, digest, body))
         return done
 
     # -- reading
@@ -597,20 +637,21 @@ class Store:
 
     def get_point_set(self, point_set_id: int, with_hits: bool = False) -> PointSet:
         """The stored point set; its hits carry data=None unless with_hits."""
-        data = "data" if with_hits else "NULL AS data"
+        with self._reading() as conn:
+            return _fetch_point_set(conn, point_set_id, with_hits)
+
+    def get_wire_body(self, point_set_id: int, schema: int) -> tuple[str, bytes] | None:
+        """(digest, body) written at commit for wire schema `schema`, or None if there is none."""
         with self._reading() as conn:
             row = conn.execute(
-                "SELECT p.*, t.name AS test FROM point_sets p JOIN tests t "
-                "ON t.id = p.test_id WHERE p.id = ?",
-                (point_set_id,),
+                "SELECT digest FROM wire_bodies WHERE point_set_id = ? AND schema = ?",
+                (point_set_id, schema),
             ).fetchone()
             if row is None:
-                raise StoreError(f"no point set with id {point_set_id}")
-            hits = conn.execute(
-                f"SELECT {_HIT_FIELDS}, {data} FROM hits WHERE point_set_id = ? ORDER BY ordinal",
-                (point_set_id,),
-            ).fetchall()
-        return _point_set(row, hits)
+                return None
+            # Incremental BLOB I/O: one copy of the megabytes, far quicker than a SELECT of it.
+            with conn.blobopen("wire_bodies", "body", point_set_id, readonly=True) as blob:
+                return str(row["digest"]), blob.read()
 
     def changes(self, since_seq: int = 0, limit: int = 1000) -> list[Change]:
         """The change feed after `since_seq`, oldest first, at most `limit` entries."""

@@ -426,7 +426,7 @@ def test_version_0_database_is_migrated(tmp_path: Path) -> None:
     _raw_db(path, "CREATE TABLE notes (t TEXT)", "INSERT INTO notes VALUES ('kept')")
     assert _user_version(path) == 0
     with Store(tmp_path) as s:
-        assert s.stats().schema_version == len(store_mod.MIGRATIONS) == 1
+        assert s.stats().schema_version == len(store_mod.MIGRATIONS) == 2
         assert s.last_seq() == 0 and s.list_tests() == []
     raw = sqlite3.connect(path)
     assert raw.execute("SELECT t FROM notes").fetchall() == [("kept",)]
@@ -445,17 +445,18 @@ def test_failed_migration_is_rolled_back(tmp_path: Path, monkeypatch: pytest.Mon
     with pytest.raises(StoreError, match="injected migration failure"):
         Store(tmp_path)
     path = tmp_path / store_mod.FILE_NAME
-    assert _user_version(path) == 1
+    known = len(store_mod.MIGRATIONS) - 1  # every migration but the failing one
+    assert _user_version(path) == known
     raw = sqlite3.connect(path)
     assert raw.execute("SELECT name FROM sqlite_master WHERE name = 'half_done'").fetchall() == []
     raw.close()
     monkeypatch.setattr(
         store_mod,
         "MIGRATIONS",
-        [*store_mod.MIGRATIONS[:1], lambda c: c.execute("CREATE TABLE v2 (x)")],
+        [*store_mod.MIGRATIONS[:known], lambda c: c.execute("CREATE TABLE later (x)")],
     )
     Store(tmp_path).close()
-    assert _user_version(path) == 2
+    assert _user_version(path) == known + 1
 
 
 def test_newer_database_is_refused_untouched(tmp_path: Path) -> None:
@@ -463,7 +464,8 @@ def test_newer_database_is_refused_untouched(tmp_path: Path) -> None:
     _raw_db(path, "PRAGMA user_version = 99")
     with pytest.raises(StoreError) as err:
         Store(tmp_path)
-    assert "99" in str(err.value) and "version 1" in str(err.value) and str(path) in str(err.value)
+    known = f"version {len(store_mod.MIGRATIONS)}"
+    assert "99" in str(err.value) and known in str(err.value) and str(path) in str(err.value)
     assert _user_version(path) == 99
 
 

@@ -1,0 +1,26 @@
+"""A stored point set's wire body: encoded once, at commit, served as stored.
+
+The store calls `encode_body` inside the commit's transaction (see Store(body_encoder=)),
+so the body a workstation pulls is the body of exactly what was committed.
+"""
+
+from __future__ import annotations
+
+import base64
+
+from taprig.schema import wire
+
+from .records import PointSet
+
+
+def content_digest(body: bytes) -> str:
+    """The Content-Digest header value of `body`: its SHA-256 (RFC 9530 §2)."""
+    sha = base64.b64encode(bytes.fromhex(wire.digest(body))).decode()
+    return f"sha-256=:{sha}:"
+
+
+def encode_body(point_set_id: int, ps: PointSet) -> tuple[int, str, bytes]:
+    """(schema version, Content-Digest, msgpack body without raw hits) of a point set."""
+    obj = wire.point_set_to_obj(wire.point_set_from_record(point_set_id, ps), with_hits=False)
+    body = wire.pack(obj)
+    return wire.SCHEMA_VERSION, content_digest(body), body
