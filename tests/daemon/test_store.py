@@ -544,3 +544,41 @@ def test_grid_csv_good() -> None:
 def test_grid_csv_errors_name_line_and_field(text: str, message: str) -> None:
     with pytest.raises(StoreError, match=message):
         import_grid_csv(text)
+
+
+def test_wire_body_is_written_with_the_point_set(tmp_path: Path) -> None:
+    """The body stored at commit decodes (schema.wire) to exactly the stored arrays, and its
+    digest is the SHA-256 of its bytes (RFC 9530 §2; hashlib as the reference)."""
+    import base64
+    import hashlib
+
+    from taprig.daemon.wirebody import encode_body
+    from taprig.schema import wire
+
+    with Store(tmp_path, body_encoder=encode_body) as s:
+        s.save_test("beam", GRID, RovingMode.HAMMER, "P1", 3, {})
+        s.commit_point_set(make_point_set("beam", "P3", seed=9))
+        pid = newest_id(s)
+        stored = s.get_wire_body(pid, wire.SCHEMA_VERSION)
+        assert stored is not None and s.get_wire_body(pid, wire.SCHEMA_VERSION + 1) is None
+        digest, body = stored
+        sha = base64.b64encode(hashlib.sha256(body).digest()).decode()
+        assert digest == f"sha-256=:{sha}:"
+        got = wire.point_set_from_obj(wire.unpack(body, max_bytes=1 << 26))
+        ref = s.get_point_set(pid)
+        for name in ("freq_hz", "h1", "h2", "coherence", "gff", "gxx", "gfx"):
+            a, b = getattr(got, name), getattr(ref, name)
+            assert a.dtype == b.dtype and a.tobytes() == b.tobytes(), name
+        assert got.id == pid and got.seq == ref.seq and got.version == ref.version
+
+
+def test_failing_body_encoder_keeps_nothing(tmp_path: Path) -> None:
+    def broken(pid: int, ps: object) -> tuple[int, str, bytes]:
+        raise StoreError("injected encoder failure")
+
+    with Store(tmp_path, body_encoder=broken) as s:
+        s.save_test("beam", GRID, RovingMode.HAMMER, "P1", 3, {})
+        seq = s.last_seq()
+        with pytest.raises(StoreError, match="injected encoder failure"):
+            s.commit_point_set(make_point_set("beam", "P3", seed=1))
+        assert s.list_point_sets() == [] and s.last_seq() == seq
