@@ -361,6 +361,8 @@ class Store:
         self._conn = self._open_writer()
         self._jobs: queue.SimpleQueue[tuple[Job, Future[Any]] | None] = queue.SimpleQueue()
         self._lock = threading.Lock()
+        self._local = threading.local()
+        self._readers: list[sqlite3.Connection] = []
         self._closed = False
         if max_pages is not None:
             self._conn.execute(f"PRAGMA max_page_count = {int(max_pages)}")
@@ -483,6 +485,10 @@ class Store:
                 self._closed = True
                 self._jobs.put(None)
         self._thread.join()
+        with self._lock:
+            readers, self._readers = self._readers, []
+        for conn in readers:
+            conn.close()
 
     def __enter__(self) -> Store:
         return self
@@ -577,29 +583,46 @@ class Store:
 
     @contextlib.contextmanager
     def _reading(self) -> Iterator[sqlite3.Connection]:
-        """A read-only connection holding one snapshot for the `with` block."""
+        """A read-only connection holding one snapshot for the `with` block.
+
+        Each thread keeps its own reader connection (opened on first use, closed by
+        `close`), so a read costs no connection set-up.
+        """
         if self._closed:
             raise StoreError(f"store {self.path} is closed")
+        conn = self._reader()
         try:
-            conn = sqlite3.connect(
-                self.path.as_uri() + "?mode=rw",
-                uri=True,
-                timeout=self.timeout_s,
-                isolation_level=None,
-            )
-        except sqlite3.Error as exc:
-            raise StoreError(f"cannot read {self.path}: {exc}") from exc
-        try:
-            conn.row_factory = sqlite3.Row
-            conn.execute("PRAGMA query_only = ON")
-            conn.execute(f"PRAGMA mmap_size = {MMAP_BYTES}")  # BLOBs read without a copy
             conn.execute("BEGIN")
             yield conn
             conn.execute("COMMIT")
         except sqlite3.Error as exc:
             raise StoreError(f"reading {self.path} failed: {exc}") from exc
         finally:
-            conn.close()
+            if conn.in_transaction:  # never leave an old snapshot open on a kept connection
+                with contextlib.suppress(sqlite3.Error):
+                    conn.rollback()
+
+    def _reader(self) -> sqlite3.Connection:
+        conn: sqlite3.Connection | None = getattr(self._local, "conn", None)
+        if conn is not None:
+            return conn
+        try:
+            conn = sqlite3.connect(
+                self.path.as_uri() + "?mode=rw",
+                uri=True,
+                timeout=self.timeout_s,
+                isolation_level=None,
+                check_same_thread=False,  # used by its own thread only; closed by close()
+            )
+            conn.row_factory = sqlite3.Row
+            conn.execute("PRAGMA query_only = ON")
+            conn.execute(f"PRAGMA mmap_size = {MMAP_BYTES}")  # BLOBs read without a copy
+        except sqlite3.Error as exc:
+            raise StoreError(f"cannot read {self.path}: {exc}") from exc
+        with self._lock:
+            self._readers.append(conn)
+        self._local.conn = conn
+        return conn
 
     def _query(self, sql: str, args: Iterable[Any] = ()) -> list[sqlite3.Row]:
         with self._reading() as conn:
