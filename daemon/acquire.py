@@ -34,9 +34,9 @@ class TriggerSettings:
 class RingBuffer:
     """The last `capacity` sample frames of every channel, addressed by device sample index."""
 
-    def __init__(self, channels: int, capacity: int) -> None:
+    def __init__(self, channels: int, capacity: int, dtype: type[np.generic] = np.float64) -> None:
         self.capacity = capacity
-        self._data = np.zeros((channels, capacity), dtype=np.float64)
+        self._data = np.zeros((channels, capacity), dtype=dtype)
         self.end = 0  # device index one past the newest sample held
         self.start = 0  # oldest index held
 
@@ -100,7 +100,7 @@ class Acquirer:
         self._clip_v = (1.0 - full_scale_margin) * fs
         capacity = max(int(ring_seconds * rate_hz), 2 * trigger.block)
         self.ring = RingBuffer(len(self.channels), capacity)
-        self._near_fs = RingBuffer(len(self.channels), capacity)
+        self._near_fs = RingBuffer(len(self.channels), capacity, np.bool_)
         self._sign = 1.0 if trigger.slope == "rising" else -1.0
         self._armed = False
         self._pending: list[int] = []  # trigger indexes whose records are not complete yet
@@ -122,7 +122,7 @@ class Acquirer:
         data = volts[self._device_rows] * self._si
         near = np.abs(volts[self._device_rows]) >= self._clip_v[:, None]
         self.ring.write(first, data)
-        self._near_fs.write(first, near.astype(np.float64))
+        self._near_fs.write(first, near)
         self._find_triggers(first, data[self.force] * self._sign)
         self._prune()
         return self._complete()

@@ -218,8 +218,6 @@ class RunOptions:
 def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> None:
     import asyncio
 
-    from taprig.firmware_protocol.virtual import write_truth
-
     from .config import load_config
     from .rig import RigEvent
     from .runner import start_rig
@@ -246,6 +244,8 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
         if vi is not None:
             vi.faults.double_hit_probability = opt.virtual_double_hits
             if opt.truth is not None:
+                from taprig.firmware_protocol.virtual import write_truth
+
                 write_truth(vi.model, opt.truth)
         if opt.test is not None:
             _open_test(running, opt, threading.Event())

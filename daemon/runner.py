@@ -7,18 +7,16 @@ from __future__ import annotations
 
 import logging
 from dataclasses import dataclass, field
-
-from taprig.firmware_protocol.virtual import ModalModel
-from taprig.firmware_protocol.virtual.instrument import (
-    InstrumentSettings,
-    VirtualInstrument,
-    open_virtual,
-)
+from typing import TYPE_CHECKING
 
 from .config import Config
 from .rig import Rig
 from .store import Store
 from .wirebody import encode_body
+
+if TYPE_CHECKING:  # the simulator is imported only when a virtual device is configured
+    from taprig.firmware_protocol.virtual import ModalModel
+    from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, VirtualInstrument
 
 log = logging.getLogger(__name__)
 
@@ -53,6 +51,8 @@ def start_rig(
     instrument = None
     url = config.device.url
     if config.device.is_virtual:
+        from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
+
         transport = "tcp" if url == "virtual:tcp" else "pty"
         # A board printing text lines manages a few kHz, not the binary link's 51.2 kHz.
         settings = instrument_settings or (
