@@ -3,7 +3,7 @@
     SerialLink (reader thread) ─► Decoder ─► Acquirer ─► check_hit ─► Session ─► Store
 
 The processing thread owns the decoder, the acquirer and the session; other
-threads (the CLI, later the HTTP service) talk to it through `call`, which
+threads (the CLI, the HTTP service) talk to it through `call`, which
 queues a command and waits for its result, so nothing is shared unlocked.
 Observers get every outcome as a plain event.
 """
