@@ -1,7 +1,7 @@
 """Frame envelope, frame types and payload layouts of the device link protocol.
 
 The byte layouts here are the ones written in PROTOCOL.md; that file is the
-specification and this module is its Python transcription. Payloads are
+specification and this module implements it in Python. Payloads are
 packed and unpacked with `struct`; sample arrays live in `samples.py`.
 """
 

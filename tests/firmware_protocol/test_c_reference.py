@@ -310,7 +310,7 @@ def test_c_writes_the_committed_vectors(c_vectors: dict[str, bytes]) -> None:
     """Each file vectors_main writes equals the committed file and FrameEncoder's frame.
 
     The expected values are the manifest's (written from the vector list, not
-    from either program); agreement of two independent transcriptions is the check.
+    from either program); two independent encoders agreeing with it is the check.
     """
     assert set(c_vectors) == {e["file"] for e in DEVICE}
     for entry in DEVICE:
