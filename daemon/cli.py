@@ -29,6 +29,14 @@ app = typer.Typer(
 )
 
 
+# Options several commands share, declared once.
+ConfigOption = Annotated[Path | None, typer.Option("--config", "-c", help="TOML configuration")]
+SetOption = Annotated[
+    list[str] | None, typer.Option("--set", help="override a setting: section.key=value")
+]
+VerboseOption = Annotated[bool, typer.Option("--verbose", "-v", help="log at debug level")]
+
+
 class InputFormat(StrEnum):
     binary = "binary"
     text = "text"
@@ -60,7 +68,7 @@ def probe(
     truth: Annotated[
         Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
     ] = None,
-    verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
+    verbose: VerboseOption = False,
 ) -> None:
     """Check a device link: identify the device, stream, and report what arrived."""
     from .probe import probe as run_probe
@@ -118,7 +126,7 @@ def instrument(
     truth: Annotated[
         Path | None, typer.Option(help="write the true modal model here (JSON)")
     ] = None,
-    verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
+    verbose: VerboseOption = False,
 ) -> None:
     """Run the virtual instrument on its own until interrupted (for demos and manual tests)."""
     from taprig.firmware_protocol.virtual import write_truth
@@ -156,12 +164,8 @@ class Roving(StrEnum):
 
 @app.command()
 def run(
-    config: Annotated[
-        Path | None, typer.Option("--config", "-c", help="TOML configuration")
-    ] = None,
-    set_: Annotated[
-        list[str] | None, typer.Option("--set", help="override a setting: section.key=value")
-    ] = None,
+    config: ConfigOption = None,
+    set_: SetOption = None,
     test: Annotated[str | None, typer.Option(help="test to select (created with --grid)")] = None,
     grid: Annotated[
         Path | None,
@@ -187,7 +191,7 @@ def run(
     json_events: Annotated[
         bool, typer.Option("--json-events", help="print every rig event as a JSON line")
     ] = False,
-    verbose: Annotated[bool, typer.Option("--verbose", "-v")] = False,
+    verbose: VerboseOption = False,
 ) -> None:
     """Capture: open the device, select a test, arm, and store every completed point set."""
     from .errors import TaprigError
@@ -308,12 +312,8 @@ def _wait_for_device(rig: Rig, stop: threading.Event, timeout: float = 30.0) -> 
 
 @app.command()
 def pair(
-    config: Annotated[
-        Path | None, typer.Option("--config", "-c", help="TOML configuration")
-    ] = None,
-    set_: Annotated[
-        list[str] | None, typer.Option("--set", help="override a setting: section.key=value")
-    ] = None,
+    config: ConfigOption = None,
+    set_: SetOption = None,
     host: Annotated[
         str | None,
         typer.Option(help="address workstations reach the rig at (default: its LAN address)"),

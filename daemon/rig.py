@@ -20,8 +20,6 @@ from concurrent.futures import Future
 from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
-import numpy as np
-
 from taprig.firmware_protocol import (
     Command,
     Decoder,
@@ -84,6 +82,7 @@ class Rig:
         self.armed = False
         self.session: Session | None = None
         self._decoder = self._make_decoder()
+        self._checks = self._check_settings()  # the configuration never changes while running
         self._acq: Acquirer | None = None
         self._enc = FrameEncoder()
         self._link = SerialLink(self.url, baudrate=config.device.baudrate,
@@ -267,7 +266,7 @@ class Rig:
         if not self.armed or session is None:
             self.stats.hits_while_disarmed += 1
             return
-        verdict = check_hit(record, self._check_settings())
+        verdict = check_hit(record, self._checks)
         self._last_record = record
         self._after(session.on_hit(record, verdict))
 
@@ -427,8 +426,3 @@ class Rig:
             return make_decoder("text", rate_hz=d.text_rate_hz or None,
                                 full_scale_v=d.text_full_scale_v)  # fmt: skip
         return make_decoder("binary")
-
-
-def latency_summary(values: list[float]) -> float:
-    """Median of a list of seconds (nan when empty)."""
-    return float(np.median(values)) if values else float("nan")

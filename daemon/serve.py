@@ -13,6 +13,7 @@ import logging
 import signal
 from collections.abc import Awaitable, Callable
 from pathlib import Path
+from typing import Any
 
 from zeroconf import InterfaceChoice
 
@@ -67,17 +68,11 @@ async def serve(
             advertiser = Advertiser(
                 cfg.rig.name, rig_id(cfg.store.data_dir), service.port, interfaces=interfaces
             )
-            session = running.rig.session
-            name = await advertiser.async_start(
-                running=running.rig.armed, test=session.plan.name if session else None
-            )
+            name = await advertiser.async_start(**_state(running))
             log.info("announced on the LAN as %s", name)
             _follow_state(running, advertiser, loop)
             # The state may have changed while the name was being probed for (a second or two).
-            session = running.rig.session
-            await advertiser.async_update(
-                running=running.rig.armed, test=session.plan.name if session else None
-            )
+            await advertiser.async_update(**_state(running))
         await _wait(stop, duration_s, tick, tick_s)
     finally:
         if advertiser is not None:
@@ -100,6 +95,12 @@ async def _wait(
             await asyncio.wait_for(stop.wait(), timeout=min(tick_s, max(end - loop.time(), 0)))
         if tick is not None and not stop.is_set():
             await tick()
+
+
+def _state(running: RunningRig) -> dict[str, Any]:
+    """What the announcement carries: whether the rig is armed, and its test's name."""
+    session = running.rig.session
+    return {"running": running.rig.armed, "test": session.plan.name if session else None}
 
 
 def _follow_state(

@@ -16,9 +16,6 @@ _INT_DTYPES: dict[SampleFormat, np.dtype[np.signedinteger]] = {
     SampleFormat.INT32: np.dtype("<i4"),
 }
 
-INT24_MIN = -(1 << 23)
-INT24_MAX = (1 << 23) - 1
-
 
 def code_limits(fmt: SampleFormat) -> tuple[int, int]:
     """Smallest and largest integer code of an integer format."""

@@ -29,7 +29,7 @@ from ..events import BadCommand, CommandReceived
 from ..text import format_lines, rate_comment
 from .modal import ModalModel, demo_panel
 from .ports import Port, PtyPort, TcpPort
-from .synth import Pulse, ResponseSynth
+from .synth import ResponseSynth, pulse_train
 
 log = logging.getLogger(__name__)
 
@@ -237,9 +237,8 @@ class VirtualInstrument:
                 # The hammer bounces back: a weaker second pulse 1.5 to 6 ms after the first.
                 delay = float(self._rng.uniform(0.0015, 0.006))
                 echoes.append((delay, float(self._rng.uniform(0.25, 0.5))))
-            self._synth.add(Pulse(point, t0, width, peak))
-            for delay, fraction in echoes:
-                self._synth.add(Pulse(point, t0 + width + delay, width, peak * fraction))
+            for pulse in pulse_train(point, t0, width, peak, echoes):
+                self._synth.add(pulse)
             record = TapRecord(point, t0, math.ceil(t0 * rate), peak, width, double_hit, overload)
             self.counters.taps.append(record)
         return record

@@ -28,6 +28,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from table import Row, show
 
 from taprig.daemon.config import load_config
 from taprig.daemon.link import READ_TIMEOUT_S
@@ -36,7 +37,6 @@ from taprig.daemon.runner import start_rig
 from taprig.firmware_protocol.virtual import ModalModel, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
 
-Row = tuple[str, float, str, str]
 TICK = os.sysconf("SC_CLK_TCK")
 CHANNELS_TOML = """
 [[channels]]
@@ -176,11 +176,6 @@ def hit_latency(hits: int) -> list[Row]:
 
 def run(seconds: float = 10.0, hits: int = 20) -> list[Row]:
     return daemon_cpu_and_memory(seconds) + hit_latency(hits)
-
-
-def show(rows: list[Row]) -> None:
-    for name, value, unit, note in rows:
-        print(f"{name:<44} {value:>10.1f} {unit:<6} {note}")
 
 
 if __name__ == "__main__":

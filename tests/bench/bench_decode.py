@@ -16,6 +16,7 @@ import argparse
 import time
 
 import numpy as np
+from table import Row, show
 
 from taprig.firmware_protocol import (
     BinaryDecoder,
@@ -28,7 +29,6 @@ from taprig.firmware_protocol import (
 )
 from taprig.firmware_protocol.samples import codes_to_volts, unpack_codes
 
-Row = tuple[str, float, str, str]
 LINK_MB_S = 1.0  # USB 2.0 full-speed CDC, about 1 MB/s in practice (common practice)
 GOAL_MB_S = 50.0
 CHUNK = 65536  # bytes per read, what a serial read of a busy port returns
@@ -95,11 +95,6 @@ def run(megabytes: float = 64.0) -> list[Row]:
     conv = len(payload) / (time.perf_counter() - t0) / 1e6
     rows.append(("int24 -> volts alone (no framing)", conv, "MB/s", "same pieces"))
     return rows
-
-
-def show(rows: list[Row]) -> None:
-    for name, value, unit, note in rows:
-        print(f"{name:<44} {value:>10.1f} {unit:<6} {note}")
 
 
 if __name__ == "__main__":

@@ -25,6 +25,7 @@ from pathlib import Path
 import aiohttp
 import numpy as np
 from aiohttp import web
+from table import Row, show
 
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
@@ -36,7 +37,6 @@ from taprig.daemon.store import Store
 from taprig.daemon.wirebody import encode_body
 from taprig.schema import wire
 
-Row = tuple[str, float, str, str]
 N_RESP = 4
 N_FREQ = 8193
 GOAL_RATIO = 0.5
@@ -173,11 +173,6 @@ def run(sets: int = 200, polls: int = 200) -> list[Row]:
             return asyncio.run(measure(running, Auth(Path(tmp) / "auth"), polls))
         finally:
             running.close()
-
-
-def show(rows: list[Row]) -> None:
-    for name, value, unit, note in rows:
-        print(f"{name:<44} {value:>10.1f} {unit:<6} {note}")
 
 
 if __name__ == "__main__":

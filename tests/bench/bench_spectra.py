@@ -17,6 +17,8 @@ import time
 from collections.abc import Callable
 
 import numpy as np
+import table
+from table import Row
 
 from taprig.daemon.spectra import (
     SpectralAverager,
@@ -26,7 +28,6 @@ from taprig.daemon.spectra import (
     hit_spectra,
 )
 
-Row = tuple[str, float, str, str]
 BLOCK = 16384
 CHANNELS = 4
 RATE_HZ = 51_200.0
@@ -78,8 +79,7 @@ def run(repeats: int = 200) -> list[Row]:
 
 
 def show(rows: list[Row]) -> None:
-    for name, value, unit, note in rows:
-        print(f"{name:<44} {value:>10.3f} {unit:<6} {note}")
+    table.show(rows, decimals=3)
 
 
 if __name__ == "__main__":
