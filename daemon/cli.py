@@ -188,6 +188,15 @@ def run(
     truth: Annotated[
         Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
     ] = None,
+    virtual_control: Annotated[
+        int | None,
+        typer.Option(
+            min=0,
+            max=65535,
+            help="virtual device only: serve its control interface (taps, faults) on this "
+            "loopback port (0: any free port; recorded in <data_dir>/run.json)",
+        ),
+    ] = None,
     json_events: Annotated[
         bool, typer.Option("--json-events", help="print every rig event as a JSON line")
     ] = False,
@@ -198,7 +207,7 @@ def run(
 
     _setup_logging(verbose)
     options = RunOptions(test, grid, roving, reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events)  # fmt: skip
+                         virtual_double_hits, truth, json_events, virtual_control)  # fmt: skip
     try:
         _run(config, set_ or [], options)
     except TaprigError as exc:
@@ -217,6 +226,7 @@ class RunOptions:
     virtual_double_hits: float
     truth: Path | None
     json_events: bool = False
+    virtual_control: int | None = None
 
 
 def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> None:
@@ -242,9 +252,18 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
         if vi is not None and opt.virtual_taps > 0 and running.rig.session is not None:
             await asyncio.to_thread(_simulated_tap, running)
 
+    control = None
     try:
         running.rig.subscribe(show)
         vi = running.instrument
+        if opt.virtual_control is not None and vi is None:
+            from .errors import ConfigError
+
+            raise ConfigError("--virtual-control needs a virtual device (device.url=virtual...)")
+        if vi is not None and opt.virtual_control is not None:
+            from taprig.firmware_protocol.virtual.control import ControlServer
+
+            control = ControlServer(vi, port=opt.virtual_control).start()
         if vi is not None:
             vi.faults.double_hit_probability = opt.virtual_double_hits
             if opt.truth is not None:
@@ -254,10 +273,13 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
         if opt.test is not None:
             _open_test(running, opt, threading.Event())
         period = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
-        asyncio.run(serve(running, duration_s=opt.duration, tick=tick, tick_s=period))
+        asyncio.run(serve(running, duration_s=opt.duration, tick=tick, tick_s=period,
+                          control_port=control.port if control else None))  # fmt: skip
     except KeyboardInterrupt:
         pass
     finally:
+        if control is not None:
+            control.close()
         running.close()
 
 

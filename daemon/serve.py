@@ -9,7 +9,9 @@ from __future__ import annotations
 import asyncio
 import concurrent.futures
 import contextlib
+import json
 import logging
+import os
 import signal
 from collections.abc import Awaitable, Callable
 from pathlib import Path
@@ -26,6 +28,8 @@ from .service import Service
 log = logging.getLogger(__name__)
 
 RIG_ID_FILE = "rig-id"
+RUN_FILE = "run.json"
+"""Written in the state folder while the service listens: where a local tool finds the rig."""
 
 
 def rig_id(state_dir: Path) -> str:
@@ -47,8 +51,13 @@ async def serve(
     duration_s: float = 0.0,
     tick: Callable[[], Awaitable[None]] | None = None,
     tick_s: float = 1.0,
+    control_port: int | None = None,
 ) -> None:
-    """Serve until SIGTERM/SIGINT (or `duration_s`), calling `tick` every `tick_s` seconds."""
+    """Serve until SIGTERM/SIGINT (or `duration_s`), calling `tick` every `tick_s` seconds.
+
+    control_port: the loopback port of the virtual instrument's control interface, if one
+    runs; recorded in the run file (`write_run_file`).
+    """
     cfg = running.config
     auth = Auth(cfg.store.data_dir)
     service = Service(
@@ -62,6 +71,7 @@ async def serve(
     advertiser: Advertiser | None = None
     try:
         await service.async_start()
+        write_run_file(cfg.store.data_dir, cfg.service.bind, service.port, control_port)
         if cfg.service.advertise:
             where = cfg.service.announce_addresses
             interfaces: Interfaces = where if where else InterfaceChoice.All
@@ -75,11 +85,25 @@ async def serve(
             await advertiser.async_update(**_state(running))
         await _wait(stop, duration_s, tick, tick_s)
     finally:
+        with contextlib.suppress(FileNotFoundError):
+            (cfg.store.data_dir / RUN_FILE).unlink()
         if advertiser is not None:
             await advertiser.async_close()
         await service.async_close()
         for sig in (signal.SIGTERM, signal.SIGINT):
             loop.remove_signal_handler(sig)
+
+
+def write_run_file(state_dir: Path, bind: str, port: int, control_port: int | None) -> None:
+    """Record where this process serves, atomically: ``{"pid", "bind", "port", "control_port"}``.
+
+    Local tools (the demo, `taprigd status`, tests) read it instead of parsing the log; it is
+    removed when the service stops, and a stale one names a pid that no longer runs.
+    """
+    record = {"pid": os.getpid(), "bind": bind, "port": port, "control_port": control_port}
+    tmp = state_dir / (RUN_FILE + ".tmp")
+    tmp.write_text(json.dumps(record) + "\n", encoding="utf-8")
+    os.replace(tmp, state_dir / RUN_FILE)
 
 
 async def _wait(

@@ -54,3 +54,38 @@ def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
         code = proc.wait(timeout=15)
     assert code == 0, log.read_text()
     assert "Traceback" not in log.read_text()
+
+
+def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None:
+    """run.json appears while serving (port and control port), and goes when taprigd stops."""
+    import socket
+
+    log = tmp_path / "taprigd.log"
+    with log.open("w") as err:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "taprig.daemon", "run", "--set", f"store.data_dir={tmp_path}",
+             "--set", "store.min_free_mb=1", "--set", "service.bind=127.0.0.1",
+             "--set", "service.port=0", "--set", "service.advertise=false", "--test", "shop-2",
+             "--virtual-control", "0"],
+            stdout=subprocess.DEVNULL, stderr=err,
+        )  # fmt: skip
+    run_file = tmp_path / "run.json"
+    try:
+        deadline = time.monotonic() + 30
+        while not run_file.exists():
+            assert proc.poll() is None, log.read_text()
+            assert time.monotonic() < deadline, "run.json never appeared"
+            time.sleep(0.05)
+        record = json.loads(run_file.read_text())
+        assert record["pid"] == proc.pid and record["bind"] == "127.0.0.1"
+        assert get(f"http://127.0.0.1:{record['port']}/v1/info")[0] == 200
+        with socket.create_connection(("127.0.0.1", record["control_port"]), timeout=5) as s:
+            s.sendall(b'{"op": "state"}\n')
+            with s.makefile("rb") as lines:
+                reply = json.loads(lines.readline())
+        assert reply["ok"] is True
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(timeout=15)
+    assert code == 0
+    assert not run_file.exists()
