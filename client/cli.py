@@ -22,9 +22,7 @@ app = typer.Typer(
 )
 
 # Stages of the whole job that the demo cannot show yet, in data-flow order.
-NOT_YET = (
-    "pull into a local mirror, export for fitting, quick-look check (workstation client)",
-)
+NOT_YET = ("pull into a local mirror, export for fitting, quick-look check (workstation client)",)
 
 
 @app.callback()

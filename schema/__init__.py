@@ -47,3 +47,7 @@ TXT_API: Final = "api"
 TXT_ID: Final = "id"
 TXT_RUN: Final = "run"
 TXT_TEST: Final = "test"
+
+WARNING_CODES: Final = frozenset({"undecayed"})
+"""Finding codes of a hit that warn without rejecting (every other code on a rejected hit is
+a reason for rejecting it). Codes a reader does not know are counted as reasons."""
