@@ -22,6 +22,7 @@ import re
 import secrets
 import threading
 from collections.abc import Coroutine, Mapping, Sequence
+from pathlib import Path
 from typing import Any, Final, Literal, TypeVar
 
 import ifaddr
@@ -53,6 +54,22 @@ _T = TypeVar("_T")
 def new_rig_id() -> str:
     """A fresh random rig id (48 bits, 12 hex digits) for a rig's configuration to keep."""
     return secrets.token_hex(6)
+
+
+RIG_ID_FILE: Final = "rig-id"
+
+
+def rig_id(state_dir: Path) -> str:
+    """This rig's stable id, made on first start and kept in the state folder."""
+    path = state_dir / RIG_ID_FILE
+    try:
+        text = path.read_text(encoding="ascii").strip()
+    except FileNotFoundError:
+        text = ""
+    if not text:
+        text = new_rig_id()
+        path.write_text(text + "\n", encoding="ascii")
+    return text
 
 
 def encode_txt(entries: Mapping[str, str]) -> bytes:

@@ -19,7 +19,7 @@ from typing import Any
 
 from zeroconf import InterfaceChoice
 
-from .advertise import Advertiser, Interfaces, new_rig_id
+from .advertise import Advertiser, Interfaces, rig_id
 from .auth import Auth
 from .rig import RigEvent
 from .runner import RunningRig
@@ -27,22 +27,8 @@ from .service import Service
 
 log = logging.getLogger(__name__)
 
-RIG_ID_FILE = "rig-id"
 RUN_FILE = "run.json"
 """Written in the state folder while the service listens: where a local tool finds the rig."""
-
-
-def rig_id(state_dir: Path) -> str:
-    """This rig's stable id, made on first start and kept in the state folder."""
-    path = state_dir / RIG_ID_FILE
-    try:
-        text = path.read_text(encoding="ascii").strip()
-    except FileNotFoundError:
-        text = ""
-    if not text:
-        text = new_rig_id()
-        path.write_text(text + "\n", encoding="ascii")
-    return text
 
 
 async def serve(
@@ -60,8 +46,9 @@ async def serve(
     """
     cfg = running.config
     auth = Auth(cfg.store.data_dir)
+    identity = rig_id(cfg.store.data_dir)
     service = Service(
-        running, auth, host=cfg.service.bind, port=cfg.service.port,
+        running, auth, host=cfg.service.bind, port=cfg.service.port, rig_id=identity,
         max_body=cfg.service.max_request_kb * 1024,
     )  # fmt: skip
     stop = asyncio.Event()
@@ -75,9 +62,7 @@ async def serve(
         if cfg.service.advertise:
             where = cfg.service.announce_addresses
             interfaces: Interfaces = where if where else InterfaceChoice.All
-            advertiser = Advertiser(
-                cfg.rig.name, rig_id(cfg.store.data_dir), service.port, interfaces=interfaces
-            )
+            advertiser = Advertiser(cfg.rig.name, identity, service.port, interfaces=interfaces)
             name = await advertiser.async_start(**_state(running))
             log.info("announced on the LAN as %s", name)
             _follow_state(running, advertiser, loop)

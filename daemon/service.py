@@ -42,6 +42,7 @@ from aiohttp import web
 from taprig.schema import API_VERSION, wire
 
 from . import __version__
+from .advertise import rig_id as _rig_id
 from .errors import ConfigError, SessionError, StoreError, TaprigError
 from .records import GridPoint, RovingMode
 from .store import Store, TestPlan, import_grid_csv
@@ -556,6 +557,7 @@ class Service:
 
     host, port: where to listen (port 0: any free port). max_body: largest request body in
     bytes (413 beyond). rig_name: reported by /v1/info (default: the configured rig name).
+    rig_id: the rig's stable id, reported by /v1/info (default: the one in the state folder).
     heartbeat_s: comment interval on idle event streams. body_cache_bytes: encoded point sets
     kept for the next reader (0: none).
     """
@@ -569,6 +571,7 @@ class Service:
         port: int = 0,
         max_body: int = 1 << 20,
         rig_name: str | None = None,
+        rig_id: str | None = None,
         heartbeat_s: float = HEARTBEAT_S,
         body_cache_bytes: int = BODY_CACHE_BYTES,
     ) -> None:
@@ -576,6 +579,7 @@ class Service:
         self.store, self.rig = running.store, running.rig
         self.host, self.port, self.max_body = host, port, max_body
         self.rig_name = rig_name if rig_name is not None else running.config.rig.name
+        self.rig_id = rig_id if rig_id is not None else _rig_id(running.config.store.data_dir)
         self.heartbeat_s = heartbeat_s
         self._runner: web.AppRunner | None = None
         self._loop: asyncio.AbstractEventLoop | None = None
@@ -740,7 +744,7 @@ class Service:
 
     async def _on_info(self, call: Call) -> web.StreamResponse:
         return json_response({
-            "rig": self.rig_name, "api_version": API_VERSION,
+            "rig": self.rig_name, "rig_id": self.rig_id, "api_version": API_VERSION,
             "schema_version": wire.SCHEMA_VERSION, "daemon_version": __version__,
         })  # fmt: skip
 

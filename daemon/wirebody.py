@@ -6,17 +6,12 @@ so the body a workstation pulls is the body of exactly what was committed.
 
 from __future__ import annotations
 
-import base64
-
 from taprig.schema import wire
+from taprig.schema.wire import content_digest
 
 from .records import PointSet
 
-
-def content_digest(body: bytes) -> str:
-    """The Content-Digest header value of `body`: its SHA-256 (RFC 9530 §2)."""
-    sha = base64.b64encode(bytes.fromhex(wire.digest(body))).decode()
-    return f"sha-256=:{sha}:"
+__all__ = ["content_digest", "encode_body"]
 
 
 def encode_body(point_set_id: int, ps: PointSet) -> tuple[int, str, bytes]:

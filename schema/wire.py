@@ -28,6 +28,7 @@ element-wise comparison of arrays has no single truth value.
 
 from __future__ import annotations
 
+import base64
 import dataclasses
 import hashlib
 import math
@@ -1004,3 +1005,19 @@ def wants_msgpack(accept_header: str | None) -> bool:
 def digest(data: bytes) -> str:
     """SHA-256 of `data` as 64 lower-case hex digits (FIPS 180-4), to verify a transfer."""
     return hashlib.sha256(data).hexdigest()
+
+
+def content_digest(body: bytes | memoryview) -> str:
+    """The Content-Digest header value of `body`: its SHA-256 (RFC 9530 §2), as the rig sends."""
+    return "sha-256=:" + base64.b64encode(hashlib.sha256(body).digest()).decode() + ":"
+
+
+def digest_matches(header: str | None, body: bytes | memoryview) -> bool:
+    """True when a Content-Digest header carries the SHA-256 of `body` (other algorithms in
+    the same header are ignored; no sha-256 entry at all is a mismatch)."""
+    want = content_digest(body)[len("sha-256=") :]
+    for entry in (header or "").split(","):
+        name, _, value = entry.strip().partition("=")
+        if name.strip().lower() == "sha-256" and value.strip() == want:
+            return True
+    return False

@@ -216,7 +216,8 @@ def test_public_endpoints_need_no_token(running: RunningRig, auth: Auth) -> None
             async with api.http.get("/v1/info") as resp:
                 assert resp.status == 200
                 info = await resp.json()
-            assert info == {"rig": "bench-rig", "api_version": API_VERSION,
+            rig_id = (running.config.store.data_dir / "rig-id").read_text().strip()
+            assert info == {"rig": "bench-rig", "rig_id": rig_id, "api_version": API_VERSION,
                             "schema_version": wire.SCHEMA_VERSION,
                             "daemon_version": __version__}  # fmt: skip
             async with api.http.get("/v1/health") as resp:
