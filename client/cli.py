@@ -1,18 +1,31 @@
 """`taprig`: the workstation client's command line.
 
-Logging is configured here and only here.
+Logging is configured here and only here; errors become exit codes in one place (`_guard`).
+Every command takes `--json` and then prints one JSON document on stdout.
 """
 
 from __future__ import annotations
 
+import contextlib
 import json
-import subprocess
+import logging
+import signal
 import sys
 import tempfile
+import threading
+from collections.abc import Callable, Iterator
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
+
+from .errors import ClientError
+
+if TYPE_CHECKING:
+    from .mirror import Mirror
+    from .pull import PullReport
+    from .remote import RigClient
+    from .rigs import PairedRig
 
 app = typer.Typer(
     help="taprig workstation client: find rigs, pull completed point sets, export them.",
@@ -21,17 +34,258 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
 )
 
-# Stages of the whole job that the demo cannot show yet, in data-flow order.
-NOT_YET = ("pull into a local mirror, export for fitting, quick-look check (workstation client)",)
+# Options several commands share, declared once.
+JsonOption = Annotated[bool, typer.Option("--json", help="print one JSON document")]
+RigArgument = Annotated[
+    str | None, typer.Argument(help="a paired rig's name or id (default: the only one)")
+]
+RigOption = Annotated[
+    str | None, typer.Option("--rig", help="a paired rig's name or id (default: the only one)")
+]
+VerboseOption = Annotated[bool, typer.Option("--verbose", "-v", help="log at debug level")]
 
 
 @app.callback()
-def _root() -> None:
+def _root(verbose: VerboseOption = False) -> None:
     """taprig workstation client."""
+    logging.basicConfig(
+        level=logging.DEBUG if verbose else logging.WARNING,
+        format="%(asctime)s %(levelname)s %(name)s: %(message)s",
+    )
 
 
-def _daemon(*args: str) -> list[str]:
-    return [sys.executable, "-m", "taprig.daemon", *args]
+@contextlib.contextmanager
+def _guard() -> Iterator[None]:
+    """Client errors → one line on stderr and the error's exit code."""
+    try:
+        yield
+    except ClientError as exc:
+        typer.echo(f"taprig: {exc}", err=True)
+        raise typer.Exit(code=exc.exit_code) from None
+    except ValueError as exc:  # bad option values found past typer (bands, addresses, data)
+        typer.echo(f"taprig: {exc}", err=True)
+        raise typer.Exit(code=2) from None
+
+
+def _emit(as_json: bool, obj: Any, lines: Callable[[], list[str]]) -> None:
+    if as_json:
+        typer.echo(json.dumps(obj, indent=1, default=str))
+    else:
+        for line in lines():
+            typer.echo(line)
+
+
+def _paired(which: str | None) -> PairedRig:
+    from .rigs import Places, RigBook
+
+    return RigBook(Places.from_env()).find(which)
+
+
+def _client(rig: PairedRig) -> RigClient:
+    from .remote import RigClient
+
+    return RigClient(rig.url, rig.token)
+
+
+def _mirror(rig: PairedRig) -> Mirror:
+    from .mirror import Mirror
+    from .rigs import Places
+
+    return Mirror(Places.from_env().mirror_path(rig.rig_id))
+
+
+# ---------------------------------------------------------------- the LAN
+
+
+@app.command()
+def discover(
+    timeout: Annotated[float, typer.Option(min=0.5, help="how long to listen, seconds")] = 3.0,
+    as_json: JsonOption = False,
+) -> None:
+    """List the rigs announcing themselves on the LAN (mDNS)."""
+    from .discover import discover as browse
+
+    with _guard():
+        rigs = browse(timeout)
+    rows: list[dict[str, Any]] = [
+        {"name": r.name, "id": r.rig_id, "addresses": list(r.addresses), "port": r.port,
+         "api": r.api, "running": r.running, "test": r.test} for r in rigs
+    ]  # fmt: skip
+
+    def lines() -> list[str]:
+        if not rigs:
+            return [f"no rig answered within {timeout:g} s"]
+        out = []
+        for r in rigs:
+            where = f"{r.addresses[0]}:{r.port}" if r.addresses else "?"
+            state = f"running {r.test}" if r.running else "idle"
+            out.append(f"{r.name:<24} {r.rig_id:<14} http://{where:<22} {state}")
+        return out
+
+    _emit(as_json, {"rigs": rows}, lines)
+
+
+@app.command()
+def pair(
+    url: Annotated[str, typer.Argument(help="the pairing address `taprigd pair` printed")],
+    as_json: JsonOption = False,
+) -> None:
+    """Remember a rig and its token (in the user's config folder, file mode 0600)."""
+    from .remote import RigClient
+    from .rigs import PairedRig, Places, RigBook, parse_pairing_url
+
+    with _guard():
+        base, token = parse_pairing_url(url)
+        with RigClient(base, token) as client:
+            info = client.info()
+            client.state()  # the token works (401 otherwise)
+        rig = PairedRig(info.rig_id, info.name, base, token)
+        book = RigBook(Places.from_env())
+        book.save(rig)
+    obj = {"name": rig.name, "id": rig.rig_id, "url": rig.url, "file": str(book.places.rigs_file)}
+    _emit(as_json, obj, lambda: [f"paired with {rig.name} ({rig.rig_id}) at {rig.url}"])
+
+
+@app.command()
+def status(rig: RigArgument = None, as_json: JsonOption = False) -> None:
+    """The rig's state: device, link, current test and point, armed or not."""
+    with _guard():
+        paired = _paired(rig)
+        with _client(paired) as client:
+            state = client.state()
+
+    def lines() -> list[str]:
+        s, link = state["session"], state["session"]["link"]
+        device = state.get("device") or {}
+        return [
+            f"rig      {state['rig']} ({paired.rig_id}) at {paired.url}",
+            f"device   {s['device']} {s['state']}"
+            + (f", {device.get('id')} at {device.get('rate_hz'):g} Hz" if device else ""),
+            f"link     CRC errors {link['crc_errors']}, samples lost {link['samples_lost']}, "
+            f"resyncs {link['resyncs']}, reconnects {link['reconnects']}",
+            f"test     {s['test'] or '-'}; point {s['point'] or '-'} "
+            f"({s['averages']}/{s['required']} averages), {len(s['done'])} points done, "
+            + ("armed" if s["armed"] else "not armed"),
+            f"changes  last seq {state['last_seq']}",
+        ]
+
+    _emit(as_json, state, lines)
+
+
+@app.command()
+def tests(rig: RigArgument = None, as_json: JsonOption = False) -> None:
+    """The rig's tests, with what the local mirror holds of each."""
+    with _guard():
+        paired = _paired(rig)
+        with _client(paired) as client:
+            found = client.tests()
+            points = client.points()
+        with _mirror(paired) as mirror:
+            here = mirror.counts()
+    on_rig: dict[str, int] = {}
+    for p in points:
+        on_rig[p.test] = on_rig.get(p.test, 0) + 1
+    rows = [{"name": t.name, "roving_mode": t.roving_mode, "reference": t.reference,
+             "grid_points": len(t.grid), "averages": t.averages, "created_utc": t.created_utc,
+             "point_sets_on_rig": on_rig.get(t.name, 0),
+             "point_sets_mirrored": here.get(t.name, 0)} for t in found]  # fmt: skip
+
+    def lines() -> list[str]:
+        out = [f"{r['name']:<24} {r['roving_mode']:<7} {r['grid_points']:>4} points  "
+               f"{r['point_sets_on_rig']:>4} point sets on the rig, "
+               f"{r['point_sets_mirrored']:>4} mirrored" for r in rows]  # fmt: skip
+        return out or ["no tests yet"]
+
+    _emit(as_json, {"tests": rows}, lines)
+
+
+# ---------------------------------------------------------------- pulling
+
+
+def _report_json(report: PullReport, mirror: Path) -> dict[str, Any]:
+    return {"tests": report.tests, "point_sets": report.point_sets,
+            "already_here": report.already_here, "bytes": report.bytes,
+            "seconds": round(report.seconds, 3), "cursor": report.cursor,
+            "mirror": str(mirror)}  # fmt: skip
+
+
+@app.command()
+def pull(
+    rig: RigArgument = None,
+    test: Annotated[str | None, typer.Option(help="only this test's point sets")] = None,
+    as_json: JsonOption = False,
+) -> None:
+    """Bring the local mirror up to date: new tests and point sets, verified by checksum.
+
+    Safe to stop at any moment and run again: nothing is fetched twice or missed.
+    """
+    from .pull import pull as do_pull
+
+    with _guard():
+        paired = _paired(rig)
+        with _client(paired) as client, _mirror(paired) as mirror, _progress(as_json) as bar:
+            report = do_pull(client, mirror, test, progress=bar)
+            path = mirror.path
+    obj = _report_json(report, path)
+    _emit(as_json, obj, lambda: [
+        f"{report.point_sets} new point sets ({report.bytes / 1e6:.1f} MB, "
+        f"{report.mb_per_s:.1f} MB/s), {report.tests} tests, {report.already_here} already "
+        f"here; mirror {path}"])  # fmt: skip
+
+
+@contextlib.contextmanager
+def _progress(quiet: bool) -> Iterator[Callable[[int, int], None] | None]:
+    """A progress bar on a terminal for pulls of more than a few point sets, else nothing."""
+    if quiet or not sys.stderr.isatty():
+        yield None
+        return
+    bar: Any = None
+    shown = 0
+
+    def update(done: int, total: int) -> None:
+        nonlocal bar, shown
+        if bar is None and total > 5:
+            bar = typer.progressbar(length=total, label="pulling", file=sys.stderr)
+            bar.__enter__()
+        if bar is not None:
+            bar.update(done - shown)
+            shown = done
+
+    try:
+        yield update
+    finally:
+        if bar is not None:
+            bar.__exit__(None, None, None)
+
+
+@app.command()
+def watch(rig: RigArgument = None, as_json: JsonOption = False) -> None:
+    """Follow the rig: pull each point set as it completes, until interrupted."""
+    from .pull import watch as follow
+
+    stop = threading.Event()
+    signal.signal(signal.SIGTERM, lambda *_: stop.set())
+
+    def on_pull(report: PullReport) -> None:
+        for s in report.new:
+            if as_json:
+                row = {"test": s.test, "point": s.point, "version": s.version, "id": s.id,
+                       "seq": s.seq, "n_averages": s.n_averages}  # fmt: skip
+                typer.echo(json.dumps(row))
+            else:
+                typer.echo(f"{s.completed_utc}  {s.test}/{s.point} v{s.version}: "
+                           f"{s.n_averages} averages (change {s.seq})")  # fmt: skip
+
+    with _guard():
+        paired = _paired(rig)
+        with _client(paired) as client, _mirror(paired) as mirror:
+            if not as_json:
+                typer.echo(f"following {paired.name} at {paired.url}; Ctrl-C to stop")
+            with contextlib.suppress(KeyboardInterrupt):
+                follow(client, mirror, on_pull, stop.is_set)
+
+
+# ---------------------------------------------------------------- the mirror, offline
 
 
 @app.command()
@@ -39,55 +293,17 @@ def demo(
     out: Annotated[
         Path | None, typer.Option(help="folder for the demo's files (default: a new temp folder)")
     ] = None,
-    seconds: Annotated[float, typer.Option(min=5.0, help="how long the rig captures")] = 20.0,
+    plots: Annotated[bool, typer.Option(help="draw the PNG plots (needs the plots extra)")] = True,
 ) -> None:
-    """Run the whole job on the virtual instrument and show what each stage delivers."""
+    """Run the whole job on the virtual instrument: capture, pull, export, check, plots."""
+    from .demo import run_demo
+
     folder = out if out is not None else Path(tempfile.mkdtemp(prefix="taprig-demo-"))
-    folder.mkdir(parents=True, exist_ok=True)
-    truth = folder / "truth.json"
-    typer.echo(f"taprig demo: a virtual aluminium access panel on a rig; files in {folder}")
-    typer.echo("-- 1. device link check (taprigd probe, virtual instrument on a pseudo-terminal)")
-    probe = subprocess.run(
-        _daemon("probe", "--device", "virtual", "--seconds", "2", "--taps", "3"),
-        capture_output=True, text=True, timeout=90,
-    )  # fmt: skip
-    for line in probe.stdout.splitlines():
-        typer.echo(f"   {line}")
-    if probe.returncode != 0:
-        typer.echo(probe.stderr, err=True)
-        raise typer.Exit(code=1)
-    typer.echo(f"-- 2. capture (taprigd run): a simulated operator taps the grid for {seconds:g} s")
-    events = _capture(folder, truth, seconds)
-    done = [e for e in events if e["kind"] == "completed"]
-    rejected = [e for e in events if e["kind"] == "hit" and not e["accepted"]]
-    for e in done:
-        typer.echo(f"   point {e['point']}: {e['averages']} averages stored (change {e['seq']})")
-    for e in rejected:
-        reasons = "; ".join(text for _code, text in e["rejections"])
-        typer.echo(f"   rejected at {e['point']}: {reasons}")
-    typer.echo(f"   {len(done)} point sets in {folder / 'rig' / 'taprig.sqlite3'}")
-    typer.echo(f"-- true modal model of the virtual panel: {truth}")
-    for stage in NOT_YET:
-        typer.echo(f"-- not yet: {stage}")
-    if not done:
-        raise typer.Exit(code=1)
-
-
-def _capture(folder: Path, truth: Path, seconds: float) -> list[dict[str, Any]]:
-    cmd = _daemon(
-        "run", "--set", f"store.data_dir={folder / 'rig'}", "--set", "store.min_free_mb=1",
-        # The demo stays on this machine: loopback only, no announcement on the LAN.
-        "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
-        "--set", "service.advertise=false",
-        "--set", "capture.averages=3", "--test", "demo-panel", "--virtual-taps", "0.6",
-        "--virtual-double-hits", "0.15", "--duration", str(seconds), "--truth", str(truth),
-        "--json-events",
-    )  # fmt: skip
-    result = subprocess.run(cmd, capture_output=True, text=True, timeout=seconds + 60)
-    if result.returncode != 0:
-        typer.echo(result.stderr, err=True)
-        raise typer.Exit(code=1)
-    return [json.loads(line) for line in result.stdout.splitlines() if line.startswith("{")]
+    typer.echo(f"taprig demo: a roving-hammer test of a virtual aluminium panel; files in {folder}")
+    with _guard():
+        result = run_demo(folder, typer.echo, plots=plots)
+    typer.echo(f"-- done in {result.seconds:.1f} s: {result.npz}, {result.check}, {result.truth}")
+    typer.echo(result.check.read_text(encoding="utf-8").split("\n\n")[0])
 
 
 def main() -> None:

@@ -1,0 +1,229 @@
+"""The one-command demo: a whole roving-hammer test on the virtual instrument, end to end.
+
+`run_demo` starts `taprigd` on its virtual instrument (a simulated aluminium panel) in a
+temporary state folder, and a simulated operator drives the test through the rig's HTTP
+API exactly as the phone page or a script would: create the test, select, arm, tap every
+grid point until it has its averages (the hammer itself is the instrument's control port,
+the one thing an operator does with a hand rather than a request), with a few double hits
+that the rig rejects and one point measured again with *redo*. The client then pulls the
+rig into a mirror, exports the test, runs the quick-look check, draws the plots, and stops
+everything it started.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Final
+
+from .errors import ClientError
+from .mirror import Mirror
+from .pull import PullReport, pull
+from .remote import RigClient, RigError
+
+TEST_NAME: Final = "demo-panel"
+AVERAGES: Final = 3
+DOUBLE_HIT_TAPS: Final = (4, 17, 41, 66)  # the n-th taps of the session strike twice
+REDO_POINT_INDEX: Final = 6  # the operator measures this grid point again (redo)
+START_TIMEOUT_S: Final = 30.0
+HIT_TIMEOUT_S: Final = 5.0  # a tap must show up as a hit within this, seconds
+
+Say = Callable[[str], None]
+
+
+@dataclass(slots=True)
+class DemoResult:
+    """Where the demo's files went and what the operator did."""
+
+    folder: Path
+    npz: Path
+    truth: Path
+    check: Path
+    plots: list[Path] = field(default_factory=list)
+    taps: int = 0
+    rejected: list[tuple[str, str]] = field(default_factory=list)  # (point, reason)
+    redone: str | None = None
+    pulled: PullReport | None = None
+    seconds: float = 0.0
+
+
+class Hammer:
+    """The virtual instrument's control port: strikes a point (JSON lines over loopback)."""
+
+    def __init__(self, port: int) -> None:
+        self._sock = socket.create_connection(("127.0.0.1", port), timeout=10)
+        self._lines = self._sock.makefile("rb")
+
+    def tap(self, point: str, double_hit: bool = False) -> None:
+        request = {"op": "tap", "point": point, "double_hit": double_hit, "overload": False}
+        self._sock.sendall((json.dumps(request) + "\n").encode())
+        reply = json.loads(self._lines.readline() or b"{}")
+        if not reply.get("ok"):
+            raise ClientError(f"the virtual hammer did not strike {point}: {reply}")
+
+    def close(self) -> None:
+        self._lines.close()
+        self._sock.close()
+
+
+@contextlib.contextmanager
+def rig_process(state: Path, truth: Path, log: Path) -> Iterator[dict[str, Any]]:
+    """`taprigd run` on the virtual instrument, loopback only; yields its run.json record."""
+    cmd = [
+        sys.executable, "-m", "taprig.daemon", "run",
+        "--set", f"store.data_dir={state}", "--set", "store.min_free_mb=1",
+        "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
+        "--set", "service.advertise=false", "--set", "rig.name=demo-rig",
+        "--set", f"capture.averages={AVERAGES}", "--set", "capture.accept=auto",
+        "--virtual-control", "0", "--truth", str(truth),
+    ]  # fmt: skip
+    with log.open("w") as err:
+        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=err)
+    try:
+        run_file = state / "run.json"
+        deadline = time.monotonic() + START_TIMEOUT_S
+        while not run_file.exists():
+            if proc.poll() is not None:
+                raise ClientError(f"taprigd stopped at start:\n{log.read_text()[-2000:]}")
+            if time.monotonic() > deadline:
+                raise ClientError(f"taprigd did not start in {START_TIMEOUT_S:g} s")
+            time.sleep(0.05)
+        yield json.loads(run_file.read_text())
+    finally:
+        if proc.poll() is None:
+            proc.send_signal(signal.SIGTERM)
+            try:
+                proc.wait(timeout=20)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait()
+
+
+def operate(rig: RigClient, hammer: Hammer, truth: dict[str, Any], say: Say) -> DemoResult:
+    """The simulated operator: one roving-hammer pass over the truth model's grid."""
+    result = DemoResult(Path(), Path(), Path(), Path())
+    points: dict[str, list[float]] = truth["points"]
+    labels: list[str] = truth.get("grid", list(points))
+    grid = [{"label": p, "x": points[p][0], "y": points[p][1], "z": points[p][2]} for p in labels]
+    rig.create_test(TEST_NAME, grid, averages=AVERAGES, roving_mode="hammer",
+                    reference=labels[0], sensor_points=truth.get("sensors", {}))  # fmt: skip
+    _wait_for_device(rig)
+    rig.act("select", test=TEST_NAME)
+    rig.act("arm")
+    redo_point = labels[REDO_POINT_INDEX % len(labels)]
+    redo_pending = True
+    while True:
+        state = rig.state()
+        session = state["session"]
+        if len(session["done"]) == len(labels):
+            break
+        point = session["point"]
+        if point == redo_point and redo_pending and session["averages"] == AVERAGES - 1:
+            say(f"   {point}: the operator is unhappy with a tap and measures the point again")
+            rig.act("redo")
+            result.redone, redo_pending = point, False
+            continue
+        result.taps += 1
+        double = result.taps in DOUBLE_HIT_TAPS
+        before = _last_hit_index(rig)
+        hammer.tap(point, double_hit=double)
+        deadline = time.monotonic() + HIT_TIMEOUT_S
+        while (last := _last_hit(rig)) is None or last["first_index"] == before:
+            if time.monotonic() > deadline:
+                raise ClientError(f"the tap at {point} never reached the rig")
+            time.sleep(0.01)
+        if not last["accepted"]:
+            reason = "; ".join(str(r["message"]) for r in last["rejections"]) or "rejected"
+            result.rejected.append((point, reason))
+            say(f"   {point}: tap rejected by the rig: {reason}")
+    rig.act("disarm")
+    return result
+
+
+def _last_hit(rig: RigClient) -> dict[str, Any] | None:
+    try:
+        return rig.last_hit()
+    except RigError as exc:
+        if exc.status == 404:  # no hit yet
+            return None
+        raise
+
+
+def _last_hit_index(rig: RigClient) -> int | None:
+    last = _last_hit(rig)
+    return None if last is None else int(last["first_index"])
+
+
+def _wait_for_device(rig: RigClient) -> None:
+    deadline = time.monotonic() + START_TIMEOUT_S
+    while rig.state().get("device") is None:
+        if time.monotonic() > deadline:
+            raise ClientError("the virtual instrument never identified itself")
+        time.sleep(0.05)
+
+
+def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
+    """The whole demo; files in `out` (created). Raises ClientError when a stage fails."""
+    started = time.perf_counter()
+    out.mkdir(parents=True, exist_ok=True)
+    truth_path = out / "truth.json"
+    state = Path(tempfile.mkdtemp(prefix="taprig-demo-rig-"))
+    try:
+        say("-- 1. taprigd on the virtual instrument (a 600 x 400 x 3 mm aluminium panel)")
+        with rig_process(state, truth_path, out / "taprigd.log") as record:
+            url = f"http://127.0.0.1:{record['port']}"
+            token = (state / "token").read_text(encoding="ascii").strip()
+            truth = json.loads(truth_path.read_text(encoding="utf-8"))
+            say(f"   serving on {url}/v1; grid of {len(truth.get('grid', truth['points']))} "
+                f"points, {AVERAGES} averages each")  # fmt: skip
+            say("-- 2. a simulated operator drives the roving hammer over HTTP")
+            hammer = Hammer(int(record["control_port"]))
+            try:
+                with RigClient(url, token) as rig:
+                    result = operate(rig, hammer, truth, say)
+                    say(f"   {result.taps} taps, {len(result.rejected)} rejected, "
+                        f"point {result.redone} measured again")  # fmt: skip
+                    say("-- 3. the workstation pulls the rig into its mirror")
+                    mirror_path = out / "mirror" / "demo-rig.sqlite3"
+                    with Mirror(mirror_path) as mirror:
+                        result.pulled = pull(rig, mirror)
+                        p = result.pulled
+                        say(f"   {p.point_sets} point sets, {p.bytes / 1e6:.1f} MB verified by "
+                            f"checksum in {p.seconds:.2f} s -> {mirror_path}")  # fmt: skip
+                        data = mirror.load(TEST_NAME)
+            finally:
+                hammer.close()
+        result.folder, result.truth = out, truth_path
+        say("-- 4. export, quick-look check and plots")
+        from .check import check_test, report_text
+        from .export import export
+
+        result.npz = export(data, out / f"{TEST_NAME}.npz", "npz")
+        checked = check_test(data)
+        result.check = out / "check.txt"
+        result.check.write_text(report_text(checked), encoding="utf-8")
+        say(f"   {result.npz.name} (for fitting), {result.check.name}, truth.json")
+        if plots:
+            try:
+                from .plots import plot_all
+
+                result.plots = plot_all(data, checked, out / "plots")
+                say(f"   {len(result.plots)} plots in {out / 'plots'}")
+            except ImportError as exc:
+                say(f"   no plots: {exc}")
+        result.seconds = time.perf_counter() - started
+        return result
+    finally:
+        if os.environ.get("TAPRIG_DEMO_KEEP_RIG") != "1":
+            shutil.rmtree(state, ignore_errors=True)

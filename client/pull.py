@@ -1,0 +1,179 @@
+"""Incremental pulls from a rig's change feed into its mirror, and following it (`watch`).
+
+A whole pull reads the feed after the mirror's cursor, fetches every new test and point set
+(bodies verified by checksum), and stores them in order in batches; each batch commits the
+data and the cursor together. A pull for one test reads the same feed but fetches only that
+test's point sets and leaves the cursor alone, so a later whole pull still sees every change
+(and skips what is already here).
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Final
+
+from taprig.schema import wire
+
+from .errors import ClientError
+from .mirror import MAX_BODY, Mirror, MirroredPointSet
+from .remote import RigClient, RigUnreachable
+
+log = logging.getLogger(__name__)
+
+BATCH_BYTES: Final = 16 << 20  # a batch commits after this many body bytes
+BATCH_S: Final = 1.0  # ... or after this long, seconds
+WATCH_WAIT_S: Final = 25.0  # long-poll of the change feed while watching, seconds
+RECONNECT_S: Final = (0.5, 1.0, 2.0, 5.0)  # waits between attempts to reach a lost rig
+
+Progress = Callable[[int, int], None]
+"""progress(point sets done, point sets to fetch)."""
+
+
+@dataclass(slots=True)
+class PullReport:
+    """What one pull did: tests and point sets stored, already present, bytes, seconds."""
+
+    tests: int = 0
+    point_sets: int = 0
+    already_here: int = 0
+    bytes: int = 0
+    seconds: float = 0.0
+    cursor: int = 0
+    new: list[wire.WirePointSetSummary] = field(default_factory=list)
+
+    @property
+    def mb_per_s(self) -> float:
+        return self.bytes / 1e6 / self.seconds if self.seconds > 0 else 0.0
+
+
+def feed(client: RigClient, since: int) -> list[wire.WireChange]:
+    """Every change after `since`, in order (all pages)."""
+    out: list[wire.WireChange] = []
+    while True:
+        changes, last, more = client.changes(since)
+        out.extend(changes)
+        if not more or not changes:
+            return out
+        since = last
+
+
+def pull(
+    client: RigClient,
+    mirror: Mirror,
+    test: str | None = None,
+    progress: Progress | None = None,
+) -> PullReport:
+    """Bring `mirror` up to date with the rig (only `test`'s point sets when given)."""
+    started = time.perf_counter()
+    info = client.info()
+    mirror.bind(info.rig_id, info.name, client.url)
+    report = PullReport(cursor=mirror.cursor())
+    changes = feed(client, report.cursor)
+    if test is not None:
+        client.test(test)  # a RigError 404 for a test the rig does not have
+        changes = [c for c in changes if c.test == test]
+    wanted = [c for c in changes if c.kind == "point_set" and c.point_set_id is not None
+              and not mirror.has_point_set(c.point_set_id)]  # fmt: skip
+    if progress is not None:
+        progress(0, len(wanted))
+    tests = {t.name: t for t in client.tests()}
+    batch: list[tuple[wire.WireChange, MirroredPointSet | wire.WireTest | None]] = []
+    batch_bytes, batch_start = 0, time.perf_counter()
+    for change in changes:
+        item: MirroredPointSet | wire.WireTest | None = None
+        if change.kind == "test":
+            item = tests.get(change.test) or client.test(change.test)
+        elif change.point_set_id is not None:
+            if mirror.has_point_set(change.point_set_id):
+                report.already_here += 1  # pulled earlier with --test
+            else:
+                item = _fetch(client, change.point_set_id)
+                batch_bytes += len(item.body)
+        batch.append((change, item))
+        if batch_bytes >= BATCH_BYTES or time.perf_counter() - batch_start >= BATCH_S:
+            _store(mirror, batch, report, advance=test is None)
+            if progress is not None:
+                progress(report.point_sets, len(wanted))
+            batch, batch_bytes, batch_start = [], 0, time.perf_counter()
+    _store(mirror, batch, report, advance=test is None)
+    if progress is not None:
+        progress(report.point_sets, len(wanted))
+    report.seconds = time.perf_counter() - started
+    return report
+
+
+def _fetch(client: RigClient, point_set_id: int) -> MirroredPointSet:
+    body = client.point_set_body(point_set_id)
+    # Decoded once, strictly: a body that passes the checksum but not the schema is refused
+    # here, before it reaches the mirror.
+    try:
+        ps = wire.point_set_from_obj(wire.unpack(body.data, max_bytes=MAX_BODY))
+    except wire.SchemaError as exc:
+        raise ClientError(f"point set {point_set_id} from the rig is not readable: {exc}") from None
+    summary = wire.WirePointSetSummary(
+        ps.id, ps.test, ps.point, ps.version, ps.seq, ps.completed_utc, ps.n_averages
+    )
+    if ps.id != point_set_id:
+        raise ClientError(f"asked for point set {point_set_id}, the rig sent {ps.id}")
+    return MirroredPointSet(summary, body.digest, body.data)
+
+
+def _store(
+    mirror: Mirror,
+    batch: list[tuple[wire.WireChange, MirroredPointSet | wire.WireTest | None]],
+    report: PullReport,
+    advance: bool,
+) -> None:
+    if not batch:
+        return
+    with mirror.transaction():
+        for change, item in batch:
+            if isinstance(item, wire.WireTest):
+                mirror.put_test(item)
+                report.tests += 1
+            elif isinstance(item, MirroredPointSet):
+                if mirror.put_point_set(item):
+                    report.point_sets += 1
+                    report.bytes += len(item.body)
+                    report.new.append(item.summary)
+                else:
+                    report.already_here += 1
+            if advance:
+                mirror.set_cursor(change.seq)
+                report.cursor = change.seq
+
+
+def watch(
+    client: RigClient,
+    mirror: Mirror,
+    on_pull: Callable[[PullReport], None],
+    stop: Callable[[], bool],
+    wait_s: float = WATCH_WAIT_S,
+) -> None:
+    """Pull, then wait on the change feed and pull each change as it lands, until `stop()`.
+
+    A rig that stops answering is tried again after 0.5, 1, 2, then every 5 s; the mirror
+    keeps what it has meanwhile.
+    """
+    failures = 0
+    while not stop():
+        try:
+            report = pull(client, mirror)
+            on_pull(report)
+            failures = 0
+            if stop():
+                return
+            client.changes(report.cursor, wait_s=wait_s)  # returns early on a new change
+        except RigUnreachable as exc:
+            delay = RECONNECT_S[min(failures, len(RECONNECT_S) - 1)]
+            if failures == 0:
+                log.warning("%s; trying again", exc)
+            else:
+                log.debug("%s; next try in %g s", exc, delay)
+            failures += 1
+            end = time.monotonic() + delay
+            while not stop() and time.monotonic() < end:
+                time.sleep(0.05)
