@@ -98,6 +98,10 @@ class RigClient:
 
     # -- plumbing
 
+    def clone(self) -> RigClient:
+        """Another client of the same rig with its own connection (for another thread)."""
+        return RigClient(self.url, self._token, self.timeout_s)
+
     def close(self) -> None:
         """Drop the kept-alive connection; idempotent, and the client may be used again."""
         if self._conn is not None:

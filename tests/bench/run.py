@@ -14,6 +14,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import bench_capture
 import bench_decode
+import bench_pull
 import bench_service
 import bench_spectra
 import bench_text_input
@@ -31,6 +32,8 @@ def main() -> None:
     bench_spectra.show(bench_spectra.run(20 if quick else 200))
     print("== service: pulls over loopback, empty changes poll")
     bench_service.show(bench_service.run(20 if quick else 200))
+    print("== client: full pull into an empty mirror")
+    bench_pull.show(bench_pull.run(20 if quick else 200), decimals=2)
     print("== capture: daemon CPU, memory, per-hit latency")
     bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
 
