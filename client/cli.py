@@ -12,7 +12,6 @@ import logging
 import signal
 import sys
 import tempfile
-import threading
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
@@ -100,13 +99,19 @@ def _mirror(rig: PairedRig) -> Mirror:
 @app.command()
 def discover(
     timeout: Annotated[float, typer.Option(min=0.5, help="how long to listen, seconds")] = 3.0,
+    interface: Annotated[
+        list[str] | None,
+        typer.Option(help="listen only on this interface address (repeatable; default: all)"),
+    ] = None,
     as_json: JsonOption = False,
 ) -> None:
     """List the rigs announcing themselves on the LAN (mDNS)."""
+    from zeroconf import InterfaceChoice
+
     from .discover import discover as browse
 
     with _guard():
-        rigs = browse(timeout)
+        rigs = browse(timeout, interface or InterfaceChoice.All)
     rows: list[dict[str, Any]] = [
         {"name": r.name, "id": r.rig_id, "addresses": list(r.addresses), "port": r.port,
          "api": r.api, "running": r.running, "test": r.test} for r in rigs
@@ -263,8 +268,7 @@ def watch(rig: RigArgument = None, as_json: JsonOption = False) -> None:
     """Follow the rig: pull each point set as it completes, until interrupted."""
     from .pull import watch as follow
 
-    stop = threading.Event()
-    signal.signal(signal.SIGTERM, lambda *_: stop.set())
+    signal.signal(signal.SIGTERM, _interrupt)  # stop as Ctrl-C does, even mid long-poll
 
     def on_pull(report: PullReport) -> None:
         for s in report.new:
@@ -282,7 +286,11 @@ def watch(rig: RigArgument = None, as_json: JsonOption = False) -> None:
             if not as_json:
                 typer.echo(f"following {paired.name} at {paired.url}; Ctrl-C to stop")
             with contextlib.suppress(KeyboardInterrupt):
-                follow(client, mirror, on_pull, stop.is_set)
+                follow(client, mirror, on_pull, lambda: False)
+
+
+def _interrupt(signum: int, frame: object) -> None:
+    raise KeyboardInterrupt
 
 
 # ---------------------------------------------------------------- the mirror, offline
