@@ -9,10 +9,12 @@ from __future__ import annotations
 import contextlib
 import json
 import logging
+import math
 import signal
 import sys
 import tempfile
 from collections.abc import Callable, Iterator
+from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
 
@@ -294,6 +296,96 @@ def _interrupt(signum: int, frame: object) -> None:
 
 
 # ---------------------------------------------------------------- the mirror, offline
+
+
+def _band(text: str | None) -> tuple[float, float] | None:
+    """(F1, F2) Hz of a band written F1:F2; ValueError naming it otherwise."""
+    if text is None:
+        return None
+    lo, sep, hi = text.partition(":")
+    try:
+        band = (float(lo), float(hi))
+    except ValueError:
+        band = (math.nan, math.nan)
+    if not sep or not (math.isfinite(band[0]) and math.isfinite(band[1]) and
+                       0 <= band[0] < band[1]):  # fmt: skip
+        raise ValueError(f"--band {text!r}: write F1:F2 in Hz with 0 <= F1 < F2, e.g. 20:2000")
+    return band
+
+
+class Format(StrEnum):
+    npz = "npz"
+    hdf5 = "hdf5"
+    csv = "csv"
+
+
+class Quantity(StrEnum):
+    accelerance = "accelerance"
+    mobility = "mobility"
+    receptance = "receptance"
+
+
+BandOption = Annotated[
+    str | None, typer.Option("--band", help="only F1 <= f <= F2, written F1:F2 in Hz")
+]
+
+
+@app.command()
+def export(
+    test: Annotated[str, typer.Argument(help="the test to export (from the local mirror)")],
+    fmt: Annotated[Format, typer.Option("--format", help="file format")] = Format.npz,
+    quantity: Annotated[
+        Quantity, typer.Option("--as", help="FRF quantity: as measured, or divided by iω, -ω²")
+    ] = Quantity.accelerance,
+    band: BandOption = None,
+    out: Annotated[
+        Path | None, typer.Option(help="file to write (default: <test>.<format> here)")
+    ] = None,
+    rig: RigOption = None,
+    as_json: JsonOption = False,
+) -> None:
+    """Write a mirrored test for fitting elsewhere: npz, HDF5 or CSV (works offline)."""
+    from .export import export as write
+
+    with _guard():
+        paired = _paired(rig)
+        with _mirror(paired) as mirror:
+            data = mirror.load(test)
+        suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
+        path = write(data, out or Path(f"{test}{suffix}"), fmt.value, quantity.value, _band(band))
+    obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
+           "quantity": quantity.value, "format": fmt.value}  # fmt: skip
+    _emit(as_json, obj, lambda: [f"{len(data.points)} points of {test} as {quantity.value} "
+                                 f"-> {path}"])  # fmt: skip
+
+
+@app.command()
+def check(
+    test: Annotated[str, typer.Argument(help="the test to check (from the local mirror)")],
+    band: BandOption = None,
+    plots: Annotated[
+        Path | None, typer.Option(help="also draw PNG plots into this folder (plots extra)")
+    ] = None,
+    rig: RigOption = None,
+    as_json: JsonOption = False,
+) -> None:
+    """Quick-look report: averages, rejections, coherence, force band, a mode table."""
+    from .check import CheckSettings, report_text
+    from .check import check as run_check
+
+    with _guard():
+        paired = _paired(rig)
+        with _mirror(paired) as mirror:
+            data = mirror.load(test)
+        result = run_check(data, CheckSettings(band_hz=_band(band)))
+        drawn: list[Path] = []
+        if plots is not None:
+            from .plots import write_plots
+
+            drawn = write_plots(data, result, plots)
+    obj = {**result.to_dict(), "plots": [str(p) for p in drawn]}
+    _emit(as_json, obj, lambda: [report_text(result).rstrip("\n"),
+                                 *(f"plot {p}" for p in drawn)])  # fmt: skip
 
 
 @app.command()

@@ -206,19 +206,19 @@ def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
                 hammer.close()
         result.folder, result.truth = out, truth_path
         say("-- 4. export, quick-look check and plots")
-        from .check import check_test, report_text
+        from .check import check, report_text
         from .export import export
 
         result.npz = export(data, out / f"{TEST_NAME}.npz", "npz")
-        checked = check_test(data)
+        checked = check(data)
         result.check = out / "check.txt"
         result.check.write_text(report_text(checked), encoding="utf-8")
         say(f"   {result.npz.name} (for fitting), {result.check.name}, truth.json")
         if plots:
             try:
-                from .plots import plot_all
+                from .plots import write_plots
 
-                result.plots = plot_all(data, checked, out / "plots")
+                result.plots = write_plots(data, checked, out / "plots")
                 say(f"   {len(result.plots)} plots in {out / 'plots'}")
             except ImportError as exc:
                 say(f"   no plots: {exc}")
