@@ -13,6 +13,7 @@ Policy that lets the page load and connect to nothing but this rig.
 from __future__ import annotations
 
 import hashlib
+from collections.abc import Awaitable, Callable
 from dataclasses import dataclass
 from importlib import resources
 from typing import Final
@@ -72,7 +73,7 @@ def add_routes(app: web.Application, files: dict[str, StaticFile]) -> None:
         app.router.add_get(STATIC_PREFIX + name, _handler(item))
 
 
-def _handler(item: StaticFile) -> web.Handler:
+def _handler(item: StaticFile) -> Callable[[web.Request], Awaitable[web.StreamResponse]]:
     async def handler(request: web.Request) -> web.StreamResponse:
         headers = {**HEADERS, "ETag": item.etag}
         if item.etag in _tags(request.headers.get("If-None-Match", "")):

@@ -37,9 +37,7 @@ class LossyProxy:
 
     def start(self) -> LossyProxy:
         self._thread.start()
-        self._server = self._call(
-            lambda: asyncio.start_server(self._serve, "127.0.0.1", 0)
-        )
+        self._server = self._call(lambda: asyncio.start_server(self._serve, "127.0.0.1", 0))
         self.port = int(self._server.sockets[0].getsockname()[1])
         return self
 

@@ -83,7 +83,7 @@ def pair(d: WebDriver, base: str, token: str) -> str:
     """Open the pairing address as a phone camera would; the current point once live."""
     d.get(f"{base}/pair#token={token}")
     wait(d, "a live event stream", lambda d: text(d, "link-chip") == "live")
-    return wait(d, "the current point", lambda d: text(d, "point").strip("–") or None)
+    return str(wait(d, "the current point", lambda d: text(d, "point").strip("–") or None))
 
 
 def verdict(d: WebDriver) -> str:
@@ -173,7 +173,7 @@ def test_pair_tap_reject_complete_and_move_on(tmp_path: Path) -> None:
         click(d, "previous")
         wait(d, "the point before", lambda d: text(d, "point") == "A2")
         shot(d, tmp_path / "5-moved.png")
-        logs = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
+        logs = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]  # type: ignore[attr-defined]
         # The only failure a console may show: the last hit asked for before any tap (404).
         assert all("/v1/hits/last" in e["message"] for e in logs), logs
 
@@ -214,7 +214,7 @@ def test_automatic_accept_a_wifi_drop_and_a_lost_answer(tmp_path: Path) -> None:
         wait(d, "the next point", lambda d: text(d, "point") == "A2")
 
         def sent() -> list[bytes]:
-            return [body for line, body in net.requests if line.startswith("POST /v1/session/next ")]
+            return [b for line, b in net.requests if line.startswith("POST /v1/session/next ")]
 
         wait(d, "the retry", lambda d: len(sent()) == 2)
         wait(d, "the retry answered", lambda d: d.find_element(By.ID, "next").is_enabled())
