@@ -101,8 +101,12 @@ export class EventStream {
     this.controller = null;
     this.reconnects = -1;
     addEventListener("online", () => this.now());
+    this.heard = 0; // Date.now() of the last bytes from the stream
     document.addEventListener("visibilitychange", () => {
-      if (document.visibilityState === "visible") this.now();
+      if (document.visibilityState !== "visible") return;
+      // A phone that slept may hold a connection that died meanwhile: start a fresh one.
+      if (this.controller && Date.now() - this.heard > 20000) this.controller.abort();
+      this.now();
     });
   }
 
@@ -138,7 +142,11 @@ export class EventStream {
     const controller = new AbortController();
     this.controller = controller;
     let watchdog = 0;
-    const kick = () => { clearTimeout(watchdog); watchdog = setTimeout(() => controller.abort(), SILENCE_MS); };
+    const kick = () => {
+      this.heard = Date.now();
+      clearTimeout(watchdog);
+      watchdog = setTimeout(() => controller.abort(), SILENCE_MS);
+    };
     try {
       kick();
       const r = await fetch("/v1/events", { headers: this.rig.headers(), cache: "no-store",

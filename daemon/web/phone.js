@@ -82,6 +82,9 @@ function linkStatus(state, detail) {
   const chip = $("link-chip");
   chip.dataset.state = state;
   chip.textContent = { live: "live", connecting: "connecting…", down: "no link", unpaired: "not paired" }[state];
+  // "connecting" right after "down" is still no link: the strip stays until the stream is live.
+  if (state === "live" || state === "unpaired") $("offline").hidden = true;
+  else if (state === "down") $("offline").hidden = false;
   renderHealth();
 }
 
@@ -236,10 +239,14 @@ function renderGrid() {
 function renderHealth() {
   const s = model.session;
   const st = model.state;
-  $("h-stream").textContent = model.link === "live" ? "live"
-    : `${model.link}${model.linkDetail ? ` (${model.linkDetail})` : ""}`;
+  const again = stream && stream.reconnects > 0 ? `, reconnected ${stream.reconnects}×` : "";
+  $("h-stream").textContent = model.link === "live" ? `live${again}`
+    : `${model.link}${model.linkDetail ? ` (${model.linkDetail})` : ""}${again}`;
   const dev = st && st.device;
-  $("h-device").textContent = s ? `${s.state}${dev ? ` · ${dev.id}, firmware ${dev.firmware}` : ""}` : "–";
+  const why = model.device && model.device.state !== "connected" && model.device.detail
+    ? ` (${model.device.detail})` : "";
+  $("h-device").textContent = s
+    ? `${s.state}${why}${dev ? ` · ${dev.id}, firmware ${dev.firmware}` : ""}` : "–";
   $("h-rate").textContent = s && s.rate_hz ? `${num(s.rate_hz / 1000)} kHz` : "–";
   const l = s && s.link;
   $("h-link").textContent = l ? `${l.crc_errors} bad frames, ${l.samples_lost} samples lost, `

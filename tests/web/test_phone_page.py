@@ -198,12 +198,15 @@ def test_automatic_accept_a_wifi_drop_and_a_lost_answer(tmp_path: Path) -> None:
         # The Wi-Fi drops; a tap lands while the phone is away; the Wi-Fi comes back.
         net.cut()
         wait(d, "the link lost", lambda d: text(d, "link-chip") != "live")
+        wait(d, "the warning", lambda d: d.find_element(By.ID, "offline").is_displayed())
         shot(d, tmp_path / "1-no-link.png")
         rig.tap(point)
         net.restore()
         wait(d, "the link back", lambda d: text(d, "link-chip") == "live")
         wait(d, "the missed tap caught up", lambda d: text(d, "avg-text") == "average 2 of 3")
         wait(d, "the missed tap drawn", lambda d: data(d, "plot-force", "stamp") != first)
+        assert text(d, "h-stream").startswith("live, reconnected")
+        assert not d.find_element(By.ID, "offline").is_displayed()
 
         # The answer to "next" is lost after the rig acted: the page retries the same
         # request id, the rig answers from memory, and the cursor moves one point only.
@@ -222,6 +225,13 @@ def test_automatic_accept_a_wifi_drop_and_a_lost_answer(tmp_path: Path) -> None:
         assert json.loads(sent()[0])["request_id"].startswith("ph-")
         assert state(rig)["session"]["point"] == "A2"
         shot(d, tmp_path / "2-after-retry.png")
+
+        # The device's cable is pulled and plugged back: the health line follows.
+        rig.control(op="unplug")
+        wait(d, "the device lost", lambda d: not text(d, "h-device").startswith("connected"))
+        shot(d, tmp_path / "3-device-unplugged.png")
+        rig.control(op="replug")
+        wait(d, "the device back", lambda d: text(d, "h-device").startswith("connected"))
 
     assert rig.token not in rig.log.read_text()
 
