@@ -412,7 +412,7 @@ async function chooseTest() {
     const b = document.createElement("button");
     b.type = "button";
     b.className = "big";
-    b.textContent = `${t.name} · ${t.points} points`;
+    b.textContent = `${t.name} · ${t.grid.length} points`;
     if (model.session && t.name === model.session.test) b.setAttribute("aria-current", "true");
     b.addEventListener("click", () => { $("tests").close(); act("select", { test: t.name }); });
     return b;

@@ -41,6 +41,70 @@ return n;
 """
 
 
+# Every control a thumb may need, as (what, width, height) in CSS pixels.
+CONTROLS = """
+return [...document.querySelectorAll("button, input, #grid .pt")]
+  .filter((e) => e.getClientRects().length && !e.closest("[hidden]"))
+  .map((e) => { const r = e.getBoundingClientRect();
+                return [e.id || e.dataset.label || e.textContent.trim(), r.width, r.height]; });
+"""
+# (what, text colour, background colour) of the page's words, the background being that of
+# the nearest element that paints one.
+COLOURS_SEEN = """
+const ground = (e) => {
+  for (; e; e = e.parentElement) {
+    const c = getComputedStyle(e).backgroundColor;
+    if (c !== "rgba(0, 0, 0, 0)" && c !== "transparent") return c;
+  }
+  return "rgb(255, 255, 255)";
+};
+return [...document.querySelectorAll(arguments[0])]
+  .filter((e) => e.getClientRects().length && !e.disabled && e.textContent.trim())
+  .map((e) => [e.id || e.textContent.trim(), getComputedStyle(e).color, ground(e)]);
+"""
+WORDS = "#point, #avg-text, #verdict-title, #verdict-detail, figcaption, button, .chip, #h-stream"
+
+
+def luminance(css: str) -> float:
+    """Relative luminance of an sRGB colour "rgb(r, g, b)" (WCAG 2.1, definitions)."""
+    r, g, b = (int(v) / 255 for v in css[css.index("(") + 1 : css.index(")")].split(",")[:3])
+
+    def linear(c: float) -> float:
+        return c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4
+
+    return 0.2126 * linear(r) + 0.7152 * linear(g) + 0.0722 * linear(b)
+
+
+def contrast(fg: str, bg: str) -> float:
+    """(L1 + 0.05) / (L2 + 0.05), the lighter over the darker (WCAG 2.1, "contrast ratio")."""
+    hi, lo = sorted((luminance(fg), luminance(bg)), reverse=True)
+    return (hi + 0.05) / (lo + 0.05)
+
+
+def check_legible_and_thumb_sized(d: WebDriver) -> None:
+    """Words at least 7:1 against their ground, the enhanced level of WCAG 2.1 SC 1.4.6 (W3C,
+    Web Content Accessibility Guidelines 2.1, 2018), for a screen in a bright workshop; every
+    control at least 48 × 48 CSS px (common practice for touch targets; WCAG 2.1 SC 2.5.5
+    asks 44); nothing wider than the phone held upright."""
+    seen = d.execute_script(COLOURS_SEEN, WORDS)
+    assert len(seen) > 10
+    for what, fg, bg in seen:
+        assert contrast(fg, bg) >= 7.0, (what, fg, bg, contrast(fg, bg))
+    controls = d.execute_script(CONTROLS)
+    assert len(controls) > 10
+    for what, w, h in controls:
+        assert w >= 48 and h >= 48, (what, w, h)
+    assert d.execute_script("return document.documentElement.scrollWidth <= innerWidth")
+
+
+def test_contrast_ratio_matches_the_published_extremes() -> None:
+    """Black on white is 21:1 and a colour on itself 1:1 (WCAG 2.1, "contrast ratio" note)."""
+    assert contrast("rgb(0, 0, 0)", "rgb(255, 255, 255)") == 21.0
+    assert contrast("rgb(118, 118, 118)", "rgb(118, 118, 118)") == 1.0
+    # #767676 on white: the lightest grey commonly quoted as passing 4.5:1 (from memory: 4.54).
+    assert 4.5 < contrast("rgb(118, 118, 118)", "rgb(255, 255, 255)") < 4.6
+
+
 def text(d: WebDriver, element_id: str) -> str:
     """The element's text as written (WebDriver's .text would apply CSS text-transform)."""
     return str(d.find_element(By.ID, element_id).get_attribute("textContent")).strip()
@@ -116,7 +180,10 @@ def test_pair_tap_reject_complete_and_move_on(tmp_path: Path) -> None:
         click(d, "arm")
         wait(d, "the rig armed", lambda d: text(d, "armed") == "armed")
         assert state(rig)["session"]["armed"] is True
+        click(d, "sound")  # chimes from here on: any error in them would reach the console
+        assert d.find_element(By.ID, "sound").get_attribute("aria-pressed") == "true"
         shot(d, tmp_path / "1-paired.png")
+        check_legible_and_thumb_sized(d)
 
         # A clean tap is held for the operator; its force and response are drawn at once.
         rig.tap(point)
@@ -124,6 +191,7 @@ def test_pair_tap_reject_complete_and_move_on(tmp_path: Path) -> None:
         first = wait(d, "the force plot", lambda d: data(d, "plot-force", "stamp"))
         assert pixels(d, "plot-force", FORCE) > 50 and pixels(d, "plot-response", FIRST) > 50
         assert d.find_element(By.ID, "accept").is_enabled()
+        check_legible_and_thumb_sized(d)
         click(d, "accept")
         wait(d, "the tap counted", lambda d: verdict(d) == "Counted 1 of 2")
         wait(d, "the FRF so far", lambda d: int(data(d, "plot-frf", "points") or 0) > 0)
@@ -138,6 +206,7 @@ def test_pair_tap_reject_complete_and_move_on(tmp_path: Path) -> None:
         assert pixels(d, "plot-coherence", FIRST) + pixels(d, "plot-coherence", SECOND) > 50
         assert text(d, "avg-text") == "average 1 of 2"
         shot(d, tmp_path / "2-counted.png")
+        check_legible_and_thumb_sized(d)
 
         # A double hit is rejected, with the reason in plain words, and its record drawn.
         rig.tap(point, double_hit=True)
@@ -147,6 +216,7 @@ def test_pair_tap_reject_complete_and_move_on(tmp_path: Path) -> None:
         assert text(d, "avg-text") == "average 1 of 2"
         assert not d.find_element(By.ID, "accept").is_enabled()
         shot(d, tmp_path / "3-double-hit.png")
+        check_legible_and_thumb_sized(d)
 
         # The second average completes the point; the rig moves on and the grid shows it.
         rig.tap(point)
@@ -158,6 +228,7 @@ def test_pair_tap_reject_complete_and_move_on(tmp_path: Path) -> None:
         a1 = d.find_element(By.CSS_SELECTOR, '#grid [data-label="A1"]')
         assert "done" in (a1.get_attribute("class") or "")
         shot(d, tmp_path / "4-point-done.png")
+        check_legible_and_thumb_sized(d)
 
         # Next moves at once when nothing would be lost...
         click(d, "next")
@@ -200,6 +271,7 @@ def test_automatic_accept_a_wifi_drop_and_a_lost_answer(tmp_path: Path) -> None:
         wait(d, "the link lost", lambda d: text(d, "link-chip") != "live")
         wait(d, "the warning", lambda d: d.find_element(By.ID, "offline").is_displayed())
         shot(d, tmp_path / "1-no-link.png")
+        check_legible_and_thumb_sized(d)
         rig.tap(point)
         net.restore()
         wait(d, "the link back", lambda d: text(d, "link-chip") == "live")
@@ -255,3 +327,17 @@ def test_unpaired_page_asks_for_pairing_and_a_wrong_token_is_refused(tmp_path: P
         d.find_element(By.CSS_SELECTOR, "#pair-form button").click()
         wait(d, "a live event stream", lambda d: text(d, "link-chip") == "live")
         shot(d, tmp_path / "paired-by-hand.png")
+
+        # The test can be chosen on the phone; choosing it again starts at its first open point.
+        click(d, "next")
+        wait(d, "the next point", lambda d: text(d, "point") == "A2")
+        click(d, "test-button")
+        choice = wait(
+            d, "the tests", lambda d: d.find_elements(By.CSS_SELECTOR, "#test-list button")
+        )
+        assert [c.text for c in choice] == ["shop-panel · 30 points"]
+        assert choice[0].get_attribute("aria-current") == "true"
+        check_legible_and_thumb_sized(d)
+        choice[0].click()
+        wait(d, "the test chosen again", lambda d: text(d, "point") == "A1")
+        assert not d.find_element(By.ID, "tests").is_displayed()
