@@ -18,6 +18,7 @@ function make(tag, attrs) {
 export function drawGrid(svg, points, status, here, onPick) {
   svg.replaceChildren();
   if (!points.length) return;
+  points = planView(points);
   const xs = points.map((p) => p.x);
   const ys = points.map((p) => p.y);
   const x0 = Math.min(...xs);
@@ -45,6 +46,17 @@ export function drawGrid(svg, points, status, here, onPick) {
     if (onPick) g.addEventListener("click", () => onPick(p.label));
     svg.append(g);
   }
+}
+
+/**
+ * The points as drawn: at their x and y, unless two of them would land on one spot (a grid
+ * with no coordinates, or points one above the other in z); then in rows, in grid order.
+ */
+function planView(points) {
+  const spots = new Set(points.map((p) => `${p.x.toPrecision(9)},${p.y.toPrecision(9)}`));
+  if (spots.size === points.length) return points;
+  const columns = Math.ceil(Math.sqrt(points.length));
+  return points.map((p, i) => ({ label: p.label, x: i % columns, y: -Math.floor(i / columns) }));
 }
 
 /** The smallest positive difference between sorted distinct values (Infinity if none). */

@@ -105,6 +105,20 @@ def test_contrast_ratio_matches_the_published_extremes() -> None:
     assert 4.5 < contrast("rgb(118, 118, 118)", "rgb(255, 255, 255)") < 4.6
 
 
+# Draw a grid with the page's own module into a detached SVG; the circles' centres back.
+DRAW_GRID = """
+const [points, done] = arguments;
+import("/web/grid.js").then(({ drawGrid }) => {
+  const svg = document.createElementNS("http://www.w3.org/2000/svg", "svg");
+  drawGrid(svg, points, () => "todo", points[0].label, null);
+  done([...svg.querySelectorAll("g")].map((g) => {
+    const c = g.querySelectorAll("circle")[1];
+    return [g.dataset.label, Number(c.getAttribute("cx")), Number(c.getAttribute("cy"))];
+  }));
+});
+"""
+
+
 def text(d: WebDriver, element_id: str) -> str:
     """The element's text as written (WebDriver's .text would apply CSS text-transform)."""
     return str(d.find_element(By.ID, element_id).get_attribute("textContent")).strip()
@@ -341,3 +355,13 @@ def test_unpaired_page_asks_for_pairing_and_a_wrong_token_is_refused(tmp_path: P
         choice[0].click()
         wait(d, "the test chosen again", lambda d: text(d, "point") == "A1")
         assert not d.find_element(By.ID, "tests").is_displayed()
+
+        # The plan: x to the right, y up; points on one spot are laid out in rows instead.
+        plan = d.execute_async_script(DRAW_GRID, [{"label": "O", "x": 0, "y": 0},
+                                                  {"label": "R", "x": 0.1, "y": 0},
+                                                  {"label": "U", "x": 0, "y": 0.1}])  # fmt: skip
+        (o, ox, oy), (r, rx, ry), (u, ux, uy) = plan
+        assert (o, r, u) == ("O", "R", "U") and rx > ox and ry == oy and uy < oy and ux == ox
+        stacked = [{"label": f"P{i}", "x": 0.2, "y": 0.3} for i in range(5)]
+        centres = {(x, y) for _, x, y in d.execute_async_script(DRAW_GRID, stacked)}
+        assert len(centres) == 5
