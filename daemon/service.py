@@ -10,6 +10,9 @@ through `asyncio.to_thread`. Rig events arrive on the rig's processing thread an
 to the loop with `loop.call_soon_threadsafe`, then fanned out to the server-sent event
 streams and to the long-polls of /v1/changes.
 
+The phone page (daemon/page.py, files in daemon/web/) is added beside the table, outside
+/v1, by `make_app`: static files that need no token.
+
 Errors are mapped to statuses in one place, `error_of`. Control requests carry a
 client-chosen ``request_id``; the outcome of each is remembered (bounded, least recently
 used first out) and a retry with the same id gets the same response without acting again.

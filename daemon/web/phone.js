@@ -388,7 +388,6 @@ function wireControls() {
   for (const [id, action] of [["previous", "previous"], ["next", "next"], ["redo", "redo"]]) {
     $(id).addEventListener("click", (e) => {
       const b = e.currentTarget;
-      if (pending && pending.button === b) b.textContent = pending.text;
       const what = { previous: "◀", next: "▶", redo: "Redo" }[id];
       if (confirmed(id, b, drops(what))) { notice(""); act(action, {}, b); }
     });

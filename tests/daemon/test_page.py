@@ -60,6 +60,12 @@ def test_page_and_its_files_need_no_token_and_carry_their_types(
             # The page is public; what it does is not.
             async with http.get("/v1/state") as r:
                 assert r.status == 401
+            # What the page needs of the state: the accept policy and each channel's role.
+            status, body = await api.get("/v1/state")
+            assert status == 200 and body["accept"] == "auto"
+            expected = sorted(running.config.channels, key=lambda c: c.index)
+            assert body["channels"] == [{"label": c.label, "role": c.role.value} for c in expected]
+            assert [c["role"] for c in body["channels"]].count("force") == 1
             async with http.post("/v1/session/arm", json={"request_id": "page-test-1"}) as r:
                 assert r.status == 401
 
