@@ -10,6 +10,9 @@ through `asyncio.to_thread`. Rig events arrive on the rig's processing thread an
 to the loop with `loop.call_soon_threadsafe`, then fanned out to the server-sent event
 streams and to the long-polls of /v1/changes.
 
+The phone page (daemon/page.py, files in daemon/web/) is added beside the table, outside
+/v1, by `make_app`: static files that need no token.
+
 Errors are mapped to statuses in one place, `error_of`. Control requests carry a
 client-chosen ``request_id``; the outcome of each is remembered (bounded, least recently
 used first out) and a retry with the same id gets the same response without acting again.
@@ -41,7 +44,7 @@ from aiohttp import web
 
 from taprig.schema import API_VERSION, wire
 
-from . import __version__
+from . import __version__, page
 from .advertise import rig_id as _rig_id
 from .errors import ConfigError, SessionError, StoreError, TaprigError
 from .records import GridPoint, RovingMode
@@ -592,6 +595,7 @@ class Service:
         """Long-polls of /v1/changes waiting for a change right now."""
         self._log_filter = auth.log_filter()
         self._bodies = BodyCache(body_cache_bytes)
+        self._web: dict[str, page.StaticFile] = {}
 
     # -- lifecycle (event loop)
 
@@ -607,6 +611,7 @@ class Service:
             self._subscribed = True
         for name in REDACTED_LOGGERS:
             logging.getLogger(name).addFilter(self._log_filter)
+        self._web = await asyncio.to_thread(page.load)  # the phone page, read once
         runner = web.AppRunner(self.make_app(), access_log_format=ACCESS_LOG_FORMAT,
                                shutdown_timeout=SHUTDOWN_S)  # fmt: skip
         await runner.setup()
@@ -637,6 +642,8 @@ class Service:
         app = web.Application(client_max_size=self.max_body, middlewares=[self._errors])
         for route in ROUTES:
             app.router.add_route(route.method, route.path, self._bind(route))
+        if self._web:
+            page.add_routes(app, self._web)  # outside /v1: static files, no token
         return app
 
     # -- rig events (rig thread → loop)
@@ -770,7 +777,9 @@ class Service:
         return json_response({
             "rig": self.rig_name, "session": snapshot, "device": _device_json(self.rig.info),
             "hits_seen": stats.hits_seen, "hits_while_disarmed": stats.hits_while_disarmed,
-            "last_seq": last_seq,
+            "last_seq": last_seq, "accept": self.running.config.capture.accept.value,
+            "channels": [{"label": c.label, "role": str(c.role)}
+                         for c in sorted(self.running.config.channels, key=lambda c: c.index)],
         })  # fmt: skip
 
     async def _on_last_hit(self, call: Call) -> web.StreamResponse:

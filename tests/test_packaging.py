@@ -36,6 +36,13 @@ def test_wheel_installs_only_under_taprig(wheel: Path) -> None:
     assert not any("/c/" in n or n.endswith(".c") for n in names)
 
 
+def test_wheel_carries_the_phone_page(wheel: Path) -> None:
+    from taprig.daemon.page import FILES
+
+    names = set(zipfile.ZipFile(wheel).namelist())
+    assert {f"taprig/daemon/web/{n}" for n in FILES} <= names
+
+
 def test_wheel_declares_both_console_scripts(wheel: Path) -> None:
     z = zipfile.ZipFile(wheel)
     (ep,) = [n for n in z.namelist() if n.endswith("entry_points.txt")]

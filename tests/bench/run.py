@@ -15,6 +15,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import bench_capture
 import bench_decode
 import bench_pull
+import bench_phone
 import bench_service
 import bench_spectra
 import bench_text_input
@@ -36,6 +37,8 @@ def main() -> None:
     bench_pull.show(bench_pull.run(20 if quick else 200), decimals=2)
     print("== capture: daemon CPU, memory, per-hit latency")
     bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
+    print("== phone page: tap to plots in headless Chromium, page weight")
+    bench_phone.show(bench_phone.run(3 if quick else 10))
 
 
 if __name__ == "__main__":
