@@ -253,7 +253,7 @@ def force_band_tops(
     0 Hz, at least 4 lines); a row that never falls that far keeps every line.
     """
     g = np.atleast_2d(np.asarray(gff, dtype=np.float64))
-    n_low = max(4, int(round(low_fraction * (freq_hz.size - 1))))
+    n_low = max(4, round(low_fraction * (freq_hz.size - 1)))
     level = np.median(g[:, 1 : 1 + n_low], axis=1)
     below = g < (level * 10.0 ** (-drop_db / 10.0))[:, None]
     below[:, : 1 + n_low] = False  # the level's own lines never end the band
@@ -365,11 +365,11 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
         )
     lines = np.flatnonzero(in_band)
     lo, hi = int(lines[0]), int(lines[-1]) + 1
-    point_checks = tuple(_point_check(data, i, tops[i], in_band, band, s) for i in range(len(data.points)))
-    modes = _modes(data, lo, hi, s)
-    driving = tuple(
-        _driving_point(data, row, r, lo, hi, s) for row, r in data.driving_point_rows()
+    point_checks = tuple(
+        _point_check(data, i, tops[i], in_band, band, s) for i in range(len(data.points))
     )
+    modes = _modes(data, lo, hi, s)
+    driving = tuple(_driving_point(data, row, r, lo, hi, s) for row, r in data.driving_point_rows())
     return CheckResult(
         test=data.test,
         rig=data.rig,
@@ -496,7 +496,8 @@ def report_text(result: CheckResult) -> str:
     s = result.settings
     tau = "none" if math.isinf(result.exp_tau_s) else f"{result.exp_tau_s:.4g} s"
     lines = [
-        f"quick-look check of test {result.test!r}" + (f" (rig {result.rig})" if result.rig else ""),
+        f"quick-look check of test {result.test!r}"
+        + (f" (rig {result.rig})" if result.rig else ""),
         f"analysis band {result.band_hz[0]:.1f} to {result.band_hz[1]:.1f} Hz; "
         f"exponential window tau {tau}",
         "",
@@ -517,7 +518,8 @@ def report_text(result: CheckResult) -> str:
         "",
         f"modes ({len(result.modes)}): peaks of the summed |H1|; Q by half power, "
         "exponential window's share removed",
-        f"  {'#':>3} {'f (Hz)':>10} {'Q':>8} {'zeta %':>8} {'Q meas':>8} {'prom dB':>8}  shape from",
+        f"  {'#':>3} {'f (Hz)':>10} {'Q':>8} {'zeta %':>8} {'Q meas':>8} {'prom dB':>8}"
+        "  shape from",
     ]
     for n, m in enumerate(result.modes, 1):
         lines.append(
@@ -530,9 +532,7 @@ def report_text(result: CheckResult) -> str:
         lines.append("  none in this test")
     for dp in result.driving_points:
         verdict = "ok" if dp.ok else "SUSPECT"
-        lines.append(
-            f"  {dp.point} / {dp.response}: {verdict}; {len(dp.resonances_hz)} resonances"
-        )
+        lines.append(f"  {dp.point} / {dp.response}: {verdict}; {len(dp.resonances_hz)} resonances")
         if dp.wrong_sign_hz:
             hz = ", ".join(f"{f:.1f}" for f in dp.wrong_sign_hz)
             lines.append(f"    Im A <= 0 at resonance: {hz} Hz")

@@ -112,7 +112,9 @@ def export(
 
 
 def frf_arrays(
-    data: TestData, quantity: Quantity | str = "accelerance", band: tuple[float, float] | None = None
+    data: TestData,
+    quantity: Quantity | str = "accelerance",
+    band: tuple[float, float] | None = None,
 ) -> dict[str, Any]:
     """The exported arrays: freq (F',), H1, H2, coherence (P, R, F') and the meta JSON.
 
@@ -211,16 +213,17 @@ def _common(data: TestData) -> dict[str, np.ndarray]:
 
 
 def _write_npz(data: TestData, arrays: dict[str, Any], path: Path) -> None:
+    # Typed as Any: numpy's stub also has a bool keyword (allow_pickle) among the names.
+    named: dict[str, Any] = {
+        "freq": arrays["freq"],
+        "H1": arrays["H1"],
+        "H2": arrays["H2"],
+        "coherence": arrays["coherence"],
+        "meta": np.array(arrays["meta"], dtype=np.str_),
+        **_common(data),
+    }
     with open(path, "wb") as fh:
-        np.savez_compressed(
-            fh,
-            freq=arrays["freq"],
-            H1=arrays["H1"],
-            H2=arrays["H2"],
-            coherence=arrays["coherence"],
-            meta=np.array(arrays["meta"], dtype=np.str_),
-            **_common(data),
-        )
+        np.savez_compressed(fh, **named)
 
 
 def _write_hdf5(data: TestData, arrays: dict[str, Any], path: Path) -> None:

@@ -33,7 +33,6 @@ from taprig.firmware_protocol.virtual import (
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
 from taprig.schema import wire
 
-
 # Every mode of the demo panel decays at 12 /s (mass-proportional damping: C = αM gives
 # ζ_r = α/(2ω_r); Rayleigh, The Theory of Sound, 1877, §97, from memory), 2.9 % at the
 # first mode and 0.2 % at 1 kHz: a tap dies away to -60 dB in 0.58 s whatever its modes,

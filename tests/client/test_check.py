@@ -16,6 +16,7 @@ import pytest
 from scipy.signal import find_peaks
 from scipy.signal import peak_prominences as scipy_prominences
 
+from taprig.client import dataset
 from taprig.client.check import (
     CheckResult,
     CheckSettings,
@@ -25,7 +26,6 @@ from taprig.client.check import (
     pick_peaks,
     report_text,
 )
-from taprig.client import dataset
 from taprig.firmware_protocol.virtual import ModalModel, demo_panel, half_sine_spectrum
 
 from .analytic import analytic_test_data
@@ -220,9 +220,9 @@ def test_report_and_json(analytic: dataset.TestData) -> None:
 
 
 def test_bad_settings_and_bands_are_named(analytic: dataset.TestData) -> None:
-    with pytest.raises(ValueError, match="band 500.0:100.0 Hz"):
+    with pytest.raises(ValueError, match=r"band 500\.0:100\.0 Hz"):
         CheckSettings(band_hz=(500.0, 100.0))
     with pytest.raises(ValueError, match="min_prominence_db"):
         CheckSettings(min_prominence_db=2.0)
-    with pytest.raises(ValueError, match="band 5000.0:6000.0 Hz holds 0"):
+    with pytest.raises(ValueError, match=r"band 5000\.0:6000\.0 Hz holds 0"):
         check(analytic, CheckSettings(band_hz=(5000.0, 6000.0)))
