@@ -80,7 +80,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .dataset import TestData
+from .dataset import TestData, jsonable
 
 __all__ = [
     "CheckResult",
@@ -224,18 +224,8 @@ class CheckResult:
             row["ok"] = dp.ok
         for mode, row in zip(self.modes, out["modes"], strict=True):
             row["shape"] = list(mode.shape)
-        cleaned: dict[str, Any] = _jsonable(out)
+        cleaned: dict[str, Any] = jsonable(out)
         return cleaned
-
-
-def _jsonable(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 # --------------------------------------------------------------------------

@@ -17,11 +17,12 @@ direction      (P,)        unicode     "+z" ...: the direction measured at each 
 response       (R,)        unicode     sensor channel labels
 n_averages     (P,)        int64       accepted hits per point set
 exp_tau_s      ()          float64     exponential window time constant, s (inf: none)
-meta           ()          unicode     JSON: the point sets' metadata (rig, test, sample
-                                       rate, block, windows, channels and sensitivities,
-                                       device), plus quantity, unit, band_hz, roving mode,
-                                       reference, drive and response points, rejections,
-                                       and per row the point-set id, version and seq
+meta           ()          unicode     JSON (NaN, inf as null): the point sets' metadata
+                                       (rig, test, sample rate, block, windows, channels
+                                       and sensitivities, device), plus quantity, unit,
+                                       band_hz, roving mode, reference, drive and response
+                                       points, rejections, and per row the point-set id,
+                                       version and seq
 =============  ==========  ==========  ====================================================
 
 * npz: ``numpy.savez_compressed``; strings are numpy unicode arrays, so
@@ -58,7 +59,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from .dataset import TestData
+from .dataset import TestData, jsonable
 
 __all__ = ["FORMATS", "QUANTITIES", "UNITS", "export", "frf_arrays", "meta_json"]
 
@@ -146,7 +147,7 @@ def frf_arrays(
 
 
 def meta_json(data: TestData, quantity: str, band: tuple[float, float] | None) -> str:
-    """The export's metadata as one JSON text (non-finite numbers written as strings)."""
+    """The export's metadata as one JSON text (NaN and inf written as null)."""
     meta = {
         **data.meta,
         "quantity": quantity,
@@ -162,18 +163,7 @@ def meta_json(data: TestData, quantity: str, band: tuple[float, float] | None) -
         "versions": list(data.versions),
         "seqs": list(data.seqs),
     }
-    return json.dumps(_plain(meta), sort_keys=True, allow_nan=False)
-
-
-def _plain(value: Any) -> Any:
-    """JSON-ready copy: tuples as lists, inf/NaN as "inf"/"-inf"/"nan" strings."""
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_plain(v) for v in value]
-    if isinstance(value, float) and not math.isfinite(value):
-        return repr(value)
-    return value
+    return json.dumps(jsonable(meta), sort_keys=True, allow_nan=False)
 
 
 def _band_text(band: tuple[float, float] | None) -> str:

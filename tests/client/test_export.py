@@ -123,7 +123,9 @@ def test_quantities_follow_the_sdof_relations(tmp_path: Path) -> None:
         out = export(data, tmp_path / f"{quantity}.npz", "npz", quantity)
         with np.load(out, allow_pickle=False) as z:
             f, h = z["freq"], z["H1"][0, 0]
-            assert json.loads(str(z["meta"]))["unit"] == UNITS[quantity]
+            meta = json.loads(str(z["meta"]))
+            assert meta["unit"] == UNITS[quantity]
+            assert float(z["exp_tau_s"]) == math.inf and meta["exp_tau_s"] is None  # no window
         w = 2.0 * np.pi * f
         alpha = 1.0 / (w_n**2 - w**2 + 2j * zeta * w_n * w)
         want = {"accelerance": -(w**2) * alpha, "mobility": 1j * w * alpha, "receptance": alpha}
