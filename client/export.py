@@ -25,8 +25,9 @@ meta           ()          unicode     JSON (NaN, inf as null): the point sets' 
                                        version and seq
 =============  ==========  ==========  ====================================================
 
-* npz: ``numpy.savez_compressed``; strings are numpy unicode arrays, so
-  ``numpy.load(path, allow_pickle=False)`` reads every key.
+* npz: ``numpy.savez``, uncompressed: measured FRF floats compress only to about 0.6 of
+  their size, at several times the write time (tests/bench/bench_client.py). Strings are
+  numpy unicode arrays, so ``numpy.load(path, allow_pickle=False)`` reads every key.
 * HDF5 (optional extra ``hdf5``: ``pip install 'taprig[hdf5]'``): one dataset per name
   (strings as UTF-8), and the root attributes ``quantity``, ``unit`` and ``meta``.
 * CSV: ``#`` comment lines first (test, quantity, unit, exp_tau_s, meta JSON), then a
@@ -213,7 +214,7 @@ def _write_npz(data: TestData, arrays: dict[str, Any], path: Path) -> None:
         **_common(data),
     }
     with open(path, "wb") as fh:
-        np.savez_compressed(fh, **named)
+        np.savez(fh, **named)
 
 
 def _write_hdf5(data: TestData, arrays: dict[str, Any], path: Path) -> None:

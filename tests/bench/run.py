@@ -13,6 +13,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import bench_capture
+import bench_client
 import bench_decode
 import bench_service
 import bench_spectra
@@ -31,6 +32,8 @@ def main() -> None:
     bench_spectra.show(bench_spectra.run(20 if quick else 200))
     print("== service: pulls over loopback, empty changes poll")
     bench_service.show(bench_service.run(20 if quick else 200))
+    print("== client: quick-look check, exports, plots")
+    bench_client.show(bench_client.run(30 if quick else 210))
     print("== capture: daemon CPU, memory, per-hit latency")
     bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
 
