@@ -4,8 +4,8 @@ Entry point: ``write_plots(data, result, folder) -> list[Path]`` writes
 
 * ``frf-<point>.png``, one per measured point: three panels sharing the frequency axis,
   |H1| in dB re 1 (m/s²)/N, the phase of H1 in degrees, and the coherence, one curve per
-  response; the check's analysis band is shaded. One file per point keeps each small and
-  lets a reader open just the point that was flagged.
+  response, from 0 Hz to twice the top of the check's analysis band (shaded). One file
+  per point keeps each small and lets a reader open just the point that was flagged.
 * ``shape-<n>-<freq>Hz.png``, one per peak of the check (`client/check.py`): the
   deflection shape (Im H1 at the peak line, largest = 1) over the grid's x, y
   coordinates, colour and marker size by value, each point labelled.
@@ -17,6 +17,7 @@ these functions and used through its Agg canvas (no display, no global backend s
 
 from __future__ import annotations
 
+import math
 import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -52,12 +53,20 @@ def _safe(label: str) -> str:
     return re.sub(r"[^A-Za-z0-9._-]+", "_", label) or "_"
 
 
-def frf_figure(data: TestData, row: int, band_hz: tuple[float, float] | None = None) -> Figure:
-    """|H1| (dB re 1 (m/s²)/N), phase (deg) and coherence of one point, lines above 0 Hz."""
+def frf_figure(
+    data: TestData,
+    row: int,
+    band_hz: tuple[float, float] | None = None,
+    f_max_hz: float | None = None,
+) -> Figure:
+    """|H1| (dB re 1 (m/s²)/N), phase (deg) and coherence of one point.
+
+    Lines above 0 Hz up to `f_max_hz` (None: all); `band_hz` is shaded.
+    """
     fig = _figure(8.0, 7.0)
     mag, phase, coh = fig.subplots(3, 1, sharex=True)
     f = data.freq_hz
-    keep = f > 0.0
+    keep = (f > 0.0) & (f <= (math.inf if f_max_hz is None else f_max_hz))
     for r, label in enumerate(data.responses):
         h = data.h1[row, r, keep]
         with np.errstate(divide="ignore"):
@@ -115,10 +124,10 @@ def write_plots(data: TestData, result: CheckResult, folder: str | Path) -> list
     out = Path(folder)
     out.mkdir(parents=True, exist_ok=True)
     written = []
+    f_max = 2.0 * result.band_hz[1]  # the analysis band and what lies just above it
     for row, point in enumerate(data.points):
-        written.append(
-            _save(frf_figure(data, row, result.band_hz), out / f"frf-{_safe(point)}.png")
-        )
+        figure = frf_figure(data, row, result.band_hz, f_max)
+        written.append(_save(figure, out / f"frf-{_safe(point)}.png"))
     for n, mode in enumerate(result.modes, 1):
         path = out / f"shape-{n:02d}-{mode.freq_hz:.0f}Hz.png"
         written.append(_save(shape_figure(result, mode, n), path))
