@@ -60,7 +60,9 @@ def judged_modes(model: ModalModel, data: dataset.TestData, band: tuple[float, f
     """
     sigma = 0.0 if math.isinf(data.exp_tau_s) else 1.0 / data.exp_tau_s
     phi_rows = model.shapes_at(list(data.points))
-    phi_sensors = model.shapes_at(list(data.response_points[0]))
+    # The fixed end of every FRF: the sensors (roving hammer) or the struck point (roving sensor).
+    fixed = data.response_points[0] if data.roving_mode == "hammer" else data.drive_points[:1]
+    phi_sensors = model.shapes_at(list(fixed))
     pair = phi_rows[:, None, :] * phi_sensors[None, :, :]  # (P, R, modes)
     w, zeta, f_n = model.omega, model.damping_ratio, model.freqs_hz
     out = []
@@ -127,6 +129,28 @@ def test_captured_test_modes_match_the_truth(captured_panel: Captured) -> None:
     assert min(min(pc.mean_coherence) for pc in result.point_checks) > 0.95
     (dp,) = result.driving_points
     assert (dp.point, dp.response) == ("B3", "acc1") and dp.ok, dp
+
+
+def test_roving_sensor_mode_sees_the_same_modes(analytic: dataset.TestData) -> None:
+    """A roving accelerometer with the hammer fixed on B3 gives the same modes and shapes.
+
+    Source: Maxwell's reciprocity, H(j, k) = H(k, j) for a linear structure (Ewins 2000,
+    §2.2, from memory): the FRFs from B3 to every point are the roving-hammer FRFs to the
+    sensor on B3, so the same acceptance holds, and the row where the sensor sits on B3 is
+    the driving point.
+    """
+    n = len(analytic.points)
+    sensor_mode = dataclasses.replace(
+        analytic, roving_mode="sensor", h1=analytic.h1[:, :1], h2=analytic.h2[:, :1],
+        coherence=analytic.coherence[:, :1], gxx=analytic.gxx[:, :1], responses=("acc",),
+        response_points=tuple((p,) for p in analytic.points), drive_points=("B3",) * n,
+    )  # fmt: skip
+    result = check(sensor_mode)
+    judged = judged_modes(PANEL, sensor_mode, result.band_hz)
+    assert len(judged) >= 5, judged
+    assert_modes_match(result, PANEL, judged)
+    (dp,) = result.driving_points
+    assert (dp.point, dp.response) == ("B3", "acc") and dp.ok
 
 
 def test_driving_point_check_tells_a_cross_point(analytic: dataset.TestData) -> None:
@@ -217,6 +241,20 @@ def test_report_and_json(analytic: dataset.TestData) -> None:
     assert data["modes"][0]["shape"] == list(result.modes[0].shape)
     assert data["driving_points"][0]["ok"] is True
     assert data["settings"]["force_drop_db"] == 10.0
+
+
+def test_report_names_what_to_do(analytic: dataset.TestData) -> None:
+    """A suspect driving point and a point to tap again are spelled out in the text."""
+    rows = list(analytic.response_points)
+    rows[0] = ("A1", rows[0][1])
+    n_avg = np.array(analytic.n_averages)
+    n_avg[0] = 1
+    text = report_text(
+        check(dataclasses.replace(analytic, response_points=tuple(rows), n_averages=n_avg))
+    )
+    assert "tap again: A1\n" in text
+    assert "A1 / acc1: SUSPECT" in text and "Im A <= 0 at resonance" in text
+    assert "no anti-resonance between" in text
 
 
 def test_bad_settings_and_bands_are_named(analytic: dataset.TestData) -> None:
