@@ -184,3 +184,14 @@ def _rejections(ps: WirePointSet) -> dict[str, int]:
             codes = {code for code, _ in hit.findings if code not in WARNING_CODES} or {"operator"}
             counts.update(codes)
     return dict(sorted(counts.items()))
+
+
+def jsonable(value: Any) -> Any:
+    """A JSON-ready copy of plain data: tuples as lists, keys as str, NaN and ±inf as None."""
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [jsonable(v) for v in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value

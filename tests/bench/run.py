@@ -13,9 +13,10 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import bench_capture
+import bench_client
 import bench_decode
-import bench_pull
 import bench_phone
+import bench_pull
 import bench_service
 import bench_spectra
 import bench_text_input
@@ -35,6 +36,8 @@ def main() -> None:
     bench_service.show(bench_service.run(20 if quick else 200))
     print("== client: full pull into an empty mirror")
     bench_pull.show(bench_pull.run(20 if quick else 200), decimals=2)
+    print("== client: quick-look check, exports, plots")
+    bench_client.show(bench_client.run(30 if quick else 210))
     print("== capture: daemon CPU, memory, per-hit latency")
     bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
     print("== phone page: tap to plots in headless Chromium, page weight")
