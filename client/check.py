@@ -14,9 +14,10 @@ Per point (`PointCheck`):
   10 to 20 dB of its low-frequency level is common practice; 10 dB is the stricter end;
 * mean coherence of each response over the analysis band, up to the point's force band;
 * flags (the rules, each with its setting): ``few_averages``: fewer than ``min_averages``
-  (3) accepted hits; ``low_coherence``: some response's mean coherence below
-  ``min_coherence`` (0.9); ``narrow_force_band``: the force band ends below
-  ``band_share`` (90 %) of the analysis band's top (tap again with a harder tip).
+  accepted hits (default: the averages the test asked for, 3 when unknown);
+  ``low_coherence``: some response's mean coherence below ``min_coherence`` (0.9);
+  ``narrow_force_band``: the force band ends below ``band_share`` (90 %) of the analysis
+  band's top (tap again with a harder tip).
 
 Analysis band: ``settings.band_hz`` or, by default, from the first line above 0 Hz to the
 median of the points' force-band tops.
@@ -116,7 +117,7 @@ class CheckSettings:
     force_drop_db: float = 10.0
     low_fraction: float = 0.02
     min_coherence: float = 0.9
-    min_averages: int = 3
+    min_averages: int | None = None  # None: the test's planned averages (3 if unknown)
     band_share: float = 0.9
     min_prominence_db: float = 6.0
     floor_db: float = 40.0
@@ -389,7 +390,8 @@ def _point_check(
     else:
         coherence = tuple(math.nan for _ in data.responses)
     flags = []
-    if int(data.n_averages[i]) < s.min_averages:
+    need = s.min_averages if s.min_averages is not None else (data.planned_averages or 3)
+    if int(data.n_averages[i]) < need:
         flags.append("few_averages")
     if not judged.any() or min(coherence) < s.min_coherence:
         flags.append("low_coherence")

@@ -403,6 +403,8 @@ def demo(
     with _guard():
         result = run_demo(folder, typer.echo, plots=plots)
     typer.echo(f"-- done in {result.seconds:.1f} s: {result.npz}, {result.check}, {result.truth}")
+    for name, seconds in result.stages.items():
+        typer.echo(f"   {name:<20} {seconds:5.1f} s")
     typer.echo(result.check.read_text(encoding="utf-8").split("\n\n")[0])
 
 

@@ -48,6 +48,7 @@ class TestData:
     (the rows must agree). meta: the first row's point-set metadata plus ``rig``,
     ``rig_id``, ``test``; point_set_ids / versions / seqs: per row, from the rig.
     grid: the test's whole grid (label, x, y, z, direction), measured or not.
+    planned_averages: the averages per point the test asked for (0 when unknown).
     """
 
     rig: str
@@ -75,6 +76,7 @@ class TestData:
     seqs: tuple[int, ...]
     grid: tuple[tuple[str, float, float, float, str], ...]
     meta: dict[str, Any] = field(default_factory=dict)
+    planned_averages: int = 0  # averages per point the test asked for (0: unknown)
 
     @property
     def sample_rate_hz(self) -> float:
@@ -173,6 +175,7 @@ def assemble(
         seqs=tuple(ps.seq for ps in rows),
         grid=tuple(test.grid),
         meta={**first.meta, "rig": rig, "rig_id": rig_id, "test": test.name},
+        planned_averages=test.averages,
     )
 
 

@@ -61,6 +61,7 @@ from typing import Any, Literal
 import numpy as np
 
 from .dataset import TestData, jsonable
+from .errors import ClientError
 
 __all__ = ["FORMATS", "QUANTITIES", "UNITS", "export", "frf_arrays", "meta_json"]
 
@@ -221,7 +222,7 @@ def _write_hdf5(data: TestData, arrays: dict[str, Any], path: Path) -> None:
     try:
         import h5py
     except ImportError:
-        raise RuntimeError(
+        raise ClientError(
             "HDF5 export needs h5py: install the extra with  pip install 'taprig[hdf5]'"
         ) from None
     text = h5py.string_dtype("utf-8")

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+import os
 import sqlite3
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
@@ -67,8 +68,8 @@ class MirroredPointSet:
 class Mirror:
     """One rig's local store. Not shared between threads; `close()` is idempotent."""
 
-    def __init__(self, path: Path) -> None:
-        self.path = path
+    def __init__(self, path: str | os.PathLike[str]) -> None:
+        self.path = path = Path(path)
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
             self._db = sqlite3.connect(path, isolation_level=None, check_same_thread=False)

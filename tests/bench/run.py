@@ -15,6 +15,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import bench_capture
 import bench_client
 import bench_decode
+import bench_demo
 import bench_phone
 import bench_pull
 import bench_service
@@ -38,6 +39,8 @@ def main() -> None:
     bench_pull.show(bench_pull.run(20 if quick else 200), decimals=2)
     print("== client: quick-look check, exports, plots")
     bench_client.show(bench_client.run(30 if quick else 210))
+    print("== the one-command demo")
+    bench_demo.show(bench_demo.run())
     print("== capture: daemon CPU, memory, per-hit latency")
     bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
     print("== phone page: tap to plots in headless Chromium, page weight")

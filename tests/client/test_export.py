@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from taprig.client import dataset
+from taprig.client.errors import ClientError
 from taprig.client.export import UNITS, export
 from taprig.firmware_protocol.virtual import ModalModel, demo_panel
 
@@ -170,6 +171,6 @@ def test_missing_h5py_names_the_extra(
     panel: dataset.TestData, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     monkeypatch.setitem(sys.modules, "h5py", None)  # import h5py now raises ImportError
-    with pytest.raises(RuntimeError, match=r"taprig\[hdf5\]"):
+    with pytest.raises(ClientError, match=r"taprig\[hdf5\]"):
         export(panel, tmp_path / "x.h5", "hdf5")
     assert not list(tmp_path.iterdir())

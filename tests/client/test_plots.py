@@ -11,6 +11,7 @@ import pytest
 
 from taprig.client import dataset
 from taprig.client.check import check
+from taprig.client.errors import ClientError
 from taprig.client.plots import frf_figure, shape_figure, write_plots
 from taprig.firmware_protocol.virtual import demo_panel
 
@@ -82,5 +83,5 @@ def test_missing_matplotlib_names_the_extra(
     for name in [m for m in sys.modules if m == "matplotlib" or m.startswith("matplotlib.")]:
         monkeypatch.delitem(sys.modules, name)
     monkeypatch.setitem(sys.modules, "matplotlib", None)
-    with pytest.raises(RuntimeError, match=r"taprig\[plots\]"):
+    with pytest.raises(ClientError, match=r"taprig\[plots\]"):
         frf_figure(panel, 0)

@@ -1,0 +1,44 @@
+"""The one-command demo end to end, as a newcomer runs it: `taprig demo --out DIR`.
+
+Wall-clock seconds of the whole command (taprigd start, a roving-hammer pass over the
+30-point demo grid with two averages and 0.64 s records, the pull, the exports, the check,
+the plots, and stopping everything). Printed beside its goal, 60 s, and beside its floor:
+the records themselves (taps × record length), which no speed-up of ours can shorten.
+
+Run: python tests/bench/bench_demo.py
+"""
+
+from __future__ import annotations
+
+import re
+import subprocess
+import sys
+import tempfile
+import time
+
+from table import Row, show
+
+GOAL_S = 60.0
+
+
+def run() -> list[Row]:
+    with tempfile.TemporaryDirectory() as out:
+        t0 = time.perf_counter()
+        done = subprocess.run([sys.executable, "-m", "taprig.client", "demo", "--out", out],
+                              capture_output=True, text=True, timeout=600)  # fmt: skip
+        seconds = time.perf_counter() - t0
+    assert done.returncode == 0, done.stderr
+    taps = int(re.search(r"(\d+) taps", done.stdout).group(1))  # type: ignore[union-attr]
+    stages = re.findall(r"^   ([a-z ]+?) +([0-9.]+) s$", done.stdout, re.M)
+    from taprig.client.demo import BLOCK
+
+    floor = taps * BLOCK / 51_200.0
+    return [
+        ("taprig demo, whole command", seconds, "s", f"goal < {GOAL_S:g} s"),
+        (f"records alone ({taps} taps x {BLOCK / 51_200.0:.2f} s)", floor, "s", "floor"),
+        *((f"  stage: {name}", float(value), "s", "") for name, value in stages),
+    ]
+
+
+if __name__ == "__main__":
+    show(run())
