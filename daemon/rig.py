@@ -39,7 +39,7 @@ from . import __version__
 from .acquire import Acquirer, TriggerSettings
 from .config import Config
 from .display import last_hit_view
-from .errors import SessionError, TaprigError
+from .errors import DiskLowError, SessionError, TaprigError
 from .hits import CheckSettings, check_hit
 from .link import LinkChange, LinkState, SerialLink
 from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
@@ -49,6 +49,8 @@ from .store import Store
 
 log = logging.getLogger(__name__)
 T = TypeVar("T")
+
+DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
 
 
 @dataclass(frozen=True, slots=True)
@@ -98,6 +100,13 @@ class Rig:
         self._last_record: HitRecord | None = None
         self.last_hit: dict[str, Any] | None = None
         """A display-sized view of the last hit; replaced whole, so any thread may read it."""
+        self.beat = time.monotonic()
+        """When the processing thread last went round its loop (monotonic s); for a watchdog."""
+        self.free_mb: float | None = None
+        """Free space for the store (MB, 10^6 bytes) at the last look, every DISK_CHECK_S."""
+        self.waiting_for_room = False
+        """Armed, or asked to arm, while the disk was too full: arms by itself when room returns."""
+        self._next_disk_check = 0.0
 
     # --- lifecycle ------------------------------------------------------------
 
@@ -175,6 +184,10 @@ class Rig:
 
     def _run(self) -> None:
         while not self._stop.is_set():
+            self.beat = time.monotonic()
+            if self.beat >= self._next_disk_check:
+                self._next_disk_check = self.beat + DISK_CHECK_S
+                self._watch_disk()
             self._serve_commands()
             try:
                 item = self._link.items.get(timeout=0.02)
@@ -374,17 +387,46 @@ class Rig:
 
     def _arm(self) -> None:
         self._need_session()
-        free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
-        if free_mb < self.config.store.min_free_mb:
-            raise SessionError(
-                f"only {free_mb:.0f} MB free in {self.store.path.parent}; "
-                f"the rig needs {self.config.store.min_free_mb} MB to arm"
-            )
+        if self._disk_low():
+            # Refused, but the wish is kept: an unattended rig carries on once room returns.
+            self.waiting_for_room = True
+            raise DiskLowError(f"{self._room_text()} to arm; it arms by itself when there is room")
         self.armed = True
         self._emit("cursor", self._snapshot())
 
     def _disarm(self) -> None:
-        self.armed = False
+        self.armed = self.waiting_for_room = False
+        self._emit("cursor", self._snapshot())
+
+    def _disk_low(self) -> bool:
+        """Look at the free space now (updates `free_mb`); True below store.min_free_mb."""
+        self.free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
+        return self.free_mb < self.config.store.min_free_mb
+
+    def _room_text(self) -> str:
+        return (f"only {self.free_mb or 0.0:.0f} MB free in {self.store.path.parent}; "
+                f"the rig needs {self.config.store.min_free_mb} MB")  # fmt: skip
+
+    def _watch_disk(self) -> None:
+        """Pause capture while the disk is too full and resume it when room returns.
+
+        The service keeps serving what is stored meanwhile; only new hits are ignored.
+        """
+        try:
+            low = self._disk_low()
+        except OSError as exc:  # the folder vanished or the disk failed: say so, keep going
+            log.warning("cannot read the free space of %s: %s", self.store.path.parent, exc)
+            return
+        if low and self.armed:
+            self.armed, self.waiting_for_room = False, True
+            text = f"{self._room_text()}: capture paused until there is room"
+        elif not low and self.waiting_for_room and self.session is not None:
+            self.armed, self.waiting_for_room = True, False
+            text = f"{self.free_mb:.0f} MB free in {self.store.path.parent}: capture resumed"
+        else:
+            return
+        (log.warning if low else log.info)(text)
+        self._emit("message", {"text": text})
         self._emit("cursor", self._snapshot())
 
     def _need_session(self) -> Session:
@@ -410,6 +452,9 @@ class Rig:
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
                      "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
+            "disk": {"free_mb": None if self.free_mb is None else round(self.free_mb, 1),
+                     "min_free_mb": self.config.store.min_free_mb,
+                     "waiting_for_room": self.waiting_for_room},
         }  # fmt: skip
 
     def _emit(self, kind: str, data: dict[str, Any]) -> None:
