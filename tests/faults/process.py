@@ -25,13 +25,21 @@ START_TIMEOUT_S = 60.0
 
 
 class Taprigd:
-    """One `taprigd run` process on `data_dir`; `settings` are extra section.key=value."""
+    """One `taprigd run` process on `data_dir`; `settings` are extra section.key=value.
+
+    Its log (stderr) goes to `<log_dir>/<data_dir name>.log` (default: beside data_dir).
+    """
 
     def __init__(
-        self, data_dir: Path, *settings: str, test: str = "shop", env: dict[str, str] | None = None
+        self,
+        data_dir: Path,
+        *settings: str,
+        test: str = "shop",
+        env: dict[str, str] | None = None,
+        log_dir: Path | None = None,
     ) -> None:
         self.data_dir = data_dir
-        self.log_path = data_dir.parent / f"{data_dir.name}.log"
+        self.log_path = (log_dir or data_dir.parent) / f"{data_dir.name}.log"
         base = [f"store.data_dir={data_dir}", "store.min_free_mb=1", "service.bind=127.0.0.1",
                 "service.port=0", "service.advertise=false", "capture.block=4096",
                 "capture.averages=1"]  # fmt: skip
