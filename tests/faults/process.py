@@ -159,6 +159,30 @@ def wait_until(what: str, condition: Any, timeout: float, poll_s: float = 0.02) 
         time.sleep(poll_s)
 
 
+def tap_until_hit(daemon: Taprigd, tries: int = 10) -> dict[str, Any]:
+    """Tap until the rig records a hit (with frames dropping, the pulse itself may be lost
+    and a tap go unseen); that hit's verdict."""
+    seen = daemon.get("/v1/state")["hits_seen"]
+    for _ in range(tries):
+        daemon.control("tap", point="A1")
+        deadline = time.monotonic() + 0.4
+        while time.monotonic() < deadline:
+            if daemon.get("/v1/state")["hits_seen"] > seen:
+                hit: dict[str, Any] = daemon.get("/v1/hits/last")
+                return hit
+            time.sleep(0.02)
+    raise AssertionError(f"no hit recorded in {tries} taps")
+
+
+def tap_until_accepted(daemon: Taprigd, tries: int = 10) -> dict[str, Any]:
+    """Tap until a hit is accepted; that hit's verdict."""
+    for _ in range(tries):
+        hit = tap_until_hit(daemon)
+        if hit["accepted"]:
+            return hit
+    raise AssertionError(f"no hit accepted in {tries} taps")
+
+
 def check_store(data_dir: Path, seen_ids: set[int]) -> int:
     """Open the store the way a restarted daemon does and check it whole; the point sets in it.
 

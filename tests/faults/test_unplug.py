@@ -11,27 +11,11 @@ from __future__ import annotations
 
 import time
 from pathlib import Path
-from typing import Any
 
-from .process import Taprigd, wait_until
+from .process import Taprigd, tap_until_hit, wait_until
 
 ROUNDS = 20
 RECONNECT_S = 1.0  # the issue's bound: reconnected within 1 s of the device coming back
-
-
-def tap_until_hit(daemon: Taprigd, tries: int = 10) -> dict[str, Any]:
-    """Tap until the rig records a hit (with frames dropping, the pulse itself may be lost
-    and a tap go unseen); that hit's verdict."""
-    seen = daemon.get("/v1/state")["hits_seen"]
-    for _ in range(tries):
-        daemon.control("tap", point="A1")
-        deadline = time.monotonic() + 0.4
-        while time.monotonic() < deadline:
-            if daemon.get("/v1/state")["hits_seen"] > seen:
-                hit: dict[str, Any] = daemon.get("/v1/hits/last")
-                return hit
-            time.sleep(0.02)
-    raise AssertionError(f"no hit recorded in {tries} taps")
 
 
 def test_unplug_replug_twenty_times(tmp_path: Path) -> None:
