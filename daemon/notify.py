@@ -27,9 +27,7 @@ class Notifier:
         env = os.environ if environ is None else environ
         name = env.get("NOTIFY_SOCKET", "")
         self._address = "\0" + name[1:] if name.startswith("@") else name
-        self._sock: socket.socket | None = None
-        if self._address:
-            self._sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM | socket.SOCK_CLOEXEC)
+        self._sock: socket.socket | None = None  # opened on the first send
         self.watchdog_s = _watchdog_period(env)
         """Seconds between WATCHDOG=1 pings (half of $WATCHDOG_USEC), or None: no watchdog."""
         self._status = ""
@@ -37,13 +35,15 @@ class Notifier:
 
     @property
     def active(self) -> bool:
-        return self._sock is not None
+        return bool(self._address)
 
     def send(self, *lines: str) -> None:
         """Send `lines` as one message; a failure is logged once and never raised."""
-        if self._sock is None:
+        if not self._address:
             return
         try:
+            if self._sock is None:
+                self._sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM | socket.SOCK_CLOEXEC)
             self._sock.sendto("\n".join(lines).encode("utf-8"), self._address)
         except OSError as exc:
             # The manager went away or the socket is wrong: the daemon itself must go on.
