@@ -450,7 +450,8 @@ class VirtualInstrument:
             raw[int(self._rng.integers(0, len(raw)))] ^= int(self._rng.integers(1, 256))
             data = bytes(raw)
             self.counters.frames_corrupted += 1
-        if self._rng.random() < self.faults.garbage_probability:
+        # Drawn only when switched on, so the other faults' random sequence stays as it was.
+        if self.faults.garbage_probability and self._rng.random() < self.faults.garbage_probability:
             data = self._rng.bytes(len(data))  # line noise, a wrong baud rate, a foreign device
             self.counters.frames_corrupted += 1
         self.counters.frames_sent += 1
