@@ -185,3 +185,23 @@ def test_status_running_then_killed(tmp_path: Path) -> None:
     finally:
         if daemon.proc is not None and daemon.proc.poll() is None:
             daemon.stop()
+
+
+def test_log_lines_carry_their_level_for_the_journal(tmp_path: Path) -> None:
+    """With stderr on the journal ($JOURNAL_STREAM names its device:inode), each line starts
+    with its syslog priority, <6> info and <4> warning (sd-daemon(3), RFC 5424 §6.2.1)."""
+    data = tmp_path / "rig"
+    data.mkdir()
+    log = tmp_path / "rig.log"
+    log.touch()
+    st = log.stat()
+    daemon = Taprigd(data, env={"JOURNAL_STREAM": f"{st.st_dev}:{st.st_ino}"}).start()
+    try:
+        daemon.wait_ready()
+    finally:
+        assert daemon.stop() == 0
+    lines = [x for x in daemon.log().splitlines() if x]
+    assert lines and all(x[:3] in ("<6>", "<4>", "<3>", "<7>") for x in lines), lines[:5]
+    # averages = 1 draws a warning about single-average coherence at selection
+    assert any(x.startswith("<4>WARNING taprig.daemon.rig: test shop:") for x in lines)
+    assert any(x.startswith("<6>INFO ") for x in lines)
