@@ -299,6 +299,8 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
                 write_truth(vi.model, opt.truth)
         if opt.test is not None:
             _open_test(running, opt, threading.Event())
+        elif running.rig.resume_later():
+            log.info("carrying on with the previous run's test once the device identifies itself")
         period = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
         asyncio.run(serve(running, duration_s=opt.duration, tick=tick, tick_s=period,
                           control_port=control.port if control else None))  # fmt: skip

@@ -10,7 +10,9 @@ Observers get every outcome as a plain event.
 
 from __future__ import annotations
 
+import json
 import logging
+import os
 import queue
 import shutil
 import threading
@@ -51,6 +53,9 @@ log = logging.getLogger(__name__)
 T = TypeVar("T")
 
 DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
+SESSION_FILE = "session.json"
+"""In the data folder: the selected test and whether the rig is armed, so that a restarted
+daemon (after a crash, a power cut, a watchdog kill) carries on where it was."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -107,6 +112,7 @@ class Rig:
         self.waiting_for_room = False
         """Armed, or asked to arm, while the disk was too full: arms by itself when room returns."""
         self._next_disk_check = 0.0
+        self._resume: dict[str, Any] | None = None
 
     # --- lifecycle ------------------------------------------------------------
 
@@ -124,6 +130,25 @@ class Rig:
         if self._thread.is_alive():
             self._thread.join(timeout=5.0)
         self._link.close()
+
+    def resume_later(self) -> bool:
+        """Carry on with the session a previous run left (SESSION_FILE) once the device has
+        identified itself: select its test and arm if it was armed. False if there is none."""
+        try:
+            record = json.loads((self.store.path.parent / SESSION_FILE).read_text("utf-8"))
+        except (FileNotFoundError, ValueError):
+            return False
+        if not isinstance(record, dict) or not isinstance(record.get("test"), str):
+            return False
+
+        def now_or_when_identified() -> None:
+            if self._acq is not None:
+                self._carry_on(record)
+            else:
+                self._resume = record
+
+        self.call(now_or_when_identified)
+        return True
 
     def subscribe(self, observer: Callable[[RigEvent], None]) -> None:
         """`observer` is called on the processing thread: it must return quickly."""
@@ -272,6 +297,22 @@ class Rig:
         log.info(
             "device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz
         )
+        if self._resume is not None:
+            self._carry_on(self._resume)
+
+    def _carry_on(self, record: dict[str, Any]) -> None:
+        """Select and arm as the previous run left it; a failure is reported, not raised."""
+        self._resume = None
+        name = record["test"]
+        try:
+            self._select(name)
+            if record.get("armed"):
+                self._arm()
+            text = f"carried on with test {name} as the previous run left it"
+        except TaprigError as exc:  # the test was deleted, the disk is low, ...
+            text = f"could not carry on with test {name}: {exc}"
+        log.info("%s", text)
+        self._emit("message", {"text": text})
 
     def _hit(self, record: HitRecord) -> None:
         self.stats.hits_seen += 1
@@ -366,6 +407,23 @@ class Rig:
             log.warning("test %s: %s", name, warning)
             self._emit("message", {"text": warning})
         self._emit("cursor", {"test": name, "point": self.session.cursor})
+        self._keep_session()
+
+    def _keep_session(self) -> None:
+        """Write SESSION_FILE: the test selected and whether capture is wanted (armed, or
+        paused for disk room). Atomic; a failure (a full disk) is logged, not raised."""
+        s = self.session
+        record = {"test": s.plan.name if s else None, "armed": self.armed or self.waiting_for_room}
+        path = self.store.path.parent / SESSION_FILE
+        tmp = path.with_name(SESSION_FILE + ".tmp")
+        try:
+            with tmp.open("w", encoding="utf-8") as f:
+                f.write(json.dumps(record) + "\n")
+                f.flush()
+                os.fsync(f.fileno())  # survives a power cut: the rename never names an empty file
+            os.replace(tmp, path)
+        except OSError as exc:
+            log.warning("cannot keep the session in %s: %s", path, exc)
 
     def _meta(self) -> dict[str, Any]:
         info = self.info
@@ -390,12 +448,15 @@ class Rig:
         if self._disk_low():
             # Refused, but the wish is kept: an unattended rig carries on once room returns.
             self.waiting_for_room = True
+            self._keep_session()
             raise DiskLowError(f"{self._room_text()} to arm; it arms by itself when there is room")
         self.armed = True
+        self._keep_session()
         self._emit("cursor", self._snapshot())
 
     def _disarm(self) -> None:
         self.armed = self.waiting_for_room = False
+        self._keep_session()
         self._emit("cursor", self._snapshot())
 
     def _disk_low(self) -> bool:

@@ -28,13 +28,14 @@ class Taprigd:
     """One `taprigd run` process on `data_dir`; `settings` are extra section.key=value.
 
     Its log (stderr) goes to `<log_dir>/<data_dir name>.log` (default: beside data_dir).
+    test: selected and armed at start (`--test`); None starts as systemd does, without one.
     """
 
     def __init__(
         self,
         data_dir: Path,
         *settings: str,
-        test: str = "shop",
+        test: str | None = "shop",
         env: dict[str, str] | None = None,
         log_dir: Path | None = None,
     ) -> None:
@@ -43,8 +44,9 @@ class Taprigd:
         base = [f"store.data_dir={data_dir}", "store.min_free_mb=1", "service.bind=127.0.0.1",
                 "service.port=0", "service.advertise=false", "capture.block=4096",
                 "capture.averages=1"]  # fmt: skip
-        argv = [sys.executable, "-m", "taprig.daemon", "run", "--test", test,
-                "--virtual-control", "0"]  # fmt: skip
+        argv = [sys.executable, "-m", "taprig.daemon", "run", "--virtual-control", "0"]
+        if test is not None:
+            argv += ["--test", test]
         for item in (*base, *settings):
             argv += ["--set", item]
         self.argv = argv

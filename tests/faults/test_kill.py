@@ -15,7 +15,7 @@ import time
 import urllib.error
 from pathlib import Path
 
-from .process import Taprigd, check_store
+from .process import Taprigd, check_store, tap_until_accepted, wait_until
 
 ROUNDS = 30
 TAP_EVERY_S = 0.12  # longer than one 4096-sample record at 51.2 kHz (80 ms)
@@ -50,3 +50,34 @@ def test_kill9_at_random_moments_keeps_every_point_set_seen(tmp_path: Path) -> N
         assert stored >= len(seen)
     # The rounds did capture: on average more than one point set each.
     assert len(seen) > ROUNDS, len(seen)
+
+
+def test_restarted_after_kill9_carries_on_with_the_test(tmp_path: Path) -> None:
+    """Started as systemd starts it (no --test) after a kill -9, the rig selects the test it
+    had and arms again if it was armed; disarmed, it stays disarmed."""
+    data = tmp_path / "rig"
+    data.mkdir()
+    first = Taprigd(data).start().wait_ready()
+    first.control("tap", point="A1")
+    wait_until("stored", lambda: len(first.get("/v1/points")["points"]) == 1, 5.0)
+    first.kill9()
+
+    again = Taprigd(data, test=None).start().wait_ready()
+    try:
+        wait_until("carried on", lambda: again.session()["armed"], 10.0)
+        session = again.session()
+        assert session["test"] == "shop" and session["point"] == "A2" and session["done"] == ["A1"]
+        assert tap_until_accepted(again)["point"] == "A2"
+        wait_until("stored", lambda: len(again.get("/v1/points")["points"]) == 2, 5.0)
+        status, _ = again.request("POST", "/v1/session/disarm", {"request_id": "disarm-kill"})
+        assert status == 200
+    finally:
+        again.kill9()
+
+    third = Taprigd(data, test=None).start().wait_ready()
+    try:
+        wait_until("selected", lambda: third.session()["test"] == "shop", 10.0)
+        assert not third.session()["armed"]
+        assert third.log().count("carried on with test shop") == 2  # the log is shared
+    finally:
+        assert third.stop() == 0
