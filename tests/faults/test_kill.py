@@ -78,6 +78,6 @@ def test_restarted_after_kill9_carries_on_with_the_test(tmp_path: Path) -> None:
     try:
         wait_until("selected", lambda: third.session()["test"] == "shop", 10.0)
         assert not third.session()["armed"]
-        assert third.log().count("carried on with test shop") == 2  # the log is shared
+        assert third.log().count("rig: carried on with test shop") == 2  # the log is shared
     finally:
         assert third.stop() == 0
