@@ -28,12 +28,11 @@ import tempfile
 import time
 from pathlib import Path
 
+from bench_capture import IMPORTS
 from table import Figure, Row, show
 
 GOAL_S = 3.0
 HOST = "127.0.0.2"  # the rig's address on the namespace's loopback
-IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.runner, "
-           "taprig.daemon.serve, taprig.firmware_protocol.virtual.instrument")  # fmt: skip
 IP = shutil.which("ip", path=os.pathsep.join([os.environ.get("PATH", ""), "/usr/sbin", "/sbin"]))
 
 
