@@ -112,6 +112,7 @@ class Rig:
         self.waiting_for_room = False
         """Armed, or asked to arm, while the disk was too full: arms by itself when room returns."""
         self._next_disk_check = 0.0
+        self._disk_unreadable = False
         self._resume: dict[str, Any] | None = None
 
     # --- lifecycle ------------------------------------------------------------
@@ -475,9 +476,12 @@ class Rig:
         """
         try:
             low = self._disk_low()
-        except OSError as exc:  # the folder vanished or the disk failed: say so, keep going
-            log.warning("cannot read the free space of %s: %s", self.store.path.parent, exc)
+        except OSError as exc:  # the folder vanished or the disk failed: say so once, go on
+            level = logging.DEBUG if self._disk_unreadable else logging.WARNING
+            log.log(level, "cannot read the free space of %s: %s", self.store.path.parent, exc)
+            self._disk_unreadable = True
             return
+        self._disk_unreadable = False
         if low and self.armed:
             self.armed, self.waiting_for_room = False, True
             text = f"{self._room_text()}: capture paused until there is room"
