@@ -12,6 +12,8 @@ import statistics
 import time
 from pathlib import Path
 
+import pytest
+
 from .process import Taprigd, tap_until_accepted, wait_until
 
 SOAK_S = 60.0
@@ -26,6 +28,7 @@ leak was 0.1 MiB on the development machine (allocator noise).
 """
 
 
+@pytest.mark.slow
 def test_garbage_at_full_rate_for_a_minute(tmp_path: Path) -> None:
     data = tmp_path / "rig"
     data.mkdir()

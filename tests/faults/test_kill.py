@@ -15,12 +15,15 @@ import time
 import urllib.error
 from pathlib import Path
 
+import pytest
+
 from .process import Taprigd, check_store, tap_until_accepted, wait_until
 
 ROUNDS = 30
 TAP_EVERY_S = 0.12  # longer than one 4096-sample record at 51.2 kHz (80 ms)
 
 
+@pytest.mark.slow
 def test_kill9_at_random_moments_keeps_every_point_set_seen(tmp_path: Path) -> None:
     rng = random.Random(20261202)
     data = tmp_path / "rig"

@@ -12,12 +12,15 @@ from __future__ import annotations
 import time
 from pathlib import Path
 
+import pytest
+
 from .process import Taprigd, tap_until_hit, wait_until
 
 ROUNDS = 20
 RECONNECT_S = 1.0  # the bound: reconnected within 1 s of the device coming back
 
 
+@pytest.mark.slow
 def test_unplug_replug_twenty_times(tmp_path: Path) -> None:
     data = tmp_path / "rig"
     data.mkdir()
