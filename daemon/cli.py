@@ -48,10 +48,37 @@ class Transport(StrEnum):
 
 
 def _setup_logging(verbose: bool) -> None:
-    logging.basicConfig(
-        level=logging.DEBUG if verbose else logging.INFO,
-        format="%(asctime)s %(levelname)s %(name)s: %(message)s",
-    )
+    """Log to stderr (stdout carries --json-events). Under systemd, whose journal stamps the
+    time itself, each line starts with its syslog priority (``<4>`` for a warning), which the
+    journal records as the entry's level (sd-daemon(3))."""
+    level = logging.DEBUG if verbose else logging.INFO
+    if _stderr_is_journal():
+        handler = logging.StreamHandler()
+        handler.setFormatter(_JournalFormatter("%(levelname)s %(name)s: %(message)s"))
+        logging.basicConfig(level=level, handlers=[handler])
+    else:
+        logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+
+
+def _stderr_is_journal() -> bool:
+    """True if stderr is the journal's stream ($JOURNAL_STREAM names its device and inode)."""
+    import os
+    import sys
+
+    try:
+        st = os.fstat(sys.stderr.fileno())
+    except (OSError, ValueError):
+        return False
+    return os.environ.get("JOURNAL_STREAM", "") == f"{st.st_dev}:{st.st_ino}"
+
+
+_PRIORITY = {logging.DEBUG: 7, logging.INFO: 6, logging.WARNING: 4, logging.ERROR: 3}
+
+
+class _JournalFormatter(logging.Formatter):
+    def format(self, record: logging.LogRecord) -> str:
+        priority = _PRIORITY.get(record.levelno, 2)  # CRITICAL and above: 2
+        return f"<{priority}>" + super().format(record).replace("\n", f"\n<{priority}>")
 
 
 @app.command()
@@ -272,6 +299,8 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
                 write_truth(vi.model, opt.truth)
         if opt.test is not None:
             _open_test(running, opt, threading.Event())
+        elif running.rig.resume_later():
+            log.info("carrying on with the previous run's test once the device identifies itself")
         period = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
         asyncio.run(serve(running, duration_s=opt.duration, tick=tick, tick_s=period,
                           control_port=control.port if control else None))  # fmt: skip
@@ -284,6 +313,7 @@ def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> Non
 
 
 def _open_test(running: RunningRig, opt: RunOptions, stop: threading.Event) -> None:
+    from .errors import DiskLowError
     from .records import GridPoint, RovingMode
     from .store import import_grid_csv
 
@@ -304,7 +334,10 @@ def _open_test(running: RunningRig, opt: RunOptions, stop: threading.Event) -> N
                         sensor_points=sensor_points)  # fmt: skip
     _wait_for_device(rig, stop)
     rig.select_test(name)
-    rig.arm()
+    try:
+        rig.arm()
+    except DiskLowError as exc:  # serve what is stored; the rig arms itself when room returns
+        logging.getLogger("taprig.daemon").warning("%s", exc)
 
 
 def _simulated_tap(running: RunningRig) -> None:
@@ -358,6 +391,35 @@ def pair(
         typer.echo(f"taprigd: {exc}", err=True)
         raise typer.Exit(code=getattr(exc, "exit_code", 2)) from None
     typer.echo(text)
+
+
+@app.command()
+def status(
+    config: ConfigOption = None,
+    set_: SetOption = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print the summary as JSON")] = False,
+) -> None:
+    """Summarise the rig on this board: device, link errors, test, store size, free disk.
+
+    Exit code 0 when taprigd runs and answers, 1 when it does not (2: configuration error).
+    """
+    from .config import load_config
+    from .errors import TaprigError
+    from .status import gather, render
+
+    try:
+        cfg = load_config(config, set_ or [])
+    except TaprigError as exc:
+        typer.echo(f"taprigd: {exc}", err=True)
+        raise typer.Exit(code=exc.exit_code) from None
+    summary = gather(cfg)
+    if as_json:
+        typer.echo(json.dumps(summary, indent=2))
+    else:
+        for line in render(summary):
+            typer.echo(line)
+    if not summary["running"]:
+        raise typer.Exit(code=1)
 
 
 def _lan_address() -> str:

@@ -34,3 +34,7 @@ class SessionError(TaprigError):
     """A session command that does not fit the current state (no test selected, unknown point)."""
 
     exit_code = 4
+
+
+class DiskLowError(SessionError):
+    """Too little free disk to arm; the wish is kept and the rig arms once there is room."""

@@ -10,7 +10,9 @@ Observers get every outcome as a plain event.
 
 from __future__ import annotations
 
+import json
 import logging
+import os
 import queue
 import shutil
 import threading
@@ -39,7 +41,7 @@ from . import __version__
 from .acquire import Acquirer, TriggerSettings
 from .config import Config
 from .display import last_hit_view
-from .errors import SessionError, TaprigError
+from .errors import DiskLowError, SessionError, TaprigError
 from .hits import CheckSettings, check_hit
 from .link import LinkChange, LinkState, SerialLink
 from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
@@ -49,6 +51,11 @@ from .store import Store
 
 log = logging.getLogger(__name__)
 T = TypeVar("T")
+
+DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
+SESSION_FILE = "session.json"
+"""In the data folder: the selected test and whether the rig is armed, so that a restarted
+daemon (after a crash, a power cut, a watchdog kill) carries on where it was."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -98,6 +105,15 @@ class Rig:
         self._last_record: HitRecord | None = None
         self.last_hit: dict[str, Any] | None = None
         """A display-sized view of the last hit; replaced whole, so any thread may read it."""
+        self.beat = time.monotonic()
+        """When the processing thread last went round its loop (monotonic s); for a watchdog."""
+        self.free_mb: float | None = None
+        """Free space for the store (MB, 10^6 bytes) at the last look, every DISK_CHECK_S."""
+        self.waiting_for_room = False
+        """Armed, or asked to arm, while the disk was too full: arms by itself when room returns."""
+        self._next_disk_check = 0.0
+        self._disk_unreadable = False
+        self._resume: dict[str, Any] | None = None
 
     # --- lifecycle ------------------------------------------------------------
 
@@ -115,6 +131,25 @@ class Rig:
         if self._thread.is_alive():
             self._thread.join(timeout=5.0)
         self._link.close()
+
+    def resume_later(self) -> bool:
+        """Carry on with the session a previous run left (SESSION_FILE) once the device has
+        identified itself: select its test and arm if it was armed. False if there is none."""
+        try:
+            record = json.loads((self.store.path.parent / SESSION_FILE).read_text("utf-8"))
+        except (FileNotFoundError, ValueError):
+            return False
+        if not isinstance(record, dict) or not isinstance(record.get("test"), str):
+            return False
+
+        def now_or_when_identified() -> None:
+            if self._acq is not None:
+                self._carry_on(record)
+            else:
+                self._resume = record
+
+        self.call(now_or_when_identified)
+        return True
 
     def subscribe(self, observer: Callable[[RigEvent], None]) -> None:
         """`observer` is called on the processing thread: it must return quickly."""
@@ -175,6 +210,10 @@ class Rig:
 
     def _run(self) -> None:
         while not self._stop.is_set():
+            self.beat = time.monotonic()
+            if self.beat >= self._next_disk_check:
+                self._next_disk_check = self.beat + DISK_CHECK_S
+                self._watch_disk()
             self._serve_commands()
             try:
                 item = self._link.items.get(timeout=0.02)
@@ -259,6 +298,22 @@ class Rig:
         log.info(
             "device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz
         )
+        if self._resume is not None:
+            self._carry_on(self._resume)
+
+    def _carry_on(self, record: dict[str, Any]) -> None:
+        """Select and arm as the previous run left it; a failure is reported, not raised."""
+        self._resume = None
+        name = record["test"]
+        try:
+            self._select(name)
+            if record.get("armed"):
+                self._arm()
+            text = f"carried on with test {name} as the previous run left it"
+        except TaprigError as exc:  # the test was deleted, the disk is low, ...
+            text = f"could not carry on with test {name}: {exc}"
+        log.info("%s", text)
+        self._emit("message", {"text": text})
 
     def _hit(self, record: HitRecord) -> None:
         self.stats.hits_seen += 1
@@ -353,6 +408,23 @@ class Rig:
             log.warning("test %s: %s", name, warning)
             self._emit("message", {"text": warning})
         self._emit("cursor", {"test": name, "point": self.session.cursor})
+        self._keep_session()
+
+    def _keep_session(self) -> None:
+        """Write SESSION_FILE: the test selected and whether capture is wanted (armed, or
+        paused for disk room). Atomic; a failure (a full disk) is logged, not raised."""
+        s = self.session
+        record = {"test": s.plan.name if s else None, "armed": self.armed or self.waiting_for_room}
+        path = self.store.path.parent / SESSION_FILE
+        tmp = path.with_name(SESSION_FILE + ".tmp")
+        try:
+            with tmp.open("w", encoding="utf-8") as f:
+                f.write(json.dumps(record) + "\n")
+                f.flush()
+                os.fsync(f.fileno())  # survives a power cut: the rename never names an empty file
+            os.replace(tmp, path)
+        except OSError as exc:
+            log.warning("cannot keep the session in %s: %s", path, exc)
 
     def _meta(self) -> dict[str, Any]:
         info = self.info
@@ -374,17 +446,52 @@ class Rig:
 
     def _arm(self) -> None:
         self._need_session()
-        free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
-        if free_mb < self.config.store.min_free_mb:
-            raise SessionError(
-                f"only {free_mb:.0f} MB free in {self.store.path.parent}; "
-                f"the rig needs {self.config.store.min_free_mb} MB to arm"
-            )
+        if self._disk_low():
+            # Refused, but the wish is kept: an unattended rig carries on once room returns.
+            self.waiting_for_room = True
+            self._keep_session()
+            raise DiskLowError(f"{self._room_text()} to arm; it arms by itself when there is room")
         self.armed = True
+        self._keep_session()
         self._emit("cursor", self._snapshot())
 
     def _disarm(self) -> None:
-        self.armed = False
+        self.armed = self.waiting_for_room = False
+        self._keep_session()
+        self._emit("cursor", self._snapshot())
+
+    def _disk_low(self) -> bool:
+        """Look at the free space now (updates `free_mb`); True below store.min_free_mb."""
+        self.free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
+        return self.free_mb < self.config.store.min_free_mb
+
+    def _room_text(self) -> str:
+        return (f"only {self.free_mb or 0.0:.0f} MB free in {self.store.path.parent}; "
+                f"the rig needs {self.config.store.min_free_mb} MB")  # fmt: skip
+
+    def _watch_disk(self) -> None:
+        """Pause capture while the disk is too full and resume it when room returns.
+
+        The service keeps serving what is stored meanwhile; only new hits are ignored.
+        """
+        try:
+            low = self._disk_low()
+        except OSError as exc:  # the folder vanished or the disk failed: say so once, go on
+            level = logging.DEBUG if self._disk_unreadable else logging.WARNING
+            log.log(level, "cannot read the free space of %s: %s", self.store.path.parent, exc)
+            self._disk_unreadable = True
+            return
+        self._disk_unreadable = False
+        if low and self.armed:
+            self.armed, self.waiting_for_room = False, True
+            text = f"{self._room_text()}: capture paused until there is room"
+        elif not low and self.waiting_for_room and self.session is not None:
+            self.armed, self.waiting_for_room = True, False
+            text = f"{self.free_mb:.0f} MB free in {self.store.path.parent}: capture resumed"
+        else:
+            return
+        (log.warning if low else log.info)(text)
+        self._emit("message", {"text": text})
         self._emit("cursor", self._snapshot())
 
     def _need_session(self) -> Session:
@@ -410,6 +517,9 @@ class Rig:
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
                      "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
+            "disk": {"free_mb": None if self.free_mb is None else round(self.free_mb, 1),
+                     "min_free_mb": self.config.store.min_free_mb,
+                     "waiting_for_room": self.waiting_for_room},
         }  # fmt: skip
 
     def _emit(self, kind: str, data: dict[str, Any]) -> None:

@@ -1,7 +1,9 @@
 """The daemon's event loop: HTTP service and mDNS advertiser around a running rig.
 
 Started in order (rig → service → advertiser) and stopped in reverse. The rig
-and the store keep their own threads; this loop only serves sockets.
+and the store keep their own threads; this loop only serves sockets, and tells
+the service manager (daemon/notify.py) when it is ready, how the rig is, and,
+while both this loop and the rig's thread go round, that it is alive.
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ import json
 import logging
 import os
 import signal
+import time
 from collections.abc import Awaitable, Callable
 from pathlib import Path
 from typing import Any
@@ -21,7 +24,8 @@ from zeroconf import InterfaceChoice
 
 from .advertise import Advertiser, Interfaces, rig_id
 from .auth import Auth
-from .rig import RigEvent
+from .notify import Notifier
+from .rig import Rig, RigEvent
 from .runner import RunningRig
 from .service import Service
 
@@ -29,6 +33,7 @@ log = logging.getLogger(__name__)
 
 RUN_FILE = "run.json"
 """Written in the state folder while the service listens: where a local tool finds the rig."""
+STATUS_S = 1.0  # seconds between status updates to the service manager (sent when changed)
 
 
 async def serve(
@@ -38,12 +43,15 @@ async def serve(
     tick: Callable[[], Awaitable[None]] | None = None,
     tick_s: float = 1.0,
     control_port: int | None = None,
+    notifier: Notifier | None = None,
 ) -> None:
     """Serve until SIGTERM/SIGINT (or `duration_s`), calling `tick` every `tick_s` seconds.
 
     control_port: the loopback port of the virtual instrument's control interface, if one
     runs; recorded in the run file (`write_run_file`).
+    notifier: where readiness and status go (default: $NOTIFY_SOCKET, if set).
     """
+    notify = notifier if notifier is not None else Notifier()
     cfg = running.config
     auth = Auth(cfg.store.data_dir)
     identity = rig_id(cfg.store.data_dir)
@@ -56,6 +64,7 @@ async def serve(
     for sig in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(sig, stop.set)
     advertiser: Advertiser | None = None
+    reporter: asyncio.Task[None] | None = None
     try:
         await service.async_start()
         write_run_file(cfg.store.data_dir, cfg.service.bind, service.port, control_port)
@@ -68,8 +77,16 @@ async def serve(
             _follow_state(running, advertiser, loop)
             # The state may have changed while the name was being probed for (a second or two).
             await advertiser.async_update(**_state(running))
+        notify.ready(status_line(running.rig))
+        if notify.active:
+            reporter = asyncio.create_task(_report(running.rig, notify))
         await _wait(stop, duration_s, tick, tick_s)
     finally:
+        notify.stopping()
+        if reporter is not None:
+            reporter.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await reporter
         with contextlib.suppress(FileNotFoundError):
             (cfg.store.data_dir / RUN_FILE).unlink()
         if advertiser is not None:
@@ -77,6 +94,7 @@ async def serve(
         await service.async_close()
         for sig in (signal.SIGTERM, signal.SIGINT):
             loop.remove_signal_handler(sig)
+        notify.close()
 
 
 def write_run_file(state_dir: Path, bind: str, port: int, control_port: int | None) -> None:
@@ -104,6 +122,30 @@ async def _wait(
             await asyncio.wait_for(stop.wait(), timeout=min(tick_s, max(end - loop.time(), 0)))
         if tick is not None and not stop.is_set():
             await tick()
+
+
+def status_line(rig: Rig) -> str:
+    """A short state for the service manager, e.g. "armed, test bracket-1 at B3, device
+    connected"."""
+    what = "paused: disk low" if rig.waiting_for_room else "armed" if rig.armed else "idle"
+    session = rig.session
+    test = f", test {session.plan.name} at {session.cursor}" if session else ""
+    return f"{what}{test}, device {rig.link_state.value}"
+
+
+async def _report(rig: Rig, notify: Notifier) -> None:
+    """Status every STATUS_S; WATCHDOG=1 at least every half watchdog timeout while the rig's
+    thread goes round. Runs on the event loop, so a stuck loop stops the pings too."""
+    period = min(notify.watchdog_s or STATUS_S, STATUS_S)
+    while True:
+        notify.status(status_line(rig))
+        if notify.watchdog_s is not None:
+            stuck_s = time.monotonic() - rig.beat
+            if stuck_s < notify.watchdog_s:
+                notify.watchdog()
+            else:  # no ping: the manager restarts the daemon, which is the point
+                log.error("the rig's thread has not gone round for %.1f s", stuck_s)
+        await asyncio.sleep(period)
 
 
 def _state(running: RunningRig) -> dict[str, Any]:

@@ -690,29 +690,42 @@ class Store:
     def stats(self) -> StoreStats:
         """File sizes (bytes) and row counts."""
         with self._reading() as conn:
-
-            def count(table: str) -> int:
-                return int(conn.execute(f"SELECT COUNT(*) FROM {table}").fetchone()[0])
-
-            tests, point_sets, hits = (count(t) for t in ("tests", "point_sets", "hits"))
-            seq = conn.execute("SELECT value FROM store_meta WHERE key = 'last_seq'").fetchone()
-            version = conn.execute("PRAGMA user_version").fetchone()[0]
-        wal = self.path.with_name(FILE_NAME + "-wal")
-        wal_bytes = wal.stat().st_size if wal.exists() else 0
-        return StoreStats(
-            str(self.path),
-            self.path.stat().st_size,
-            wal_bytes,
-            tests,
-            point_sets,
-            hits,
-            int(seq[0]),
-            int(version),
-        )
+            return _stats(conn, self.path)
 
     def integrity_check(self) -> str:
         """ "ok", or SQLite's list of problems one per line (PRAGMA integrity_check)."""
         return "\n".join(r[0] for r in self._query("PRAGMA integrity_check"))
+
+
+def peek_stats(data_dir: Path) -> StoreStats | None:
+    """The stats of the store in `data_dir`, opened read-only beside a running writer (for
+    `taprigd status`); None if there is no store yet. Raises StoreError if it cannot be read."""
+    path = Path(data_dir).resolve() / FILE_NAME
+    if not path.exists():
+        return None
+    try:
+        conn = sqlite3.connect(f"{path.as_uri()}?mode=ro", uri=True, timeout=5.0)
+    except sqlite3.Error as exc:
+        raise StoreError(f"cannot open {path} to read: {exc}") from exc
+    try:
+        return _stats(conn, path)
+    except sqlite3.Error as exc:
+        raise StoreError(f"cannot read {path}: {exc}") from exc
+    finally:
+        conn.close()
+
+
+def _stats(conn: sqlite3.Connection, path: Path) -> StoreStats:
+    def count(table: str) -> int:
+        return int(conn.execute(f"SELECT COUNT(*) FROM {table}").fetchone()[0])
+
+    tests, point_sets, hits = (count(t) for t in ("tests", "point_sets", "hits"))
+    seq = conn.execute("SELECT value FROM store_meta WHERE key = 'last_seq'").fetchone()
+    version = conn.execute("PRAGMA user_version").fetchone()[0]
+    wal = path.with_name(FILE_NAME + "-wal")
+    wal_bytes = wal.stat().st_size if wal.exists() else 0
+    return StoreStats(str(path), path.stat().st_size, wal_bytes, tests, point_sets, hits,
+                      int(seq[0]), int(version))  # fmt: skip
 
 
 # ---------------------------------------------------------------- rows ↔ records

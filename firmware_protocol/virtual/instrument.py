@@ -3,7 +3,7 @@
 It speaks the binary protocol (or prints text lines) over a pseudo-terminal or
 TCP, answers the host's commands, and streams the exact response of a modal
 model to the taps a caller asks for, with sensor noise, ADC quantisation and
-clipping. Faults (double hits, overloads, dropped frames, corrupted bytes,
+clipping. Faults (double hits, overloads, dropped frames, corrupted bytes, garbage,
 unplug and replug, a stalled stream) can be switched on at any time.
 
 Channel 0 is the force hammer; channels 1.. are the accelerometers, in the
@@ -71,6 +71,7 @@ class Faults:
     overload_probability: float = 0.0
     drop_frame_probability: float = 0.0
     corrupt_probability: float = 0.0  # per frame: one byte flipped
+    garbage_probability: float = 0.0  # per frame: sent as random bytes of the same length
     stalled: bool = False  # the device sends nothing at all; its sample clock runs on
 
 
@@ -448,6 +449,10 @@ class VirtualInstrument:
             raw = bytearray(data)
             raw[int(self._rng.integers(0, len(raw)))] ^= int(self._rng.integers(1, 256))
             data = bytes(raw)
+            self.counters.frames_corrupted += 1
+        # Drawn only when switched on, so the other faults' random sequence stays as it was.
+        if self.faults.garbage_probability and self._rng.random() < self.faults.garbage_probability:
+            data = self._rng.bytes(len(data))  # line noise, a wrong baud rate, a foreign device
             self.counters.frames_corrupted += 1
         self.counters.frames_sent += 1
         self._queue(data)

@@ -5,7 +5,9 @@
    is read from /proc/<pid>/stat over a fixed window, with no hits and then
    with one hit a second; its peak RSS from /proc/<pid>/status (VmHWM).
    Goals: CPU at most 5 % of one core idle, 10 % with a hit a second; RSS at
-   most 100 MB.
+   most 100 MB. Ceilings, measured in the same run: a process that only reads
+   the same stream with pyserial and throws it away (no decoding), and the peak
+   RSS of the interpreter importing what `taprigd run` imports, then exiting.
 2. Per-hit latency, block 16384 × 4 channels, in process: from the moment the
    bytes completing a record are taken off the link queue to the point set's
    commit (averages = 1, so every hit commits), median beside a bare numpy
@@ -28,7 +30,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from table import Row, show
+from table import Figure, Row, pick, show
 
 from taprig.daemon.config import load_config
 from taprig.daemon.link import READ_TIMEOUT_S
@@ -76,6 +78,37 @@ def peak_rss_mb(pid: int) -> float:
     return float("nan")
 
 
+# The floor of any reader: pyserial reads the stream and drops it. Sends IDENTIFY and START
+# as the rig does, then reports its own CPU seconds per wall second.
+READER = """
+import os, sys, time, serial
+from taprig.firmware_protocol import Command, FrameEncoder, Opcode
+port = serial.serial_for_url(sys.argv[1], timeout=0.05)
+enc = FrameEncoder()
+port.write(enc.command(Command(Opcode.IDENTIFY, 1)) + enc.command(Command(Opcode.START, 2)))
+t0, c0 = time.monotonic(), sum(os.times()[:2])
+while time.monotonic() - t0 < float(sys.argv[2]):
+    port.read(65536)
+print((sum(os.times()[:2]) - c0) / (time.monotonic() - t0))
+"""
+IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.runner, "
+           "taprig.daemon.serve, taprig.firmware_protocol.virtual.instrument")  # fmt: skip
+
+
+def bare_reader_cpu(url: str, seconds: float) -> float:
+    out = subprocess.run([sys.executable, "-c", READER, url, str(seconds)], check=True,
+                         capture_output=True, text=True, timeout=seconds + 30)  # fmt: skip
+    return float(out.stdout)
+
+
+def imports_peak_rss_mb() -> float:
+    code = IMPORTS + "; print(open('/proc/self/status').read())"
+    out = subprocess.run([sys.executable, "-c", code], check=True, capture_output=True,
+                         text=True, timeout=60)  # fmt: skip
+    line = next(x for x in out.stdout.splitlines() if x.startswith("VmHWM:"))
+    return int(line.split()[1]) / 1024
+
+
 def daemon_cpu_and_memory(seconds: float) -> list[Row]:
     model = four_channel_panel()
     with tempfile.TemporaryDirectory() as tmp:
@@ -119,12 +152,18 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
         finally:
             proc.terminate()
             proc.wait(timeout=10)
+        try:
+            reader = bare_reader_cpu(str(link), seconds)
+        finally:
             vi.close()
     return [
         ("daemon CPU, streaming, no hits", 100 * idle, "% core", "goal <= 5 %"),
         ("daemon CPU, streaming, 1 hit/s", 100 * busy, "% core", "goal <= 10 %"),
+        ("ceiling: pyserial read of the stream alone", 100 * reader, "% core", "no decoding"),
         ("daemon peak RSS while capturing", rss, "MB", "goal <= 100 MB"),
-    ]
+        ("ceiling: interpreter + the daemon's imports", imports_peak_rss_mb(), "MB",
+         "peak RSS, nothing running"),
+    ]  # fmt: skip
 
 
 def hit_latency(hits: int) -> list[Row]:
@@ -176,6 +215,21 @@ def hit_latency(hits: int) -> list[Row]:
 
 def run(seconds: float = 10.0, hits: int = 20) -> list[Row]:
     return daemon_cpu_and_memory(seconds) + hit_latency(hits)
+
+
+def headline(rows: list[Row]) -> list[Figure]:
+    reader, floor = pick(rows, "ceiling: pyserial"), pick(rows, "ceiling: interpreter")
+    rfft = pick(rows, "bare numpy rfft")
+    return [
+        Figure("CPU share, streaming, no hits", pick(rows, "daemon CPU, streaming, no"),
+               "% core", "<=", 5.0, reader, "pyserial read alone"),
+        Figure("CPU share, streaming, 1 hit/s", pick(rows, "daemon CPU, streaming, 1"),
+               "% core", "<=", 10.0, reader, "pyserial read alone"),
+        Figure("per-hit latency to commit, median", pick(rows, "  + link read"), "ms", "<=",
+               30.0, rfft, "bare rfft of the record"),
+        Figure("daemon peak RSS", pick(rows, "daemon peak RSS"), "MB", "<=", 100.0, floor,
+               "interpreter + imports"),
+    ]  # fmt: skip
 
 
 if __name__ == "__main__":

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
+import math
 import sys
 import tempfile
 import time
@@ -25,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 import table
-from table import Row
+from table import Figure, Row, pick
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "client"))
 
@@ -105,6 +106,18 @@ def run(points: int = 210) -> list[Row]:
 
 def show(rows: list[Row]) -> None:
     table.show(rows, decimals=2)
+
+
+def headline(rows: list[Row]) -> list[Figure]:
+    nan = math.nan
+    return [
+        Figure("quick-look check, 210 points", pick(rows, "check, "), "ms", "<=", 2000.0,
+               pick(rows, "  floor: np.abs"), "one pass over |H1|"),
+        Figure("npz export, 210 points", pick(rows, "export npz"), "ms", "<=", 3000.0,
+               pick(rows, "  floor: np.save"), "np.save of the arrays"),
+        Figure("csv export", pick(rows, "export csv"), "rows/s", ">=", 200_000.0, nan, ""),
+        Figure("one FRF PNG", pick(rows, "one FRF PNG"), "ms", "<=", 1000.0, nan, ""),
+    ]  # fmt: skip
 
 
 def main() -> None:

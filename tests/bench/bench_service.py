@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import math
 import statistics
 import tempfile
 import time
@@ -25,7 +26,7 @@ from pathlib import Path
 import aiohttp
 import numpy as np
 from aiohttp import web
-from table import Row, show
+from table import Figure, Row, pick, show
 
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
@@ -173,6 +174,17 @@ def run(sets: int = 200, polls: int = 200) -> list[Row]:
             return asyncio.run(measure(running, Auth(Path(tmp) / "auth"), polls))
         finally:
             running.close()
+
+
+def headline(rows: list[Row]) -> list[Figure]:
+    blob = pick(rows, "ceiling: one pre-built blob")
+    pull = pick(rows, "pull point sets as msgpack, one")
+    return [
+        Figure("service pull, msgpack, one at a time", pull, "MB/s", ">=", GOAL_RATIO * blob,
+               blob, "one pre-built blob"),
+        Figure("empty changes poll, median", pick(rows, "empty changes poll"), "ms", "<=",
+               GOAL_POLL_MS, math.nan, ""),
+    ]  # fmt: skip
 
 
 if __name__ == "__main__":

@@ -18,7 +18,7 @@ from collections.abc import Callable
 
 import numpy as np
 import table
-from table import Row
+from table import Figure, Row, pick
 
 from taprig.daemon.spectra import (
     SpectralAverager,
@@ -76,6 +76,11 @@ def run(repeats: int = 200) -> list[Row]:
         ("ceiling: bare np.fft.rfft, same array", bare, "ms", "the FFT alone"),
         ("windows alone (force + exponential)", win, "ms", "part of the update"),
     ]
+
+
+def headline(rows: list[Row]) -> list[Figure]:
+    return [Figure("spectral update per hit", rows[0][1], "ms", "<=", GOAL_MS,
+                   pick(rows, "ceiling:"), "bare rfft")]  # fmt: skip
 
 
 def show(rows: list[Row]) -> None:

@@ -18,6 +18,7 @@ import math
 import time
 
 import numpy as np
+from table import Figure
 
 from taprig.firmware_protocol.text import TextDecoder, format_lines, rate_comment
 
@@ -84,13 +85,21 @@ def run() -> list[tuple[str, float, str, float]]:
     ]
 
 
-def main() -> None:
-    rows = run()
+def show(rows: list[tuple[str, float, str, float]]) -> None:
     ceiling = rows[-1]
     print(f"{CHANNELS} channels × {FRAMES:.0e} sample frames, {CHUNK // 1024} KiB chunks")
     for name, value, unit, goal in rows[:-1]:
         target = "(no goal)      " if math.isnan(goal) else f"goal >= {goal:.1e}"
         print(f"{name:<34} {value:7.1e} {unit}   {target}   {ceiling[0]} {ceiling[1]:.1e}")
+
+
+def headline(rows: list[tuple[str, float, str, float]]) -> list[Figure]:
+    return [Figure("decode, text lines", rows[0][1], "samples/s", ">=", GOAL, rows[-1][1],
+                   "np.fromstring, one call")]  # fmt: skip
+
+
+def main() -> None:
+    show(run())
 
 
 if __name__ == "__main__":

@@ -1,4 +1,5 @@
-"""Run every benchmark and print each figure beside its goal or ceiling.
+"""Run every benchmark, print each one's figures beside its goals and ceilings, and end with
+a summary: each headline figure on one line with its goal and its ceiling side by side.
 
 python tests/bench/run.py            # full size
 python tests/bench/run.py --quick    # small inputs, to check the benchmarks still run
@@ -8,7 +9,10 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
@@ -20,31 +24,61 @@ import bench_phone
 import bench_pull
 import bench_service
 import bench_spectra
+import bench_startup
 import bench_text_input
+from table import Figure, summary
+
+
+@dataclass(frozen=True)
+class Bench:
+    """One benchmark: `run(quick)` gives its rows, `show` prints them, `headline` picks the
+    figures of the summary (each with goal and ceiling)."""
+
+    title: str
+    run: Callable[[bool], list[Any]]
+    show: Callable[[list[Any]], None]
+    headline: Callable[[list[Any]], list[Figure]]
+
+
+BENCHES = [
+    Bench("device link: binary frames", lambda q: bench_decode.run(4.0 if q else 64.0),
+          bench_decode.show, bench_decode.headline),
+    Bench("device link: text lines", lambda q: bench_text_input.run(),
+          bench_text_input.show, bench_text_input.headline),
+    Bench("spectra: per-hit update", lambda q: bench_spectra.run(20 if q else 200),
+          bench_spectra.show, bench_spectra.headline),
+    Bench("service: pulls over loopback, empty changes poll",
+          lambda q: bench_service.run(20 if q else 200), bench_service.show,
+          bench_service.headline),
+    # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
+    Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
+          lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),
+    Bench("client: quick-look check, exports, plots",
+          lambda q: bench_client.run(30 if q else 210), bench_client.show, bench_client.headline),
+    Bench("the one-command demo", lambda q: bench_demo.run(), bench_demo.show,
+          bench_demo.headline),
+    Bench("capture: daemon CPU, memory, per-hit latency",
+          lambda q: bench_capture.run(2.0 if q else 10.0, 5 if q else 20),
+          bench_capture.show, bench_capture.headline),
+    Bench("start-up: until the rig is announced", lambda q: bench_startup.run(2 if q else 5),
+          lambda rows: bench_startup.show(rows, decimals=2), bench_startup.headline),
+    Bench("phone page: tap to plots in headless Chromium, page weight",
+          lambda q: bench_phone.run(3 if q else 10), bench_phone.show, bench_phone.headline),
+]  # fmt: skip
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description="taprig benchmarks")
     parser.add_argument("--quick", action="store_true", help="small inputs, figures not meaningful")
     quick = parser.parse_args().quick
-    print("== device link: binary frames")
-    bench_decode.show(bench_decode.run(4.0 if quick else 64.0))
-    print("== device link: text lines")
-    bench_text_input.main()
-    print("== spectra: per-hit update")
-    bench_spectra.show(bench_spectra.run(20 if quick else 200))
-    print("== service: pulls over loopback, empty changes poll")
-    bench_service.show(bench_service.run(20 if quick else 200))
-    print("== client: full pull into an empty mirror")
-    bench_pull.show(bench_pull.run(20 if quick else 200), decimals=2)
-    print("== client: quick-look check, exports, plots")
-    bench_client.show(bench_client.run(30 if quick else 210))
-    print("== the one-command demo")
-    bench_demo.show(bench_demo.run())
-    print("== capture: daemon CPU, memory, per-hit latency")
-    bench_capture.show(bench_capture.run(2.0 if quick else 10.0, 5 if quick else 20))
-    print("== phone page: tap to plots in headless Chromium, page weight")
-    bench_phone.show(bench_phone.run(3 if quick else 10))
+    figures: list[Figure] = []
+    for bench in BENCHES:
+        print(f"== {bench.title}")
+        rows = bench.run(quick)
+        bench.show(rows)
+        figures += bench.headline(rows)
+    print("== summary: each figure beside its goal and its ceiling (best possible, same run)")
+    summary(figures)
 
 
 if __name__ == "__main__":
