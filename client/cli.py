@@ -23,6 +23,7 @@ import typer
 from .errors import ClientError
 
 if TYPE_CHECKING:
+    from .dataset import TestData
     from .mirror import Mirror
     from .pull import PullReport
     from .remote import RigClient
@@ -325,14 +326,21 @@ class Quantity(StrEnum):
     receptance = "receptance"
 
 
+TestArgument = Annotated[str, typer.Argument(help="a test in the local mirror (see `tests`)")]
 BandOption = Annotated[
     str | None, typer.Option("--band", help="only F1 <= f <= F2, written F1:F2 in Hz")
 ]
 
 
+def _load(rig: str | None, test: str) -> TestData:
+    """A mirrored test of a paired rig, as arrays (offline)."""
+    with _mirror(_paired(rig)) as mirror:
+        return mirror.load(test)
+
+
 @app.command()
 def export(
-    test: Annotated[str, typer.Argument(help="the test to export (from the local mirror)")],
+    test: TestArgument,
     fmt: Annotated[Format, typer.Option("--format", help="file format")] = Format.npz,
     quantity: Annotated[
         Quantity, typer.Option("--as", help="FRF quantity: as measured, or divided by iω, -ω²")
@@ -348,9 +356,7 @@ def export(
     from .export import export as write
 
     with _guard():
-        paired = _paired(rig)
-        with _mirror(paired) as mirror:
-            data = mirror.load(test)
+        data = _load(rig, test)
         suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
         path = write(data, out or Path(f"{test}{suffix}"), fmt.value, quantity.value, _band(band))
     obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
@@ -361,7 +367,7 @@ def export(
 
 @app.command()
 def check(
-    test: Annotated[str, typer.Argument(help="the test to check (from the local mirror)")],
+    test: TestArgument,
     band: BandOption = None,
     plots: Annotated[
         Path | None, typer.Option(help="also draw PNG plots into this folder (plots extra)")
@@ -374,9 +380,7 @@ def check(
     from .check import check as run_check
 
     with _guard():
-        paired = _paired(rig)
-        with _mirror(paired) as mirror:
-            data = mirror.load(test)
+        data = _load(rig, test)
         result = run_check(data, CheckSettings(band_hz=_band(band)))
         drawn: list[Path] = []
         if plots is not None:

@@ -54,6 +54,7 @@ class ServedRig:
     running: RunningRig
     service: Service
     token: str
+    loop: LoopThread
 
     @property
     def url(self) -> str:
@@ -62,6 +63,10 @@ class ServedRig:
     @property
     def rig_id(self) -> str:
         return self.service.rig_id
+
+    def service_stop(self) -> None:
+        """Stop serving (the rig goes away from the LAN); idempotent."""
+        self.loop.close()
 
 
 class LoopThread:
@@ -75,6 +80,8 @@ class LoopThread:
         asyncio.run_coroutine_threadsafe(service.async_start(), self.loop).result(30)
 
     def close(self) -> None:
+        if self.loop.is_closed():
+            return
         asyncio.run_coroutine_threadsafe(self.service.async_close(), self.loop).result(30)
         self.loop.call_soon_threadsafe(self.loop.stop)
         self.thread.join(30)
@@ -118,7 +125,7 @@ def served(tmp_path: Path) -> Iterator[ServedRig]:
         service = Service(running, auth)
         loop = LoopThread(service)
         try:
-            yield ServedRig(running, service, auth.token)
+            yield ServedRig(running, service, auth.token, loop)
         finally:
             loop.close()
     finally:

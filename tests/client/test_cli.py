@@ -54,6 +54,32 @@ def test_pair_status_tests_pull(served: ServedRig, places: Places) -> None:
         assert_mirror_is_rig(m, served)
 
 
+def test_export_and_check_work_offline_from_the_mirror(
+    served: ServedRig, places: Places, tmp_path: Path
+) -> None:
+    """Once pulled, export and check need no rig: the service is closed before they run."""
+    commit_synthetic(served.running, "plate-a", 3)
+    as_json(taprig(places, "pair", f"{served.url}/pair#token={served.token}", "--json"))
+    as_json(taprig(places, "pull", "--json"))
+    served.service_stop()
+    out = tmp_path / "plate.csv"
+    made = as_json(taprig(places, "export", "plate-a", "--format", "csv", "--as", "mobility",
+                          "--band", "100:400", "--out", str(out), "--json"))  # fmt: skip
+    assert made == {"file": str(out), "points": 3, "responses": ["acc0", "acc1"],
+                    "quantity": "mobility", "format": "csv"}  # fmt: skip
+    freqs = {float(line.split(",")[3]) for line in out.read_text().splitlines()
+             if line[:1] == "P"}  # fmt: skip
+    assert freqs and min(freqs) >= 100.0 and max(freqs) <= 400.0
+    report = as_json(taprig(places, "check", "plate-a", "--json"))
+    assert [p["point"] for p in report["point_checks"]] == ["P0", "P1", "P2"]
+    text = taprig(places, "check", "plate-a")
+    assert text.returncode == 0 and "quick-look check of test 'plate-a'" in text.stdout
+    bad = taprig(places, "export", "plate-a", "--band", "400:100")
+    assert bad.returncode == 2 and "--band '400:100'" in bad.stderr
+    missing = taprig(places, "check", "no-such-test")
+    assert missing.returncode == 3 and "no test 'no-such-test'" in missing.stderr
+
+
 def test_errors_are_one_line_with_an_exit_code(served: ServedRig, places: Places) -> None:
     out = taprig(places, "status")
     assert out.returncode == 2 and out.stderr.startswith("taprig: no rig is paired")
