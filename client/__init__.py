@@ -7,22 +7,22 @@ The Python API (names load on first use, so the command line starts quickly)::
         data = mirror.load("bracket-1")           # TestData: arrays and metadata of one test
         print(data.freq_hz.shape, data.h1.shape)  # (F,), (points, responses, F)
 
-`Mirror` (mirror.py), `TestData` (dataset.py), `RigClient` (remote.py), `pull` (pull.py).
+`Mirror` (mirror.py), `TestData` (dataset.py), `RigClient` (remote.py); pulls with
+`taprig.client.pull.pull(client, mirror)`.
 """
 
 from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-__all__ = ["Mirror", "RigClient", "TestData", "pull"]
+__all__ = ["Mirror", "RigClient", "TestData"]
 
 if TYPE_CHECKING:
     from .dataset import TestData
     from .mirror import Mirror
-    from .pull import pull
     from .remote import RigClient
 
-_WHERE = {"Mirror": "mirror", "TestData": "dataset", "RigClient": "remote", "pull": "pull"}
+_WHERE = {"Mirror": "mirror", "TestData": "dataset", "RigClient": "remote"}
 
 
 def __getattr__(name: str) -> Any:

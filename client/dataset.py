@@ -49,6 +49,7 @@ class TestData:
     ``rig_id``, ``test``; point_set_ids / versions / seqs: per row, from the rig.
     grid: the test's whole grid (label, x, y, z, direction), measured or not.
     planned_averages: the averages per point the test asked for (0 when unknown).
+    completed_utc: per row, when its point set completed on the rig (ISO 8601 UTC).
     """
 
     rig: str
@@ -77,6 +78,7 @@ class TestData:
     grid: tuple[tuple[str, float, float, float, str], ...]
     meta: dict[str, Any] = field(default_factory=dict)
     planned_averages: int = 0  # averages per point the test asked for (0: unknown)
+    completed_utc: tuple[str, ...] = ()  # per row: when its point set completed, ISO 8601 UTC
 
     @property
     def sample_rate_hz(self) -> float:
@@ -176,6 +178,7 @@ def assemble(
         grid=tuple(test.grid),
         meta={**first.meta, "rig": rig, "rig_id": rig_id, "test": test.name},
         planned_averages=test.averages,
+        completed_utc=tuple(ps.completed_utc for ps in rows),
     )
 
 

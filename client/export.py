@@ -164,6 +164,8 @@ def meta_json(data: TestData, quantity: str, band: tuple[float, float] | None) -
         "point_set_ids": list(data.point_set_ids),
         "versions": list(data.versions),
         "seqs": list(data.seqs),
+        "completed_utc": list(data.completed_utc),
+        "planned_averages": data.planned_averages,
     }
     return json.dumps(jsonable(meta), sort_keys=True, allow_nan=False)
 

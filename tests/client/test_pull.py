@@ -65,6 +65,21 @@ def test_pull_is_bit_identical_and_incremental(served: ServedRig, tmp_path: Path
         assert data.h1.shape == (12, 2, 4097) and data.points[0] == "P0"
         assert data.rejections[0] == {"double_hit": 1}
         assert data.exp_tau_s == 0.05 and data.rig_id == served.rig_id
+        assert data.planned_averages == 3 and len(data.completed_utc) == 12
+
+
+def test_python_api_reads_a_paired_rigs_mirror(served: ServedRig, places: Places) -> None:
+    """The README's example: `from taprig.client import Mirror`, then Mirror.open_rig."""
+    from taprig.client import Mirror as ApiMirror
+    from taprig.client import RigClient as ApiClient
+
+    commit_synthetic(served.running, "plate-a", 2)
+    rig = pair(places, served)
+    with ApiClient(rig.url, rig.token) as client, ApiMirror.open_rig("test-rig", places) as m:
+        pull(client, m)
+    with ApiMirror.open_rig(None, places) as mirror:
+        data = mirror.load("plate-a")
+    assert data.points == ("P0", "P1") and data.h1.shape == (2, 2, 4097)
 
 
 def test_two_mirrors_of_one_rig_are_identical(served: ServedRig, tmp_path: Path) -> None:
