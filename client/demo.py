@@ -145,6 +145,8 @@ def operate(rig: RigClient, hammer: Hammer, truth: dict[str, Any], say: Say) -> 
             result.redone, redo_pending = point, False
             continue
         result.taps += 1
+        if result.taps > 4 * AVERAGES * len(labels):
+            raise ClientError(f"{result.taps} taps and the grid is still not done; see the log")
         double = result.taps in DOUBLE_HIT_TAPS
         before = _last_hit_index(rig)
         hammer.tap(point, double_hit=double)
