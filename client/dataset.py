@@ -80,19 +80,6 @@ class TestData:
     planned_averages: int = 0  # averages per point the test asked for (0: unknown)
     completed_utc: tuple[str, ...] = ()  # per row: when its point set completed, ISO 8601 UTC
 
-    @property
-    def sample_rate_hz(self) -> float:
-        """The device's sample rate, Hz (from the point-set metadata; NaN if missing)."""
-        value = self.meta.get("sample_rate_hz")
-        return float(value) if isinstance(value, int | float) else math.nan
-
-    def row(self, point: str) -> int:
-        """The row of grid point `point`; KeyError if it has no point set."""
-        try:
-            return self.points.index(point)
-        except ValueError:
-            raise KeyError(f"point {point!r} has no completed point set in {self.test!r}") from None
-
     def driving_point_rows(self) -> list[tuple[int, int]]:
         """(row, response) pairs where the hammer struck the sensor's own point."""
         return [

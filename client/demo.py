@@ -16,7 +16,6 @@ import contextlib
 import json
 import shutil
 import signal
-import socket
 import subprocess
 import sys
 import tempfile
@@ -25,6 +24,8 @@ from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Final
+
+from taprig.firmware_protocol.virtual.control import ControlClient
 
 from .errors import ClientError
 from .mirror import Mirror
@@ -64,22 +65,18 @@ class DemoResult:
 
 
 class Hammer:
-    """The virtual instrument's control port: strikes a point (JSON lines over loopback)."""
+    """The operator's hammer: strikes the virtual instrument through its control port."""
 
     def __init__(self, port: int) -> None:
-        self._sock = socket.create_connection(("127.0.0.1", port), timeout=10)
-        self._lines = self._sock.makefile("rb")
+        self._control = ControlClient(port)
 
     def tap(self, point: str, double_hit: bool = False) -> None:
-        request = {"op": "tap", "point": point, "double_hit": double_hit, "overload": False}
-        self._sock.sendall((json.dumps(request) + "\n").encode())
-        reply = json.loads(self._lines.readline() or b"{}")
+        reply = self._control.request("tap", point=point, double_hit=double_hit, overload=False)
         if not reply.get("ok"):
             raise ClientError(f"the virtual hammer did not strike {point}: {reply}")
 
     def close(self) -> None:
-        self._lines.close()
-        self._sock.close()
+        self._control.close()
 
 
 @contextlib.contextmanager

@@ -201,11 +201,6 @@ class RigClient:
             )  # fmt: skip
         return info
 
-    def health(self) -> dict[str, Any]:
-        _status, _headers, data = self.request("GET", "/v1/health")
-        obj: dict[str, Any] = json.loads(data)
-        return obj
-
     def state(self) -> dict[str, Any]:
         obj: dict[str, Any] = self._json("GET", "/v1/state")
         return obj

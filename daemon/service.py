@@ -49,7 +49,6 @@ from .advertise import rig_id as _rig_id
 from .errors import ConfigError, SessionError, StoreError, TaprigError
 from .records import GridPoint, RovingMode
 from .store import Store, TestPlan, import_grid_csv
-from .wirebody import content_digest
 
 if TYPE_CHECKING:
     from taprig.firmware_protocol import DeviceInfo
@@ -1025,7 +1024,7 @@ def encode_point_set(store: Store, pid: int, with_hits: bool, as_msgpack: bool) 
     ps = store.get_point_set(pid, with_hits)
     obj = wire.point_set_to_obj(wire.point_set_from_record(pid, ps), with_hits)
     body, media = (wire.pack(obj), wire.MSGPACK) if as_msgpack else (_point_json(obj), JSON)
-    return body, media, content_digest(body)
+    return body, media, wire.content_digest(body)
 
 
 class BodyCache:

@@ -11,6 +11,7 @@ reply object per line. Requests:
     {"op": "state"}                                   -> {"ok": true, "streaming": ..., ...}
 
 A bad request gets {"ok": false, "error": "..."} and changes nothing.
+`ControlServer` serves it; `ControlClient` is the other end, for the demo and tests.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import logging
+import socket
 import socketserver
 import threading
 from typing import Any
@@ -160,3 +162,36 @@ class ControlServer:
             self._server.shutdown()
             self._thread.join(timeout=5.0)
         self._server.server_close()
+
+
+class ControlClient:
+    """The other end of a `ControlServer` on 127.0.0.1:`port`: one connection, kept open.
+
+    `request(op, **fields)` sends one request and returns the reply object, ok or not;
+    `close()` is idempotent (also on leaving a `with` block).
+    """
+
+    def __init__(self, port: int, timeout_s: float = 10.0) -> None:
+        self._sock = socket.create_connection(("127.0.0.1", port), timeout=timeout_s)
+        self._lines = self._sock.makefile("rb")
+        self._closed = False
+
+    def request(self, op: str, **fields: Any) -> dict[str, Any]:
+        self._sock.sendall((json.dumps({"op": op, **fields}) + "\n").encode())
+        line = self._lines.readline(MAX_LINE + 1)
+        if not line:
+            raise ConnectionError("the control port closed the connection without a reply")
+        reply: dict[str, Any] = json.loads(line)
+        return reply
+
+    def close(self) -> None:
+        if not self._closed:
+            self._closed = True
+            self._lines.close()
+            self._sock.close()
+
+    def __enter__(self) -> ControlClient:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()

@@ -58,7 +58,7 @@ def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
 
 def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None:
     """run.json appears while serving (port and control port), and goes when taprigd stops."""
-    import socket
+    from taprig.firmware_protocol.virtual.control import ControlClient
 
     log = tmp_path / "taprigd.log"
     with log.open("w") as err:
@@ -79,10 +79,8 @@ def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None
         record = json.loads(run_file.read_text())
         assert record["pid"] == proc.pid and record["bind"] == "127.0.0.1"
         assert get(f"http://127.0.0.1:{record['port']}/v1/info")[0] == 200
-        with socket.create_connection(("127.0.0.1", record["control_port"]), timeout=5) as s:
-            s.sendall(b'{"op": "state"}\n')
-            with s.makefile("rb") as lines:
-                reply = json.loads(lines.readline())
+        with ControlClient(record["control_port"], timeout_s=5) as control:
+            reply = control.request("state")
         assert reply["ok"] is True
     finally:
         proc.send_signal(signal.SIGTERM)

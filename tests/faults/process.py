@@ -10,7 +10,6 @@ from __future__ import annotations
 import json
 import os
 import signal
-import socket
 import subprocess
 import sys
 import time
@@ -20,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from taprig.daemon.store import Store
+from taprig.firmware_protocol.virtual.control import ControlClient
 
 START_TIMEOUT_S = 60.0
 
@@ -116,10 +116,8 @@ class Taprigd:
     # --- the virtual instrument's control port -----------------------------------
 
     def control(self, op: str, **fields: Any) -> dict[str, Any]:
-        with socket.create_connection(("127.0.0.1", self.control_port), timeout=5) as s:
-            s.sendall(json.dumps({"op": op, **fields}).encode() + b"\n")
-            with s.makefile("rb") as lines:
-                reply: dict[str, Any] = json.loads(lines.readline())
+        with ControlClient(self.control_port, timeout_s=5) as control:
+            reply = control.request(op, **fields)
         assert reply.get("ok"), reply
         return reply
 
@@ -191,8 +189,9 @@ def check_store(data_dir: Path, seen_ids: set[int]) -> int:
     integrity_check passes; every point set a client had seen is there; every point set is
     complete: all its accepted hits, decodable arrays, and a wire body matching its digest.
     """
-    from taprig.daemon.wirebody import content_digest, encode_body
+    from taprig.daemon.wirebody import encode_body
     from taprig.schema import wire
+    from taprig.schema.wire import content_digest
 
     with Store(data_dir, body_encoder=encode_body) as store:
         assert store.integrity_check() == "ok"

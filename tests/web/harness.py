@@ -11,7 +11,6 @@ import contextlib
 import json
 import shutil
 import signal
-import socket
 import subprocess
 import sys
 import time
@@ -24,6 +23,8 @@ from selenium import webdriver
 from selenium.webdriver.chrome.service import Service as DriverService
 from selenium.webdriver.remote.webdriver import WebDriver
 from selenium.webdriver.support.wait import WebDriverWait
+
+from taprig.firmware_protocol.virtual.control import ControlClient
 
 CHROMIUM = "/usr/bin/chromium"
 CHROMEDRIVER = "/usr/bin/chromedriver"
@@ -53,10 +54,8 @@ class Taprigd:
 
     def control(self, **request: Any) -> dict[str, Any]:
         """One request to the virtual instrument's control port; its reply must be ok."""
-        with socket.create_connection(("127.0.0.1", self.control_port), timeout=5) as s:
-            s.sendall(json.dumps(request).encode() + b"\n")
-            with s.makefile("rb") as lines:
-                reply: dict[str, Any] = json.loads(lines.readline())
+        with ControlClient(self.control_port, timeout_s=5) as control:
+            reply = control.request(**request)
         assert reply.get("ok") is True, reply
         return reply
 
