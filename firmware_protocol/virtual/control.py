@@ -10,6 +10,9 @@ reply object per line. Requests:
     {"op": "move_sensor", "sensor": "acc1", "point": "C4"} -> {"ok": true}
     {"op": "state"}                                   -> {"ok": true, "streaming": ..., ...}
 
+A tap answers once its samples are on the wire; when an overrun of the simulated converter
+(a host too busy to keep the simulation in real time) swallowed them, the instrument taps again,
+as an operator would who saw no response (`VirtualInstrument.strike`).
 A bad request gets {"ok": false, "error": "..."} and changes nothing.
 `ControlServer` serves it; `ControlClient` is the other end, for the demo and tests.
 """
@@ -39,7 +42,7 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
     op = request["op"]
     try:
         if op == "tap":
-            rec = vi.tap(
+            rec = vi.strike(
                 str(request["point"]),
                 _opt_float(request, "force_n"),
                 _opt_float(request, "width_s"),
@@ -69,12 +72,13 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
                 "rate_hz": vi.rate_hz,
                 "frames_sent": c.frames_sent,
                 "overruns": c.overruns,
+                "taps_lost": c.taps_lost,
                 "taps": len(c.taps),
                 "faults": dataclasses.asdict(vi.faults),
             }
     except KeyError as exc:
         return {"ok": False, "error": f"{op}: missing field {exc}"}
-    except ValueError as exc:
+    except (ValueError, TimeoutError) as exc:
         return {"ok": False, "error": f"{op}: {exc}"}
     return {
         "ok": False,

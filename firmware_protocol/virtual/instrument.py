@@ -33,6 +33,8 @@ from .synth import ResponseSynth, pulse_train
 
 log = logging.getLogger(__name__)
 
+MAX_LAG_S = 5.0  # s of samples the simulated converter's FIFO holds while the host is starved
+
 MIN_RATE_HZ = 1000.0
 MAX_RATE_HZ = 204_800.0
 
@@ -94,6 +96,7 @@ class InstrumentCounters:
     frames_dropped: int = 0
     frames_corrupted: int = 0
     overruns: int = 0
+    taps_lost: int = 0  # taps whose samples an overrun skipped: the host never saw them
     bytes_sent: int = 0
     commands: int = 0
     taps: list[TapRecord] = field(default_factory=list)
@@ -243,6 +246,41 @@ class VirtualInstrument:
             record = TapRecord(point, t0, math.ceil(t0 * rate), peak, width, double_hit, overload)
             self.counters.taps.append(record)
         return record
+
+    def strike(
+        self,
+        point: str,
+        force_n: float | None = None,
+        width_s: float | None = None,
+        *,
+        timeout_s: float = 30.0,
+        **faults: bool | None,
+    ) -> TapRecord | None:
+        """`tap`, then wait until the tap's samples are sent; tap again if an overrun lost them.
+
+        An operator whose tap the rig never saw (the converter overran: `InstrumentCounters.
+        overruns`, and the host counts the samples lost) taps again. Tests and the demo use this
+        so that a machine too busy to keep the simulation in real time costs a retry, not a hit.
+        None if the device is not streaming; TimeoutError if the samples are not sent in time.
+        """
+        deadline = time.monotonic() + timeout_s
+        while True:
+            lost = self.counters.taps_lost
+            record = self.tap(point, force_n, width_s, **faults)
+            if record is None:
+                return None
+            end = record.first_index + math.ceil(record.width_s * self._rate_hz) + 1
+            while True:
+                with self._lock:  # the skip-ahead advances the index and counts under it
+                    sent, now_lost = self._synth.next_index >= end, self.counters.taps_lost
+                if sent or not self._streaming:
+                    break
+                if time.monotonic() > deadline:
+                    raise TimeoutError(f"the tap at {point} was not sent within {timeout_s} s")
+                self._stop.wait(0.002)
+            if now_lost == lost:
+                return record
+            log.info("tap at %s lost to an overrun; tapping again", point)
 
     def move_sensor(self, response_label: str, point: str) -> None:
         """Roving-sensor mode: move an accelerometer to another point."""
@@ -397,14 +435,18 @@ class VirtualInstrument:
     def _stream(self, now: float) -> None:
         period = self.settings.frame_samples / self._rate_hz
         behind = int((now - self._t_start) / period) - self._chunks
-        if behind > 200:  # the thread was starved: the converter overran, skip ahead
+        if behind * period > MAX_LAG_S:  # starved past the FIFO: the converter overran, skip
             with self._lock:
+                skipped_from = self._synth.next_index
                 for _ in range(behind - 1):
                     self._synth.next_chunk()
+                self._count_lost_taps(skipped_from, self._synth.next_index)
             self._chunks += behind - 1
             self.counters.overruns += 1
             behind = 1
-        for _ in range(max(0, behind)):
+        for k in range(max(0, behind)):
+            if (k or behind > 1) and len(self._pending) > self.settings.device_buffer_bytes:
+                break  # catching up: the rest waits until the host has read this much
             first = self._synth.next_index
             with self._lock:
                 force, accel = self._synth.next_chunk()
@@ -413,6 +455,16 @@ class VirtualInstrument:
             if self.faults.stalled:
                 continue
             self._emit_chunk(first, codes)
+            self._flush()  # a catch-up after a starved spell drains as the host reads
+
+    def _count_lost_taps(self, first: int, end: int) -> None:
+        """Taps whose pulse touches samples first..end-1, which are never sent."""
+        for tap in reversed(self.counters.taps):
+            tap_end = tap.first_index + math.ceil(tap.width_s * self._rate_hz) + 1
+            if tap_end <= first:
+                break
+            if tap.first_index < end:
+                self.counters.taps_lost += 1
 
     def _quantise(self, force: np.ndarray, accel: np.ndarray) -> np.ndarray:
         """(n, channels) sample codes (or volts for float32), with noise and clipping."""
@@ -443,6 +495,8 @@ class VirtualInstrument:
             return
         if len(self._pending) > self.settings.device_buffer_bytes:
             self.counters.overruns += 1  # the host is not reading: the device drops the frame
+            with self._lock:
+                self._count_lost_taps(first, first + codes.shape[0])
             return
         data = self._enc.data(first, codes, self.settings.sample_format)
         if self._rng.random() < self.faults.corrupt_probability:
