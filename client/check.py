@@ -89,6 +89,7 @@ __all__ = [
     "DrivingPointCheck",
     "ModePeak",
     "PointCheck",
+    "analysis_band",
     "check",
     "force_band_tops",
     "half_power",
@@ -344,10 +345,7 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
     s = settings or CheckSettings()
     freq = data.freq_hz
     tops = force_band_tops(freq, data.gff, s.force_drop_db, s.low_fraction)
-    if s.band_hz is not None:
-        band = (float(s.band_hz[0]), float(s.band_hz[1]))
-    else:
-        band = (float(freq[1]) if freq.size > 1 else 0.0, float(np.median(tops)))
+    band = analysis_band(data, s, tops)
     in_band = (freq >= band[0]) & (freq <= band[1])
     if in_band.sum() < 3:
         raise ValueError(
@@ -374,6 +372,20 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
         driving_points=driving,
         settings=s,
     )
+
+
+def analysis_band(
+    data: TestData, settings: CheckSettings | None = None, tops: FloatArray | None = None
+) -> tuple[float, float]:
+    """The analysis band (F1, F2), Hz: ``settings.band_hz``, or from the first line above
+    0 Hz to the median of the points' force-band tops (`tops`, computed when not given)."""
+    s = settings or CheckSettings()
+    if s.band_hz is not None:
+        return (float(s.band_hz[0]), float(s.band_hz[1]))
+    freq = data.freq_hz
+    if tops is None:
+        tops = force_band_tops(freq, data.gff, s.force_drop_db, s.low_fraction)
+    return (float(freq[1]) if freq.size > 1 else 0.0, float(np.median(tops)))
 
 
 def _point_check(
