@@ -50,7 +50,7 @@ class StabilityTolerances:
     """freq: relative frequency change; damping: relative damping change; mac: the least
     participation-vector MAC (between consecutive orders); min_share: the share of the
     orders (at least 3 poles) a cluster needs to stand for a physical mode; cluster_width:
-    where clusters are cut, in tolerances (0.2: 0.2 % in f and 1 % in ζ by default)."""
+    where clusters are cut in frequency, as a share of `freq` (0.2: 0.2 % by default)."""
 
     freq: float = 0.01
     damping: float = 0.05
@@ -161,10 +161,11 @@ def choose_automatic(d: Diagram, tol: StabilityTolerances, n_ref: int) -> Chosen
     Notes
     -----
     The stable poles (all three bits) are clustered by average-linkage hierarchical
-    clustering (scipy.cluster.hierarchy) on x = ln f / tol.freq and y = ln ζ / tol.damping,
-    so a distance of 1 is one tolerance; clusters are cut at tol.cluster_width (poles of one
-    mode scatter far less over the orders than the tolerances between consecutive orders
-    allow, and close modes, e.g. 0.5 % apart, must stay apart). A cluster stands
+    clustering (scipy.cluster.hierarchy) on x = ln f / (tol.cluster_width · tol.freq) and
+    y = ln ζ / tol.damping, cut at distance 1: 0.2 % in frequency or 5 % in damping by
+    default. A mode's poles scatter far less in frequency over the orders than the
+    tolerance between consecutive orders allows, and close modes (0.4 % apart, say) must
+    stay apart; in damping they scatter more. A cluster stands
     for a physical mode when it has at least max(3, tol.min_share · number of orders)
     members; its pole is the member closest to the cluster's median (f, ζ) in that
     metric. Its multiplicity is the median number of members per order it appears in,
@@ -178,9 +179,11 @@ def choose_automatic(d: Diagram, tol: StabilityTolerances, n_ref: int) -> Chosen
     if stable.size < need:
         return empty
     f, z = d.freq_hz[stable], d.damping_ratio[stable]
-    xy = np.column_stack([np.log(f) / tol.freq, np.log(np.maximum(z, 1e-12)) / tol.damping])
+    xy = np.column_stack(
+        [np.log(f) / (tol.cluster_width * tol.freq), np.log(np.maximum(z, 1e-12)) / tol.damping]
+    )
     labels = (
-        fcluster(linkage(xy, method="average"), t=tol.cluster_width, criterion="distance")
+        fcluster(linkage(xy, method="average"), t=1.0, criterion="distance")
         if stable.size > 1
         else np.ones(1, dtype=np.int64)
     )
