@@ -412,6 +412,11 @@ def demo(
     typer.echo(result.check.read_text(encoding="utf-8").split("\n\n")[0])
 
 
+from .fitting_cli import register as _register_fit  # noqa: E402 (needs the helpers above)
+
+_register_fit(app)
+
+
 def main() -> None:
     app()
 

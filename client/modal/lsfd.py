@@ -133,10 +133,10 @@ def _split(res: ComplexArray, count: int) -> tuple[ComplexArray, ComplexArray]:
     """`count` shapes (count, P) and participation vectors (count, R) of a residue (P, R)."""
     if count == 1:
         u, sv, vh = np.linalg.svd(res, full_matrices=False)
-        return (u[:, :1] * sv[:1]).T, np.conj(vh[:1])
+        return (u[:, :1] * sv[:1]).T, np.conj(vh[:1]).astype(np.complex128)
     u, _, _ = np.linalg.svd(np.hstack([res.real, res.imag]), full_matrices=False)
     psi = u[:, :count].astype(np.complex128)  # (P, count), orthonormal
-    part = np.linalg.lstsq(psi, res, rcond=None)[0]  # (count, R)
+    part = np.linalg.lstsq(psi, res, rcond=None)[0].astype(np.complex128)  # (count, R)
     return psi.T, part
 
 

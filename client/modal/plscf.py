@@ -221,4 +221,5 @@ def poles_at_order(
     part = vec[:n_ref, keep].T.astype(np.complex128)
     part /= np.maximum(np.linalg.norm(part, axis=1, keepdims=True), 1e-300)
     order_idx = np.argsort(f_hz[keep])
-    return PoleSet(order=order, s=s[keep][order_idx], participation=part[order_idx])
+    poles = s[keep][order_idx].astype(np.complex128)
+    return PoleSet(order=order, s=poles, participation=part[order_idx])

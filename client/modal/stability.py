@@ -108,7 +108,8 @@ def _subspace_mac(v: ComplexArray, basis: ComplexArray) -> float:
     """Share of |v|² in the span of the rows of `basis` (MAC for one row)."""
     q, _ = np.linalg.qr(basis.T)
     proj = q.conj().T @ v
-    return float(np.vdot(proj, proj).real / max(np.vdot(v, v).real, 1e-300))
+    whole = float(np.vdot(v, v).real)
+    return float(np.vdot(proj, proj).real) / max(whole, 1e-300)
 
 
 def diagram(sets: Sequence[PoleSet], tol: StabilityTolerances) -> Diagram:
