@@ -7,12 +7,8 @@ time (cli.py imports this one).
 """
 
 import math
-import sys
-import time
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Annotated
 
 import numpy as np
 import typer
@@ -77,35 +73,19 @@ def mode_table(model: ModalModel) -> list[str]:
     return lines
 
 
-@contextmanager
-def _progress(quiet: bool) -> Iterator[Callable[[int, int], None] | None]:
-    """A progress bar on a terminal once a fit has taken SHOW_AFTER_S, else nothing."""
-    if quiet or not sys.stderr.isatty():
-        yield None
-        return
-    started = time.monotonic()
-    bar: Any = None
-    shown = 0
-
-    def update(done: int, total: int) -> None:
-        nonlocal bar, shown
-        if bar is None and time.monotonic() - started > SHOW_AFTER_S:
-            bar = typer.progressbar(length=total, label="fitting", file=sys.stderr)
-            bar.__enter__()
-        if bar is not None:
-            bar.update(done - shown)
-            shown = done
-
-    try:
-        yield update
-    finally:
-        if bar is not None:
-            bar.__exit__(None, None, None)
-
-
 def register(app: typer.Typer) -> None:
     """Add `fit` to the client's command line."""
-    from .cli import BandOption, JsonOption, RigOption, TestArgument, _band, _emit, _guard, _load
+    from .cli import (
+        BandOption,
+        JsonOption,
+        RigOption,
+        TestArgument,
+        _band,
+        _emit,
+        _guard,
+        _load,
+        _progress,
+    )
 
     @app.command(name="fit")
     def fit_command(
@@ -131,7 +111,7 @@ def register(app: typer.Typer) -> None:
 
         with _guard():
             data = _load(rig, test)
-            with _progress(as_json) as bar:
+            with _progress(as_json, "fitting", 1, SHOW_AFTER_S) as bar:
                 model = fit(data, _band(band), parse_orders(orders), parse_pick(pick), bar)
             saved = model.save(out) if out is not None else None
             drawn: list[Path] = []

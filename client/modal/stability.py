@@ -208,25 +208,23 @@ def choose_automatic(d: Diagram, tol: StabilityTolerances, n_ref: int) -> Chosen
 
 
 def choose_picked(d: Diagram, picks_hz: Sequence[float], tol: StabilityTolerances) -> Chosen:
-    """The poles nearest to named frequencies, Hz: for each, the stable pole (any pole when
-    none is stable) of the highest order within 5 tolerances in frequency.
+    """The poles nearest to named frequencies, Hz: for each, the stable pole of the highest
+    order within 5 frequency tolerances (5 %) of it.
 
-    Raises ValueError naming a frequency that no pole of the diagram comes near.
+    Raises ValueError naming a frequency that no stable pole of the diagram comes near.
     """
     f = d.freq_hz
+    stable = np.flatnonzero(d.status == STABLE)
     poles, members = [], []
     for target in picks_hz:
-        near = np.flatnonzero(np.abs(f - target) <= 5.0 * tol.freq * target)
+        near = stable[np.abs(f[stable] - target) <= 5.0 * tol.freq * target]
         if near.size == 0:
-            raise ValueError(
-                f"--pick {target:g} Hz: no pole within {500.0 * tol.freq:g} % of it at any order"
-            )
-        stable = near[d.status[near] == STABLE]
-        pool = stable if stable.size else near
-        top = pool[d.order[pool] == d.order[pool].max()]
+            raise ValueError(f"--pick {target:g} Hz: no stable pole within "
+                             f"{500.0 * tol.freq:g} % of it at any order")  # fmt: skip
+        top = near[d.order[near] == d.order[near].max()]
         best = top[np.argmin(np.abs(f[top] - target))]
         poles.append(d.s[best])
-        members.append(int(stable.size))
+        members.append(int(near.size))
     order = np.argsort(np.abs(np.array(poles)))
     return Chosen(
         s=np.array(poles, dtype=np.complex128)[order],
