@@ -415,6 +415,8 @@ def demo(
     for name, seconds in result.stages.items():
         typer.echo(f"   {name:<20} {seconds:5.1f} s")
     typer.echo(result.check.read_text(encoding="utf-8").split("\n\n")[0])
+    for line in result.mode_table:
+        typer.echo(line)
 
 
 from .fitting_cli import register as _register_fit  # noqa: E402 (needs the helpers above)
