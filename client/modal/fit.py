@@ -26,6 +26,7 @@ from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
+from threadpoolctl import threadpool_limits
 
 from ..dataset import TestData
 from ..errors import FitError
@@ -142,22 +143,26 @@ def fit(
     h = lay.h[..., lines]
     weight = plscf.line_weights(lay.coherence[..., lines], lay.n_averages)
     dt = 1.0 / (2.0 * float(freq[-1]))
-    m = plscf.normal_matrix(h, 2.0 * math.pi * freq * dt, weight, n2)
-    sets = []
-    for n in range(n1, n2 + 1):
-        sets.append(plscf.poles_at_order(m, n, n_ref, dt, band))
-        if progress is not None:
-            progress(n - n1 + 1, n2 - n1 + 1)
-    diagram = stability.diagram(sets, tol)
-    chosen = (
-        stability.choose_picked(diagram, pick, tol)
-        if pick
-        else stability.choose_automatic(diagram, tol, n_ref)
-    )
-    if chosen.s.size == 0:
-        raise FitError(f"no stable mode in {band[0]:g}:{band[1]:g} Hz at orders {n1}:{n2}: "
-                       "widen the band, raise the orders or name modes with --pick")  # fmt: skip
-    return _assemble(data, lay, freq, h, weight, chosen, diagram, band, (n1, n2), tol, qs)
+    # Every matrix here is small (companions of R·n ≤ a few hundred rows): BLAS threads cost
+    # more than they bring, and on a busy machine many times more (bench_modal.py).
+    with threadpool_limits(limits=1, user_api="blas"):
+        m = plscf.normal_matrix(h, 2.0 * math.pi * freq * dt, weight, n2)
+        sets = []
+        for n in range(n1, n2 + 1):
+            sets.append(plscf.poles_at_order(m, n, n_ref, dt, band))
+            if progress is not None:
+                progress(n - n1 + 1, n2 - n1 + 1)
+        diagram = stability.diagram(sets, tol)
+        chosen = (
+            stability.choose_picked(diagram, pick, tol)
+            if pick
+            else stability.choose_automatic(diagram, tol, n_ref)
+        )
+        if chosen.s.size == 0:
+            raise FitError(f"no stable mode in {band[0]:g}:{band[1]:g} Hz at orders "
+                           f"{n1}:{n2}: widen the band, raise the orders or name modes with "
+                           "--pick")  # fmt: skip
+        return _assemble(data, lay, freq, h, weight, chosen, diagram, band, (n1, n2), tol, qs)
 
 
 def _assemble(

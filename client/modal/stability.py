@@ -106,6 +106,10 @@ class Chosen:
 
 def _subspace_mac(v: ComplexArray, basis: ComplexArray) -> float:
     """Share of |v|² in the span of the rows of `basis` (MAC for one row)."""
+    if basis.shape[0] == 1:
+        w = basis[0]
+        cross = abs(np.vdot(w, v)) ** 2
+        return float(cross / max(float(np.vdot(w, w).real * np.vdot(v, v).real), 1e-300))
     q, _ = np.linalg.qr(basis.T)
     proj = q.conj().T @ v
     whole = float(np.vdot(v, v).real)
