@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
@@ -113,8 +114,9 @@ class ModalModel:
             "meta": self.meta,
         }
 
-    def save(self, path: Path) -> Path:
+    def save(self, path: str | os.PathLike[str]) -> Path:
         """Write the model to `path`: .npz, or .h5/.hdf5 (h5py); returns the path."""
+        path = Path(path)
         arrays = self._arrays()
         suffix = path.suffix.lower()
         try:
@@ -137,8 +139,9 @@ class ModalModel:
         return path
 
     @classmethod
-    def load(cls, path: Path) -> ModalModel:
+    def load(cls, path: str | os.PathLike[str]) -> ModalModel:
         """Read a model written by `save`."""
+        path = Path(path)
         suffix = path.suffix.lower()
         try:
             if suffix == ".npz":

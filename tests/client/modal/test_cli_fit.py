@@ -94,3 +94,15 @@ def test_bad_requests_get_one_line_and_an_exit_code(mirrored: Places) -> None:
         assert out.returncode == code, (args, out.stdout, out.stderr)
         assert words in out.stderr and "Traceback" not in out.stderr, (args, out.stderr)
         assert out.stderr.count("\n") == 1, out.stderr
+
+
+def test_python_api_as_the_readme_shows_it(mirrored: Places, tmp_path: Path) -> None:
+    """`from taprig.client import Mirror, fit`; fit(mirror.load(test)); save; load back.
+    Expected frequencies: the known model's (tests/client/modal/synthetic.py)."""
+    from taprig.client import Mirror, fit
+
+    with Mirror.open_rig(None, mirrored) as mirror:
+        model = fit(mirror.load("beam"), band=(20, 800))
+    assert np.allclose(model.freq_hz, FREQ_HZ, rtol=1e-6) and len(model.flags) == 6
+    path = model.save(str(tmp_path / "modes.npz"))
+    assert np.array_equal(ModalModel.load(path).shape, model.shape)
