@@ -188,7 +188,8 @@ def _assemble(
     auto = quality.mac(modes.shape, modes.shape)
     synth_mode = quality.synthesis_error_per_mode(freq, h, res.synthesized, fitted)
     flags = quality.flags(auto_mac=auto, synthesis_error=synth_mode, pole_fitted=fitted,
-                          decay_per_s=decay, band_hz=band, settings=qs)  # fmt: skip
+                          decay_per_s=decay, band_hz=band, n_ref=len(lay.references),
+                          settings=qs)  # fmt: skip
     sigma = -modes.pole.real
     zeta = np.where(sigma > 0.0, sigma / np.abs(modes.pole), np.nan)
     notes = []

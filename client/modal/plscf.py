@@ -6,8 +6,8 @@ References:
     Proc. IMAC XXI, 2003.
     B. Peeters, H. Van der Auweraer, P. Guillaume, J. Leuridan, "The PolyMAX frequency-domain
     method: a new standard for modal parameter estimation?", Shock and Vibration 11, 2004.
-    J. S. Bendat, A. G. Piersol, Random Data, 4th ed., Wiley, 2010, §9.2.4 (random error of
-    a frequency response function's gain estimate; section from memory).
+    J. S. Bendat, A. G. Piersol, Random Data, 4th ed., Wiley, 2010, §9.2 (random error of a
+    frequency response function's gain estimate; the section from memory).
 
 Model: a right matrix-fraction description of the FRF matrix, outputs o = 1..P (the grid
 points) by inputs r = 1..R (the references), one row per output:
@@ -85,7 +85,7 @@ def random_error(coherence: FloatArray, n_averages: NDArray[np.int64]) -> FloatA
     Notes
     -----
     ε_r[|Ĥ|] = sqrt(1 − γ²) / (|γ| sqrt(2 n_d)), n_d the number of averages (Bendat &
-    Piersol 2010, §9.2.4). γ² = 0 gives inf.
+    Piersol 2010, §9.2, from memory). γ² = 0 gives inf.
     """
     g2 = np.clip(np.asarray(coherence, dtype=np.float64), 0.0, 1.0)
     nd = np.asarray(n_averages, dtype=np.float64).reshape(-1, *([1] * (g2.ndim - 1)))

@@ -18,7 +18,9 @@ Flags (codes, each rule with its setting in `QualitySettings`):
   ``window_share`` of the fitted decay rate: the damping left after removing it rests on
   a small difference;
 * ``band_edge``: the natural frequency lies within ``edge_widths`` half-power bandwidths
-  (window included) of an end of the band, where its neighbours outside are not modelled.
+  (window included) of an end of the band, where its neighbours outside are not modelled;
+* ``single_reference``: the test has one reference, so a repeated root (two modes at one
+  frequency) would show as this one mode: its residue matrix has one column, rank 1.
 """
 
 from __future__ import annotations
@@ -148,6 +150,7 @@ def flags(
     pole_fitted: ComplexArray,
     decay_per_s: float,
     band_hz: tuple[float, float],
+    n_ref: int,
     settings: QualitySettings,
 ) -> tuple[tuple[str, ...], ...]:
     """The flag codes of each mode (see the module docstring); (M,) tuples."""
@@ -168,5 +171,7 @@ def flags(
         edge = settings.edge_widths * width[k]
         if f[k] - band_hz[0] <= edge or band_hz[1] - f[k] <= edge:
             found.append("band_edge")
+        if n_ref == 1:
+            found.append("single_reference")
         out.append(tuple(found))
     return tuple(out)

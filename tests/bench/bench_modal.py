@@ -10,7 +10,7 @@ its scatter under noise.
 3. Monte-Carlo: the known model of tests/client/modal/synthetic.py (120 Hz isolated,
    250/251 Hz close pair, 400 Hz repeated root, 620 Hz) with the random error a test of
    coherence γ² and 5 averages leaves (Bendat & Piersol, Random Data, 4th ed., 2010,
-   §9.2.4: ε = sqrt(1 − γ²)/(|γ| sqrt(2 n_d)) of |H|); bias and standard deviation of f
+   §9.2, from memory: ε = sqrt(1 − γ²)/(|γ| sqrt(2 n_d)) of |H|); bias and standard deviation of f
    (ppm) and ζ (%) over the runs for the isolated mode and the close pair, printed beside ε.
 
 Run: python tests/bench/bench_modal.py [--quick]

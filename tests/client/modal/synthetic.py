@@ -48,7 +48,7 @@ def known_data(tau_s: float = 0.5, seed: int = 7) -> tuple[ModalModel, TestData]
 def with_noise(data: TestData, coherence: float, seed: int) -> TestData:
     """`data` with complex Gaussian noise on H1 of the size a test of this coherence and
     averages leaves: the random error ε = sqrt(1 − γ²)/(|γ| sqrt(2 n_d)) of |H| and of its
-    phase, rad (Bendat & Piersol, Random Data, 4th ed., 2010, §9.2.4), per component."""
+    phase, rad (Bendat & Piersol, Random Data, 4th ed., 2010, §9.2, from memory), per component."""
     import dataclasses
 
     rng = np.random.default_rng(seed)

@@ -92,6 +92,7 @@ def test_one_reference_says_it_cannot_see_a_repeated_root() -> None:
                               responses=data.responses[:1], response_points=first)  # fmt: skip
     m = fit(one, band=BAND_HZ, orders=(8, 48))
     assert any("repeated root" in note for note in m.meta["notes"])
+    assert all("single_reference" in f for f in m.flags)
     single = [0, 1, 2, 5]
     for k in single:
         assert np.min(np.abs(m.freq_hz / FREQ_HZ[k] - 1.0)) < 1e-6

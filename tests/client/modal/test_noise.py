@@ -1,6 +1,6 @@
 """A seeded noisy case: the known model's FRFs with the random error a coherence of 0.95
 and five averages leave, ε = sqrt(1 − γ²)/(|γ| sqrt(2 n_d)) = 7.3 % of |H| per component
-(Bendat & Piersol, Random Data, 4th ed., 2010, §9.2.4). Truth: the model
+(Bendat & Piersol, Random Data, 4th ed., 2010, §9.2, from memory). Truth: the model
 (tests/client/modal/synthetic.py). Bounds are about four times the largest error seen over
 ten seeds when they were set (f 1.4e-4, ζ 2.4 %, shape MAC 0.998): honest, not tight.
 """
