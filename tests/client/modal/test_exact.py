@@ -96,3 +96,31 @@ def test_one_reference_says_it_cannot_see_a_repeated_root() -> None:
     single = [0, 1, 2, 5]
     for k in single:
         assert np.min(np.abs(m.freq_hz / FREQ_HZ[k] - 1.0)) < 1e-6
+
+
+def test_roving_sensor_test_has_the_hammer_point_as_its_reference() -> None:
+    """A roving accelerometer with the hammer fixed on G3: H(point, G3) equals the roving
+    hammer's H(G3, point) by Maxwell's reciprocity, so the same numbers laid out as a
+    roving-sensor test give the same single modes, scaled to unit modal mass at the row
+    measured on G3 (source: the model, as above)."""
+    import dataclasses
+
+    model, data = known_data(TAU_S)
+    n = len(data.points)
+    sensor = dataclasses.replace(
+        data, roving_mode="sensor", reference="G3", h1=data.h1[:, :1], h2=data.h2[:, :1],
+        coherence=data.coherence[:, :1], gxx=data.gxx[:, :1], responses=("acc",),
+        response_points=tuple((p,) for p in data.points), drive_points=("G3",) * n,
+    )  # fmt: skip
+    m = fit(sensor, band=BAND_HZ, orders=(8, 48))
+    assert m.reference == ("G3",) and m.meta["driving_point"] == "G3 (hammer)"
+    phi = model.shapes_at(list(m.point))
+    for k in (0, 1, 2, 5):
+        (j,) = np.flatnonzero(np.abs(m.freq_hz / FREQ_HZ[k] - 1.0) < 1e-6)
+        assert m.scaling[j] == "unit modal mass"
+        assert mac(m.shape[j], phi[:, k].astype(complex))[0, 0] > 0.9999
+        if k in (0, 5):  # isolated: the scale too (the close pair's residues, from one
+            # reference, carry their poles' last digits a thousandfold)
+            sign = np.sign(m.shape[j].real @ phi[:, k])
+            atol = 1e-4 * np.abs(phi[:, k]).max()
+            assert np.allclose(sign * m.shape[j], phi[:, k], atol=atol)
