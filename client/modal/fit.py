@@ -145,24 +145,50 @@ def fit(
     dt = 1.0 / (2.0 * float(freq[-1]))
     # Every matrix here is small (companions of R·n ≤ a few hundred rows): BLAS threads cost
     # more than they bring, and on a busy machine many times more (bench_modal.py).
-    with threadpool_limits(limits=1, user_api="blas"):
-        m = plscf.normal_matrix(h, 2.0 * math.pi * freq * dt, weight, n2)
-        sets = []
-        for n in range(n1, n2 + 1):
-            sets.append(plscf.poles_at_order(m, n, n_ref, dt, band))
-            if progress is not None:
-                progress(n - n1 + 1, n2 - n1 + 1)
-        diagram = stability.diagram(sets, tol)
-        chosen = (
-            stability.choose_picked(diagram, pick, tol)
-            if pick
-            else stability.choose_automatic(diagram, tol, n_ref)
-        )
-        if chosen.s.size == 0:
-            raise FitError(f"no stable mode in {band[0]:g}:{band[1]:g} Hz at orders "
-                           f"{n1}:{n2}: widen the band, raise the orders or name modes with "
-                           "--pick")  # fmt: skip
-        return _assemble(data, lay, freq, h, weight, chosen, diagram, band, (n1, n2), tol, qs)
+    try:
+        with threadpool_limits(limits=1, user_api="blas"):
+            return _solve(data, lay, freq, h, weight, dt, (n1, n2), band, pick, progress, tol, qs)
+    except np.linalg.LinAlgError as exc:
+        raise FitError(
+            f"the fit's equations are singular ({exc}): are the coherences of "
+            f"some point zero over {band[0]:g}:{band[1]:g} Hz?"
+        ) from None
+
+
+def _solve(
+    data: TestData,
+    lay: _Layout,
+    freq: NDArray[np.float64],
+    h: ComplexArray,
+    weight: NDArray[np.float64],
+    dt: float,
+    orders: tuple[int, int],
+    band: tuple[float, float],
+    pick: Sequence[float] | None,
+    progress: Progress | None,
+    tol: stability.StabilityTolerances,
+    qs: quality.QualitySettings,
+) -> ModalModel:
+    """Poles of every order, the diagram, the choice, then `_assemble`."""
+    n1, n2 = orders
+    n_ref = len(lay.references)
+    m = plscf.normal_matrix(h, 2.0 * math.pi * freq * dt, weight, n2)
+    sets = []
+    for n in range(n1, n2 + 1):
+        sets.append(plscf.poles_at_order(m, n, n_ref, dt, band))
+        if progress is not None:
+            progress(n - n1 + 1, n2 - n1 + 1)
+    diagram = stability.diagram(sets, tol)
+    chosen = (
+        stability.choose_picked(diagram, pick, tol)
+        if pick
+        else stability.choose_automatic(diagram, tol, n_ref)
+    )
+    if chosen.s.size == 0:
+        raise FitError(f"no stable mode in {band[0]:g}:{band[1]:g} Hz at orders "
+                       f"{n1}:{n2}: widen the band, raise the orders or name modes with "
+                       "--pick")  # fmt: skip
+    return _assemble(data, lay, freq, h, weight, chosen, diagram, band, (n1, n2), tol, qs)
 
 
 def _assemble(

@@ -56,3 +56,10 @@ def test_band_without_lines_or_modes_and_too_high_orders() -> None:
 
 def test_fit_errors_are_client_errors_with_their_own_exit_code() -> None:
     assert issubclass(FitError, ClientError) and FitError.exit_code == 4
+
+
+def test_zero_coherence_everywhere_is_named() -> None:
+    _, data = known_data()
+    silent = dataclasses.replace(data, coherence=np.zeros_like(data.coherence))
+    with pytest.raises(FitError, match="are the coherences of some point zero"):
+        fit(silent, band=BAND_HZ)
