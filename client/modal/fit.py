@@ -53,6 +53,23 @@ class _Layout:
     driving_name: str
 
 
+@dataclass(frozen=True, slots=True)
+class _Problem:
+    """One fit's inputs: the band's lines (F), their FRFs h (P, R, F) and weights (P, F),
+    the basis' Δt (s), the orders (N1, N2), the tolerances and the flag settings."""
+
+    data: TestData
+    lay: _Layout
+    freq: NDArray[np.float64]
+    h: ComplexArray
+    weight: NDArray[np.float64]
+    dt: float
+    band: tuple[float, float]
+    orders: tuple[int, int]
+    tol: stability.StabilityTolerances
+    qs: quality.QualitySettings
+
+
 def _layout(data: TestData) -> _Layout:
     if data.roving_mode == "sensor":
         n_p, n_r, n_f = data.h1.shape
@@ -140,14 +157,14 @@ def fit(
                        f"{n_ref * (n2 + 1)} lines; the band {band[0]:g}:{band[1]:g} Hz holds "
                        f"{n_lines}: lower the orders or widen the band")  # fmt: skip
     freq = data.freq_hz[lines]
-    h = lay.h[..., lines]
     weight = plscf.line_weights(lay.coherence[..., lines], lay.n_averages)
-    dt = 1.0 / (2.0 * float(freq[-1]))
+    problem = _Problem(data, lay, freq, lay.h[..., lines], weight, 1.0 / (2.0 * float(freq[-1])),
+                       band, (n1, n2), tol, qs)  # fmt: skip
     # Every matrix here is small (companions of R·n ≤ a few hundred rows): BLAS threads cost
     # more than they bring, and on a busy machine many times more (bench_modal.py).
     try:
         with threadpool_limits(limits=1, user_api="blas"):
-            return _solve(data, lay, freq, h, weight, dt, (n1, n2), band, pick, progress, tol, qs)
+            return _solve(problem, pick, progress)
     except np.linalg.LinAlgError as exc:
         raise FitError(
             f"the fit's equations are singular ({exc}): are the coherences of "
@@ -155,59 +172,35 @@ def fit(
         ) from None
 
 
-def _solve(
-    data: TestData,
-    lay: _Layout,
-    freq: NDArray[np.float64],
-    h: ComplexArray,
-    weight: NDArray[np.float64],
-    dt: float,
-    orders: tuple[int, int],
-    band: tuple[float, float],
-    pick: Sequence[float] | None,
-    progress: Progress | None,
-    tol: stability.StabilityTolerances,
-    qs: quality.QualitySettings,
-) -> ModalModel:
+def _solve(p: _Problem, pick: Sequence[float] | None, progress: Progress | None) -> ModalModel:
     """Poles of every order, the diagram, the choice, then `_assemble`."""
-    n1, n2 = orders
-    n_ref = len(lay.references)
-    m = plscf.normal_matrix(h, 2.0 * math.pi * freq * dt, weight, n2)
+    (n1, n2), band = p.orders, p.band
+    n_ref = len(p.lay.references)
+    m = plscf.normal_matrix(p.h, 2.0 * math.pi * p.freq * p.dt, p.weight, n2)
     sets = []
     for n in range(n1, n2 + 1):
-        sets.append(plscf.poles_at_order(m, n, n_ref, dt, band))
+        sets.append(plscf.poles_at_order(m, n, n_ref, p.dt, band))
         if progress is not None:
             progress(n - n1 + 1, n2 - n1 + 1)
-    diagram = stability.diagram(sets, tol)
+    diagram = stability.diagram(sets, p.tol)
     chosen = (
-        stability.choose_picked(diagram, pick, tol)
+        stability.choose_picked(diagram, pick, p.tol)
         if pick
-        else stability.choose_automatic(diagram, tol, n_ref)
+        else stability.choose_automatic(diagram, p.tol, n_ref)
     )
     if chosen.s.size == 0:
         raise FitError(f"no stable mode in {band[0]:g}:{band[1]:g} Hz at orders "
                        f"{n1}:{n2}: widen the band, raise the orders or name modes with "
                        "--pick")  # fmt: skip
-    return _assemble(data, lay, freq, h, weight, chosen, diagram, band, (n1, n2), tol, qs)
+    return _assemble(p, chosen, diagram)
 
 
-def _assemble(
-    data: TestData,
-    lay: _Layout,
-    freq: NDArray[np.float64],
-    h: ComplexArray,
-    weight: NDArray[np.float64],
-    chosen: stability.Chosen,
-    diagram: stability.Diagram,
-    band: tuple[float, float],
-    orders: tuple[int, int],
-    tol: stability.StabilityTolerances,
-    qs: quality.QualitySettings,
-) -> ModalModel:
+def _assemble(p: _Problem, chosen: stability.Chosen, diagram: stability.Diagram) -> ModalModel:
     """LSFD on the chosen poles, quality figures and flags, and the model record."""
+    data, lay, freq, h, band = p.data, p.lay, p.freq, p.h, p.band
     decay = 0.0 if math.isinf(data.exp_tau_s) else 1.0 / data.exp_tau_s
     rms = np.sqrt(np.mean(np.abs(h) ** 2, axis=(0, 1)))
-    line_weight = weight.mean(axis=0) / np.maximum(rms, 1e-300)
+    line_weight = p.weight.mean(axis=0) / np.maximum(rms, 1e-300)
     res = lsfd.fit_residues(h, 2.0 * math.pi * freq, chosen.s, line_weight)
     modes = lsfd.shapes_from_residues(res, chosen.s, chosen.multiplicity, decay, lay.driving)
     fitted = chosen.s[modes.source]
@@ -215,7 +208,7 @@ def _assemble(
     synth_mode = quality.synthesis_error_per_mode(freq, h, res.synthesized, fitted)
     flags = quality.flags(auto_mac=auto, synthesis_error=synth_mode, pole_fitted=fitted,
                           decay_per_s=decay, band_hz=band, n_ref=len(lay.references),
-                          settings=qs)  # fmt: skip
+                          settings=p.qs)  # fmt: skip
     sigma = -modes.pole.real
     zeta = np.where(sigma > 0.0, sigma / np.abs(modes.pole), np.nan)
     notes = []
@@ -226,8 +219,8 @@ def _assemble(
         notes.append("no driving point: shapes are scaled to unit norm")
     meta: dict[str, Any] = {
         "test": data.test, "rig": data.rig, "roving_mode": data.roving_mode,
-        "band_hz": list(band), "orders": list(orders), "tolerances": asdict(tol),
-        "quality": asdict(qs), "exp_tau_s": None if math.isinf(data.exp_tau_s) else
+        "band_hz": list(band), "orders": list(p.orders), "tolerances": asdict(p.tol),
+        "quality": asdict(p.qs), "exp_tau_s": None if math.isinf(data.exp_tau_s) else
         data.exp_tau_s, "weighting": "1 / Bendat & Piersol random error of |H|, clipped at "
         f"{plscf.ERROR_FLOOR:g}", "driving_point": lay.driving_name or None,
         "scaling": f"unit modal mass at driving point {lay.driving_name} (single modes)"
