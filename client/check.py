@@ -55,6 +55,11 @@ Modes (`ModePeak`), from the summed FRF magnitude S(f) = Σ over points and resp
   or the fixed hammer point (roving sensor), by reciprocity. ``response`` names the
   response with the largest Im H at the peak, the one reported.
 
+Fitted modes (`FittedView`, client/check_modes.py, unless ``fit_modes`` is off): the
+test's modes by pLSCF and LSFD (client/modal/), set against the peaks: the peaks that hold
+more than one mode (a close pair, a repeated root), the modes no peak shows, and, for a
+single-reference test, that a repeated root cannot be told from a single mode.
+
 Driving points (`DrivingPointCheck`, every (point, response) pair where the hammer
 struck the sensor's own point): with numpy's forward FFT convention (e^{−iωt}) the
 accelerance of a lightly damped mode at resonance is A ≈ +i·φ²/(2ζ), so at a driving
@@ -81,6 +86,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from .check_modes import FittedView, fitted_view, report_lines
 from .dataset import TestData, jsonable
 
 __all__ = [
@@ -89,6 +95,7 @@ __all__ = [
     "DrivingPointCheck",
     "ModePeak",
     "PointCheck",
+    "analysis_band",
     "check",
     "force_band_tops",
     "half_power",
@@ -122,6 +129,7 @@ class CheckSettings:
     min_prominence_db: float = 6.0
     floor_db: float = 40.0
     min_rise_deg: float = 30.0
+    fit_modes: bool = True  # also fit the modes (client/check_modes.py)
 
     def __post_init__(self) -> None:
         if not 0.0 < self.force_drop_db <= 60.0:
@@ -215,6 +223,7 @@ class CheckResult:
     modes: tuple[ModePeak, ...]
     driving_points: tuple[DrivingPointCheck, ...]
     settings: CheckSettings = field(default_factory=CheckSettings)
+    fitted: FittedView | None = None  # the modal fit against the peaks (check_modes.py)
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-able dict (NaN and inf become None)."""
@@ -344,10 +353,7 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
     s = settings or CheckSettings()
     freq = data.freq_hz
     tops = force_band_tops(freq, data.gff, s.force_drop_db, s.low_fraction)
-    if s.band_hz is not None:
-        band = (float(s.band_hz[0]), float(s.band_hz[1]))
-    else:
-        band = (float(freq[1]) if freq.size > 1 else 0.0, float(np.median(tops)))
+    band = analysis_band(data, s, tops)
     in_band = (freq >= band[0]) & (freq <= band[1])
     if in_band.sum() < 3:
         raise ValueError(
@@ -361,6 +367,10 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
     )
     modes = _modes(data, lo, hi, s)
     driving = tuple(_driving_point(data, row, r, lo, hi, s) for row, r in data.driving_point_rows())
+    fitted = None
+    if s.fit_modes:
+        widths = [m.freq_hz / m.q_measured for m in modes]
+        fitted = fitted_view(data, band, [m.freq_hz for m in modes], widths)
     return CheckResult(
         test=data.test,
         rig=data.rig,
@@ -373,7 +383,22 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
         modes=modes,
         driving_points=driving,
         settings=s,
+        fitted=fitted,
     )
+
+
+def analysis_band(
+    data: TestData, settings: CheckSettings | None = None, tops: FloatArray | None = None
+) -> tuple[float, float]:
+    """The analysis band (F1, F2), Hz: ``settings.band_hz``, or from the first line above
+    0 Hz to the median of the points' force-band tops (`tops`, computed when not given)."""
+    s = settings or CheckSettings()
+    if s.band_hz is not None:
+        return (float(s.band_hz[0]), float(s.band_hz[1]))
+    freq = data.freq_hz
+    if tops is None:
+        tops = force_band_tops(freq, data.gff, s.force_drop_db, s.low_fraction)
+    return (float(freq[1]) if freq.size > 1 else 0.0, float(np.median(tops)))
 
 
 def _point_check(
@@ -519,6 +544,8 @@ def report_text(result: CheckResult) -> str:
             f"{_num(100.0 * m.damping_ratio, '8.3f'):>8} {_num(m.q_measured, '8.1f'):>8} "
             f"{m.prominence_db:>8.1f}  {m.response}" + (f"  ({m.note})" if m.note else "")
         )
+    if result.fitted is not None:
+        lines += ["", *report_lines(result.fitted, len(result.modes))]
     lines += ["", "driving points:"]
     if not result.driving_points:
         lines.append("  none in this test")

@@ -13,6 +13,7 @@ import math
 import signal
 import sys
 import tempfile
+import time
 from collections.abc import Callable, Iterator
 from enum import StrEnum
 from pathlib import Path
@@ -242,18 +243,22 @@ def pull(
 
 
 @contextlib.contextmanager
-def _progress(quiet: bool) -> Iterator[Callable[[int, int], None] | None]:
-    """A progress bar on a terminal for pulls of more than a few point sets, else nothing."""
+def _progress(
+    quiet: bool, label: str = "pulling", min_total: int = 6, after_s: float = 0.0
+) -> Iterator[Callable[[int, int], None] | None]:
+    """A progress bar on a terminal for jobs of at least `min_total` steps that have run
+    `after_s` seconds (pulls of more than a few point sets), else nothing."""
     if quiet or not sys.stderr.isatty():
         yield None
         return
     bar: Any = None
     shown = 0
+    started = time.monotonic()
 
     def update(done: int, total: int) -> None:
         nonlocal bar, shown
-        if bar is None and total > 5:
-            bar = typer.progressbar(length=total, label="pulling", file=sys.stderr)
+        if bar is None and total >= min_total and time.monotonic() - started >= after_s:
+            bar = typer.progressbar(length=total, label=label, file=sys.stderr)
             bar.__enter__()
         if bar is not None:
             bar.update(done - shown)
@@ -410,6 +415,13 @@ def demo(
     for name, seconds in result.stages.items():
         typer.echo(f"   {name:<20} {seconds:5.1f} s")
     typer.echo(result.check.read_text(encoding="utf-8").split("\n\n")[0])
+    for line in result.mode_table:
+        typer.echo(line)
+
+
+from .fitting_cli import register as _register_fit  # noqa: E402 (needs the helpers above)
+
+_register_fit(app)
 
 
 def main() -> None:

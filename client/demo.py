@@ -6,8 +6,8 @@ API exactly as the phone page or a script would: create the test, select, arm, t
 grid point until it has its averages (the hammer itself is the instrument's control port,
 the one thing an operator does with a hand rather than a request), with a few double hits
 that the rig rejects and one point measured again with *redo*. The client then pulls the
-rig into a mirror, exports the test, runs the quick-look check, draws the plots, and stops
-everything it started.
+rig into a mirror, exports the test, runs the quick-look check, fits the modes (modes.npz
+and a table beside the panel's truth), draws the plots, and stops everything it started.
 """
 
 from __future__ import annotations
@@ -27,6 +27,7 @@ from typing import Any, Final
 
 from taprig.firmware_protocol.virtual.control import ControlClient
 
+from .dataset import TestData
 from .errors import ClientError
 from .mirror import Mirror
 from .pull import PullReport, pull
@@ -62,6 +63,8 @@ class DemoResult:
     pulled: PullReport | None = None
     seconds: float = 0.0
     stages: dict[str, float] = field(default_factory=dict)  # seconds per stage
+    modes: Path | None = None  # the fitted modal model (modes.npz)
+    mode_table: list[str] = field(default_factory=list)  # fitted modes beside the truth
 
 
 class Hammer:
@@ -187,6 +190,20 @@ def _lap(stages: dict[str, float], name: str, started: float) -> None:
     stages[name] = time.perf_counter() - started - sum(stages.values())
 
 
+def _fit(data: TestData, result: DemoResult, say: Say) -> None:
+    """The modal fit: modes.npz and the mode table beside the truth."""
+    from taprig.firmware_protocol.virtual import load_truth
+
+    from .demo_modes import truth_table
+    from .modal import fit
+
+    model = fit(data)
+    result.modes = model.save(result.folder / "modes.npz")
+    result.mode_table = [f"{model.n_modes} modes fitted (pLSCF + LSFD) beside the panel's "
+                         "truth:", *truth_table(model, load_truth(result.truth))]  # fmt: skip
+    say(f"   {result.modes.name}: {model.n_modes} modes")
+
+
 def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
     """The whole demo; files in `out` (created). Raises ClientError when a stage fails."""
     started = time.perf_counter()
@@ -224,7 +241,7 @@ def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
                 hammer.close()
         _lap(stages, "stop taprigd", started)
         result.folder, result.truth = out, truth_path
-        say("-- 4. export, quick-look check and plots")
+        say("-- 4. export, quick-look check, modal fit and plots")
         from .check import check, report_text
         from .export import export
 
@@ -234,6 +251,8 @@ def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
         result.check.write_text(report_text(checked), encoding="utf-8")
         say(f"   {result.npz.name} (for fitting), {result.check.name}, truth.json")
         _lap(stages, "export and check", started)
+        _fit(data, result, say)
+        _lap(stages, "modal fit", started)
         if plots:
             try:
                 from .plots import write_plots

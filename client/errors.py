@@ -1,7 +1,8 @@
 """The client's exception tree: one base class, mapped to exit codes in the CLI only.
 
 ClientError → exit 1 (a rig or transfer problem), MirrorError → 3 (the local mirror),
-PairingError → 2 (no usable pairing: unknown rig, no token, bad pairing address).
+PairingError → 2 (no usable pairing: unknown rig, no token, bad pairing address),
+FitError → 4 (a modal fit the data cannot carry).
 """
 
 from __future__ import annotations
@@ -23,3 +24,9 @@ class MirrorError(ClientError):
     """The local mirror cannot be read or written, or does not fit the rig it mirrors."""
 
     exit_code = 3
+
+
+class FitError(ClientError):
+    """A modal fit the data cannot carry: too few points, no lines, no modes, bad orders."""
+
+    exit_code = 4

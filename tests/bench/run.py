@@ -20,6 +20,7 @@ import bench_capture
 import bench_client
 import bench_decode
 import bench_demo
+import bench_modal
 import bench_phone
 import bench_pull
 import bench_service
@@ -55,6 +56,8 @@ BENCHES = [
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),
     Bench("client: quick-look check, exports, plots",
           lambda q: bench_client.run(30 if q else 210), bench_client.show, bench_client.headline),
+    Bench("client: modal fit (pLSCF, stabilization, LSFD), scaling, Monte-Carlo",
+          bench_modal.run, bench_modal.show, bench_modal.headline),
     Bench("the one-command demo", lambda q: bench_demo.run(), bench_demo.show,
           bench_demo.headline),
     Bench("capture: daemon CPU, memory, per-hit latency",

@@ -21,6 +21,7 @@ import pytest
 from taprig.client import dataset
 from taprig.client.check import check
 from taprig.client.mirror import Mirror
+from taprig.client.modal import ModalModel
 from taprig.firmware_protocol.virtual import load_truth
 
 from .test_check import assert_modes_match, judged_modes
@@ -90,3 +91,17 @@ def test_demo_export_is_the_mirror_and_its_modes_are_the_truth(demo: tuple[Path,
     assert_modes_match(result, truth, judged)
     (dp,) = result.driving_points
     assert dp.ok
+
+
+@pytest.mark.slow
+def test_demo_fits_the_modes_and_prints_them_beside_the_truth(demo: tuple[Path, str]) -> None:
+    """modes.npz holds at least 26 of the 27 modes in the band, every one within 0.1 % of a
+    true natural frequency (the panel's truth: a simply supported plate, Leissa, Vibration
+    of Plates, NASA SP-160, 1969), and the table beside the truth is printed."""
+    out, stdout = demo
+    model = ModalModel.load(out / "modes.npz")
+    truth = load_truth(out / "truth.json")
+    nearest = np.min(np.abs(model.freq_hz[:, None] / truth.freqs_hz[None, :] - 1.0), axis=1)
+    assert model.n_modes >= 26 and np.all(nearest <= 1e-3), model.freq_hz
+    assert "modes fitted (pLSCF + LSFD) beside the panel's truth:" in stdout
+    assert "true f  fitted f" in stdout

@@ -1,0 +1,126 @@
+"""`taprig fit`: a mirrored test's modes (client/modal/), as a table, JSON, a file, plots.
+
+Registered on the command line by `register(app)` from client/cli.py, which shares its
+load helper, option types, error guard and output helper with every other command. The
+options are declared inside `register` so that this module never imports cli.py at import
+time (cli.py imports this one).
+"""
+
+import math
+from pathlib import Path
+from typing import Annotated
+
+import numpy as np
+import typer
+
+from .modal.model import ModalModel
+
+__all__ = ["mode_table", "parse_orders", "parse_pick", "register"]
+
+SHOW_AFTER_S = 1.0  # a fit that takes longer than this shows a progress bar
+
+
+def parse_orders(text: str | None) -> tuple[int, int] | None:
+    """(N1, N2) of --orders N1:N2; ValueError naming it otherwise."""
+    if text is None:
+        return None
+    lo, sep, hi = text.partition(":")
+    try:
+        orders = (int(lo), int(hi))
+    except ValueError:
+        orders = (0, 0)
+    if not sep or not 1 <= orders[0] <= orders[1]:
+        raise ValueError(f"--orders {text!r}: write N1:N2 with 1 <= N1 <= N2, e.g. 10:60")
+    return orders
+
+
+def parse_pick(text: str | None) -> list[float] | None:
+    """Frequencies of --pick F,F,...; ValueError naming it otherwise."""
+    if text is None:
+        return None
+    try:
+        values = [float(v) for v in text.split(",")]
+    except ValueError:
+        values = [math.nan]
+    if not values or not all(math.isfinite(v) and v > 0 for v in values):
+        raise ValueError(f"--pick {text!r}: write positive frequencies in Hz, e.g. 65.8,126.5")
+    return values
+
+
+def mode_table(model: ModalModel) -> list[str]:
+    """The model as lines of text: one row per mode, then the notes."""
+    refs = " ".join(f"{r[:8]:>8}" for r in model.reference)
+    lines = [
+        f"{model.n_modes} modes of {model.meta.get('test', '?')} in "
+        f"{model.meta['band_hz'][0]:.1f} to {model.meta['band_hz'][1]:.1f} Hz "
+        f"(pLSCF orders {model.meta['orders'][0]}..{model.meta['orders'][1]}, LSFD); "
+        f"scaling: {model.meta['scaling']}",
+        f"  {'#':>3} {'f (Hz)':>9} {'zeta %':>7} {'windowed':>8} {'MPC':>5} {'synth %':>7} "
+        f"{refs}  flags",
+    ]
+    share = np.abs(model.participation) ** 2
+    share = share / np.maximum(share.sum(axis=1, keepdims=True), 1e-300)
+    for k in range(model.n_modes):
+        zeta = model.damping_ratio[k]
+        z = f"{100.0 * zeta:7.3f}" if math.isfinite(zeta) else f"{'-':>7}"
+        parts = " ".join(f"{v:8.2f}" for v in share[k])
+        lines.append(
+            f"  {k + 1:>3} {model.freq_hz[k]:9.2f} {z} {100 * model.damping_ratio_windowed[k]:8.3f}"
+            f" {model.mpc[k]:5.2f} {100 * model.synthesis_error[k]:7.1f} {parts}  "
+            + (" ".join(model.flags[k]) or "ok")
+        )
+    lines += [f"  note: {n}" for n in model.meta.get("notes", [])]
+    return lines
+
+
+def register(app: typer.Typer) -> None:
+    """Add `fit` to the client's command line."""
+    from .cli import (
+        BandOption,
+        JsonOption,
+        RigOption,
+        TestArgument,
+        _band,
+        _emit,
+        _guard,
+        _load,
+        _progress,
+    )
+
+    @app.command(name="fit")
+    def fit_command(
+        test: TestArgument,
+        band: BandOption = None,
+        orders: Annotated[
+            str | None, typer.Option(help="model orders N1:N2 of the stabilization diagram")
+        ] = None,
+        pick: Annotated[
+            str | None, typer.Option(help="take the modes nearest these Hz: F,F,... ")
+        ] = None,
+        out: Annotated[
+            Path | None, typer.Option(help="write the modal model to FILE.npz or FILE.h5")
+        ] = None,
+        plots: Annotated[
+            Path | None, typer.Option(help="draw PNG plots into this folder (plots extra)")
+        ] = None,
+        rig: RigOption = None,
+        as_json: JsonOption = False,
+    ) -> None:
+        """Modes of a mirrored test: frequency, damping, shape (pLSCF, LSFD; offline)."""
+        from .modal import fit
+
+        with _guard():
+            data = _load(rig, test)
+            with _progress(as_json, "fitting", 1, SHOW_AFTER_S) as bar:
+                model = fit(data, _band(band), parse_orders(orders), parse_pick(pick), bar)
+            saved = model.save(out) if out is not None else None
+            drawn: list[Path] = []
+            if plots is not None:
+                from .modal_plots import write_modal_plots
+
+                drawn = write_modal_plots(model, plots)
+        obj = {**model.to_dict(), "file": None if saved is None else str(saved),
+               "plots": [str(p) for p in drawn]}  # fmt: skip
+        _emit(as_json, obj, lambda: [*mode_table(model),
+                                     *([f"model {saved}"] if saved else []),
+                                     *(f"plot {p}" for p in drawn)])  # fmt: skip
