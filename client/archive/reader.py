@@ -130,6 +130,9 @@ class Archive:
             "SELECT body::text FROM tests WHERE rig_id = %s AND name = %s",
             (self._rig_of(name), name),
         )
+        if not rows:
+            known = ", ".join(t.name for t in self.tests()) or "none"
+            raise ArchiveError(f"the archive has no test {name!r} of this rig (it has: {known})")
         return wire.test_from_obj(json.loads(rows[0][0]))
 
     def summaries(self, test: str | None = None) -> list[wire.WirePointSetSummary]:

@@ -22,16 +22,16 @@ from taprig.schema import wire
 from ..mirror import MirroredPointSet
 from .db import LOCK_SPACE, ArchiveError, connect, explain, require_schema
 
-_SERIAL: Final = re.compile(r"[-_.:#/ ]*[0-9][-_.:#/ 0-9TZtz]*$")
+_SERIAL: Final = re.compile(r"(?:[-_.:#/ ]+[0-9][0-9TZtz]*)+$")
 
 
 def part_of(test: wire.WireTest) -> str:
     """The part type a test belongs to, for trends of repeated tests of one part.
 
-    The test's ``meta["part"]`` when it is a non-empty string; otherwise its name without the
-    trailing serial number or date (digits with - _ . : # / space and T/Z between them):
-    ``bracket-A7-2026-12-03`` → ``bracket-A7``, ``housing_0017`` → ``housing``. A name that
-    is nothing but digits is its own part type.
+    The test's ``meta["part"]`` when it is a non-empty string; otherwise its name without its
+    trailing numeric words (each after one of - _ . : # / or a space, digits with T or Z
+    inside, as in serials, dates and times): ``bracket-A7-2026-12-03`` → ``bracket-A7``,
+    ``housing_0017`` → ``housing``. A name that is nothing but one number is its own part.
     """
     given = test.meta.get("part")
     if isinstance(given, str) and given.strip():
