@@ -235,8 +235,8 @@ def trend(
     as_json: JsonOption = False,
 ) -> None:
     """Peak frequencies of every archived test of one part type, oldest first."""
+    from .history import trend as follow_peaks
     from .reader import Archive
-    from .trend import trend as follow_peaks
 
     with Archive(_dsn(dsn)) as archive:
         result = follow_peaks(archive, part)

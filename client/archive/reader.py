@@ -97,17 +97,32 @@ class Archive:
             raise ArchiveError(f"the archive has no rig {which!r} (it has: {known or 'none'})")
         raise ArchiveError(f"several archived rigs are called {which!r}; use the id")
 
-    def _rig_of(self, test: str) -> str:
-        """The rig to read `test` from: the chosen one, else the only rig that has it."""
-        if self._rig_id is not None:
-            return self._rig_id
-        rows = self.rows("SELECT rig_id FROM tests WHERE name = %s", (test,))
+    def _locate(self, test: str) -> tuple[str, str, str]:
+        """(rig id, rig name, the test's JSON) of `test` on the chosen rig, else on the only
+        rig that has it; one query."""
+        rows = self.rows(
+            "SELECT t.rig_id, r.name, t.body::text FROM tests t JOIN rigs r USING (rig_id) "
+            "WHERE t.name = %s AND (%s::text IS NULL OR t.rig_id = %s)",
+            (test, self._rig_id, self._rig_id),
+        )
         if len(rows) == 1:
-            return str(rows[0][0])
+            return str(rows[0][0]), str(rows[0][1]), str(rows[0][2])
         if not rows:
-            raise ArchiveError(f"the archive has no test {test!r}")
+            of = "" if self._rig_id is None else " of this rig"
+            raise ArchiveError(f"the archive has no test {test!r}{of}")
         rigs = ", ".join(str(r[0]) for r in rows)
         raise ArchiveError(f"test {test!r} is in the archive of several rigs ({rigs}); name one")
+
+    def _rig_of(self, test: str) -> str:
+        return self._rig_id if self._rig_id is not None else self._locate(test)[0]
+
+    def _decoded(self, rig_id: str, test: str) -> list[wire.WirePointSet]:
+        rows = self.rows(
+            "SELECT body FROM point_sets WHERE rig_id = %s AND test = %s ORDER BY seq",
+            (rig_id, test),
+            binary=True,
+        )
+        return [wire.point_set_from_obj(wire.unpack(bytes(r[0]), max_bytes=MAX_BODY)) for r in rows]
 
     # -- the mirror's interface
 
@@ -115,7 +130,7 @@ class Archive:
         """id, name, url of the chosen rig (or of `test`'s rig); empty when neither."""
         if self._rig_id is None and test is None:
             return {}
-        rig_id = self._rig_of(test) if test is not None else self._rig_id
+        rig_id = self._locate(test)[0] if test is not None else self._rig_id
         rows = self.rows("SELECT rig_id, name, url FROM rigs WHERE rig_id = %s", (rig_id,))
         return {"id": str(rows[0][0]), "name": str(rows[0][1]), "url": str(rows[0][2])}
 
@@ -126,14 +141,7 @@ class Archive:
         return [wire.test_from_obj(json.loads(r[0])) for r in rows]
 
     def test(self, name: str) -> wire.WireTest:
-        rows = self.rows(
-            "SELECT body::text FROM tests WHERE rig_id = %s AND name = %s",
-            (self._rig_of(name), name),
-        )
-        if not rows:
-            known = ", ".join(t.name for t in self.tests()) or "none"
-            raise ArchiveError(f"the archive has no test {name!r} of this rig (it has: {known})")
-        return wire.test_from_obj(json.loads(rows[0][0]))
+        return wire.test_from_obj(json.loads(self._locate(name)[2]))
 
     def summaries(self, test: str | None = None) -> list[wire.WirePointSetSummary]:
         cols = (
@@ -176,17 +184,13 @@ class Archive:
 
     def point_sets(self, test: str) -> list[wire.WirePointSet]:
         """Every archived point set of `test` (all versions), decoded, in change-feed order."""
-        rows = self.rows(
-            "SELECT body FROM point_sets WHERE rig_id = %s AND test = %s ORDER BY seq",
-            (self._rig_of(test), test),
-            binary=True,
-        )
-        return [wire.point_set_from_obj(wire.unpack(bytes(r[0]), max_bytes=MAX_BODY)) for r in rows]
+        return self._decoded(self._locate(test)[0], test)
 
     def load(self, test: str) -> TestData:
         """The test's latest point set per measured point, stacked as arrays (TestData)."""
-        rig = self.rig(test)
-        return assemble(self.test(test), self.point_sets(test), rig["name"], rig["id"])
+        rig_id, rig_name, body = self._locate(test)
+        plan = wire.test_from_obj(json.loads(body))
+        return assemble(plan, self._decoded(rig_id, test), rig_name, rig_id)
 
     def counts(self) -> dict[str, int]:
         """Point sets archived per test of the chosen rig (of every rig when none)."""

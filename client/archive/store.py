@@ -40,6 +40,27 @@ def part_of(test: wire.WireTest) -> str:
     return stripped or test.name
 
 
+# One statement is one transaction: the row goes in (or is found identical) and the cursor
+# moves, or neither. CTEs see the table as it was before the statement, so `same` finds only
+# a row stored earlier, with the same id, keys and digest.
+_PUT_POINT_SET: Final = """
+WITH ins AS (
+    INSERT INTO point_sets (rig_id, id, test, point, version, seq, completed_utc, n_averages,
+                            schema_version, digest, size, body)
+    VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %b)
+    ON CONFLICT DO NOTHING RETURNING 1
+), same AS (
+    SELECT 1 FROM point_sets
+    WHERE rig_id = %s AND id = %s AND digest = %s AND test = %s AND point = %s AND version = %s
+), adv AS (
+    UPDATE rigs SET cursor = greatest(cursor, %s)
+    WHERE rig_id = %s AND (EXISTS (SELECT 1 FROM ins) OR EXISTS (SELECT 1 FROM same))
+    RETURNING 1
+)
+SELECT EXISTS (SELECT 1 FROM ins), EXISTS (SELECT 1 FROM adv)
+"""
+
+
 class StoreRefused(ArchiveError):
     """The archive holds other bytes under this point set's keys: the rig's store was replaced."""
 
@@ -52,6 +73,10 @@ class RigWriter:
         self._conn = connect(dsn)
         self._locked = False
         try:
+            # Safe without waiting for the WAL flush: a commit the server loses in a crash has
+            # its cursor lost with it, so the next follower fetches that point set again from
+            # the rig, which still has it. Nothing is acknowledged to anyone on a commit.
+            self._conn.execute("SET synchronous_commit = off")
             require_schema(self._conn, dsn)
         except ArchiveError:
             self._conn.close()
@@ -101,55 +126,29 @@ class RigWriter:
         return row is not None
 
     def put_point_set(self, ps: MirroredPointSet, seq: int, test: wire.WireTest | None) -> bool:
-        """Store one point set (and its test first when given) and move the cursor to `seq`,
-        in one transaction; False if it was already here with the same digest.
+        """Store one point set and move the cursor to `seq`, in one transaction (one statement,
+        one round trip); False if it was already here with the same digest. A test given is
+        stored first, in a transaction of its own (storing a test again changes nothing).
 
-        StoreRefused when its id or (test, point, version) is here with another digest.
+        StoreRefused when its id or (test, point, version) is here with other bytes: then
+        nothing is stored and the cursor stays.
         """
         s = ps.summary
-        try:
-            with self._conn.transaction():
-                if test is not None:
-                    self._upsert_test(test)
-                cur = self._conn.execute(
-                    "INSERT INTO point_sets (rig_id, id, test, point, version, seq, "
-                    "completed_utc, n_averages, schema_version, digest, size, body) VALUES "
-                    "(%s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %b) ON CONFLICT DO NOTHING",
-                    (
-                        self.rig_id,
-                        s.id,
-                        s.test,
-                        s.point,
-                        s.version,
-                        s.seq,
-                        s.completed_utc,
-                        s.n_averages,
-                        wire.SCHEMA_VERSION,
-                        ps.digest,
-                        len(ps.body),
-                        ps.body,
-                    ),
-                )
-                stored = cur.rowcount == 1
-                if not stored:
-                    self._same_as_stored(ps)
-                self._advance(seq)
-        except psycopg.Error as exc:
-            raise explain(exc, self.dsn) from None
-        return stored
-
-    def _same_as_stored(self, ps: MirroredPointSet) -> None:
-        s = ps.summary
-        rows = self._conn.execute(
-            "SELECT id, digest FROM point_sets WHERE rig_id = %s AND (id = %s OR "
-            "(test = %s AND point = %s AND version = %s))",
-            (self.rig_id, s.id, s.test, s.point, s.version),
-        ).fetchall()
-        if any(int(str(i)) != s.id or d != ps.digest for i, d in rows):
+        if test is not None:
+            self.put_test(test, None)
+        row = self._run(
+            _PUT_POINT_SET,
+            (self.rig_id, s.id, s.test, s.point, s.version, s.seq, s.completed_utc, s.n_averages,
+             wire.SCHEMA_VERSION, ps.digest, len(ps.body), ps.body,
+             self.rig_id, s.id, ps.digest, s.test, s.point, s.version, seq, self.rig_id),
+        )  # fmt: skip
+        stored, advanced = (bool(row[0]), bool(row[1])) if row else (False, False)
+        if not advanced:
             raise StoreRefused(
                 f"rig {self.rig_id}: point set {s.id} ({s.test}/{s.point} v{s.version}) differs "
                 "from the archived one: the rig's store was replaced; nothing was overwritten"
             )
+        return stored
 
     def _upsert_test(self, test: wire.WireTest) -> None:
         body = json.dumps(wire.test_to_obj(test), separators=(",", ":"))

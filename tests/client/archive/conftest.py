@@ -19,6 +19,7 @@ import pytest
 
 from taprig.client.archive.config import ArchiveConfig, RigSource
 from taprig.client.archive.db import migrate
+from taprig.client.archive.follow import Archiver
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
@@ -93,6 +94,13 @@ def config(dsn: str, served: list[ServedRig], **kw: float) -> ArchiveConfig:
     """Short long-polls and lock retries, so that stopping and handing over are quick."""
     return ArchiveConfig(dsn, tuple(source(r) for r in served), kw.get("wait_s", 0.5),
                          kw.get("busy_retry_s", 0.2))  # fmt: skip
+
+
+def follow_once(dsn: str, served: list[ServedRig]) -> Archiver:
+    """One pass of an Archiver over `served`, waited for; the Archiver (for its status)."""
+    archiver = Archiver(config(dsn, served), once=True).start()
+    assert archiver.wait(120), "one pass took more than two minutes"
+    return archiver
 
 
 def until(ready: Callable[[], bool], what: str, timeout: float = 60.0) -> None:

@@ -20,7 +20,7 @@ from taprig.client.archive.store import part_of
 from taprig.schema import wire
 
 from ..conftest import ServedRig
-from .conftest import commit_panel, commit_sets, config, rig_bodies, stiffer, until
+from .conftest import commit_panel, commit_sets, config, follow_once, rig_bodies, stiffer, until
 from .pg import PgServer
 
 
@@ -90,8 +90,7 @@ def test_reader_has_the_mirrors_interface_and_queries_across_rigs(
     commit_sets(one.running, "bracket-A7-0001", 3, seed=1)
     commit_sets(two.running, "bracket-A7-0002", 2, seed=2)
     commit_sets(two.running, "housing_17", 2, seed=3, meta={"part": "housing-B"})
-    archiver = Archiver(config(archive_dsn, [one, two]), once=True).start()
-    assert archiver.wait(60)
+    follow_once(archive_dsn, [one, two])
     with Archive(archive_dsn) as archive:
         found = archive.find(part="bracket-A7")
         assert [(t.rig, t.test, t.point_sets) for t in found] == [
@@ -140,8 +139,7 @@ def test_trend_follows_each_peak_of_a_part_type_over_time(
     scales = (1.0, 0.99, 0.98)
     for day, scale in enumerate(scales):
         commit_panel(served.running, f"panel-day{day + 1}", stiffer(scale), {"part": "panel"})
-    archiver = Archiver(config(archive_dsn, [served]), once=True).start()
-    assert archiver.wait(60)
+    follow_once(archive_dsn, [served])
     truth = stiffer(1.0).freqs_hz
     with Archive(archive_dsn) as archive:
         result = trend(archive, "panel")
@@ -161,7 +159,7 @@ def test_modal_models_are_kept_with_their_digest(
 ) -> None:
     (served,) = rigs(1)
     commit_sets(served.running, "plate-1", 2)
-    assert Archiver(config(archive_dsn, [served]), once=True).start().wait(60)
+    follow_once(archive_dsn, [served])
     npz = b"PK\x03\x04 not really a zip, bytes are bytes" * 100
     with Archive(archive_dsn) as archive:
         first = put_model(archive, "plate-1", npz, {"modes": [{"freq_hz": 66.0}]})
@@ -179,3 +177,22 @@ def test_modal_models_are_kept_with_their_digest(
             get_model(archive, "plate-1")
         with pytest.raises(ArchiveError, match="no test"):
             put_model(archive, "no-such-test-anywhere", npz, {})
+
+
+def test_other_bytes_under_an_archived_key_are_refused_and_the_cursor_stays(
+    archive_dsn: str, rigs: Callable[[int], list[ServedRig]]
+) -> None:
+    """As if the rig's store had been replaced: the archive keeps what it has."""
+    (served,) = rigs(1)
+    commit_sets(served.running, "plate-1", 3)
+    follow_once(archive_dsn, [served])
+    with psycopg.connect(archive_dsn) as conn:
+        conn.execute("UPDATE point_sets SET digest = 'sha-256=:other:' WHERE id = 2")
+        conn.execute("UPDATE rigs SET cursor = 0")
+    (state,) = follow_once(archive_dsn, [served]).status()["rigs"]
+    assert "differs from the archived one" in str(state["last_error"])
+    with psycopg.connect(archive_dsn) as conn:
+        cursor = conn.execute("SELECT cursor FROM rigs").fetchone()
+        digest = conn.execute("SELECT digest FROM point_sets WHERE id = 2").fetchone()
+    seq_of_1 = next(s.seq for s in served.running.store.list_point_sets() if s.id == 1)
+    assert cursor == (seq_of_1,) and digest == ("sha-256=:other:",)
