@@ -191,8 +191,8 @@ def tests(
         from .archive.cli import archived_tests
 
         with _guard():
-            listed = archived_tests(archive, rig)
-        return _emit(as_json, listed, lambda: [json.dumps(t) for t in listed["tests"]])
+            listed, text = archived_tests(archive, rig)
+        return _emit(as_json, listed, lambda: text)
     with _guard():
         paired = _paired(rig)
         with _client(paired) as client:

@@ -23,6 +23,7 @@ from ..errors import ClientError
 
 if TYPE_CHECKING:
     from ..dataset import TestData
+    from .reader import ArchivedTest
 
 app = typer.Typer(
     help="The central archive: rigs followed into PostgreSQL, read by every desk.",
@@ -209,13 +210,13 @@ def find(
     if as_json:
         _echo_json({"tests": [_row(t) for t in found]})
         return
-    for t in found:
-        typer.echo(
-            f"{t.created_utc}  {t.rig:<16} {t.test:<28} {t.part:<16} "
-            f"{t.point_sets:>4}/{t.grid_points} points"
-        )
-    if not found:
-        typer.echo("no archived test matches")
+    for line in [_line(t) for t in found] or ["no archived test matches"]:
+        typer.echo(line)
+
+
+def _line(t: ArchivedTest) -> str:
+    return (f"{t.created_utc}  {t.rig:<16} {t.test:<28} {t.part:<16} "
+            f"{t.point_sets:>4}/{t.grid_points} points")  # fmt: skip
 
 
 def _row(t: Any) -> dict[str, Any]:
@@ -265,9 +266,11 @@ def load(dsn: str, rig: str | None, test: str) -> TestData:
         return archive.load(test)
 
 
-def archived_tests(dsn: str, rig: str | None) -> dict[str, Any]:
-    """`taprig tests --archive DSN`: the archived tests, as JSON rows."""
+def archived_tests(dsn: str, rig: str | None) -> tuple[dict[str, Any], list[str]]:
+    """`taprig tests --archive DSN`: the archived tests, as JSON rows and as text lines."""
     from .reader import Archive
 
     with Archive(_dsn(dsn)) as archive:
-        return {"tests": [_row(t) for t in archive.find(rig=rig)]}
+        found = archive.find(rig=rig)
+    lines = [_line(t) for t in found] or ["no archived test"]
+    return {"tests": [_row(t) for t in found]}, lines
