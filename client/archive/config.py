@@ -7,6 +7,7 @@ A TOML file (``taprig archive run --config FILE``)::
     busy_retry_s = 10    # how often to try a rig another archive process is following, s
 
     [[rigs]]             # none listed: the rigs paired on this machine (`taprig pair`)
+    name = "rig-3"       # optional: a label for messages until the rig answers
     url = "http://rig-3.lab:8470"
     token = "..."        # or token_file = "/etc/taprig/rig-3.token"
 
