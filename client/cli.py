@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 
+from .archive.cli import app as archive_app
 from .errors import ClientError
 
 if TYPE_CHECKING:
@@ -36,6 +37,7 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
+app.add_typer(archive_app, name="archive")
 
 # Options several commands share, declared once.
 JsonOption = Annotated[bool, typer.Option("--json", help="print one JSON document")]
@@ -182,8 +184,16 @@ def status(rig: RigArgument = None, as_json: JsonOption = False) -> None:
 
 
 @app.command()
-def tests(rig: RigArgument = None, as_json: JsonOption = False) -> None:
-    """The rig's tests, with what the local mirror holds of each."""
+def tests(
+    rig: RigArgument = None, archive: ArchiveOption = None, as_json: JsonOption = False
+) -> None:
+    """The rig's tests, with what the local mirror holds of each (or the archive's tests)."""
+    if archive is not None:
+        from .archive.cli import archived_tests
+
+        with _guard():
+            listed, text = archived_tests(archive, rig)
+        return _emit(as_json, listed, lambda: text)
     with _guard():
         paired = _paired(rig)
         with _client(paired) as client:
@@ -337,8 +347,15 @@ BandOption = Annotated[
 ]
 
 
-def _load(rig: str | None, test: str) -> TestData:
-    """A mirrored test of a paired rig, as arrays (offline)."""
+ArchiveOption = Annotated[str | None, typer.Option("--archive", help="read this archive (DSN)")]
+
+
+def _load(rig: str | None, test: str, archive: str | None = None) -> TestData:
+    """A mirrored test of a paired rig (or an archived one), as arrays (offline)."""
+    if archive is not None:
+        from .archive.cli import load
+
+        return load(archive, rig, test)
     with _mirror(_paired(rig)) as mirror:
         return mirror.load(test)
 
@@ -355,13 +372,14 @@ def export(
         Path | None, typer.Option(help="file to write (default: <test>.<format> here)")
     ] = None,
     rig: RigOption = None,
+    archive: ArchiveOption = None,
     as_json: JsonOption = False,
 ) -> None:
     """Write a mirrored test for fitting elsewhere: npz, HDF5 or CSV (works offline)."""
     from .export import export as write
 
     with _guard():
-        data = _load(rig, test)
+        data = _load(rig, test, archive)
         suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
         path = write(data, out or Path(f"{test}{suffix}"), fmt.value, quantity.value, _band(band))
     obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
@@ -378,6 +396,7 @@ def check(
         Path | None, typer.Option(help="also draw PNG plots into this folder (plots extra)")
     ] = None,
     rig: RigOption = None,
+    archive: ArchiveOption = None,
     as_json: JsonOption = False,
 ) -> None:
     """Quick-look report: averages, rejections, coherence, force band, a mode table."""
@@ -385,7 +404,7 @@ def check(
     from .check import check as run_check
 
     with _guard():
-        data = _load(rig, test)
+        data = _load(rig, test, archive)
         result = run_check(data, CheckSettings(band_hz=_band(band)))
         drawn: list[Path] = []
         if plots is not None:

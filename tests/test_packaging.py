@@ -93,3 +93,21 @@ def test_parts_keep_their_boundaries(part: str, forbidden: tuple[str, ...]) -> N
     for path in (ROOT / part).rglob("*.py"):
         for module in pattern.findall(path.read_text(encoding="utf-8")):
             assert not module.startswith(forbidden), f"{path} imports {module}"
+
+
+def test_wheel_carries_the_archive_migrations_and_schema(wheel: Path) -> None:
+    names = set(zipfile.ZipFile(wheel).namelist())
+    sql = {n for n in names if n.startswith("taprig/client/archive/migrations/")}
+    assert "taprig/client/archive/migrations/0001_archive.sql" in sql
+    assert "taprig/client/archive/SCHEMA.md" in names
+
+
+def test_psycopg_is_imported_by_the_archive_only() -> None:
+    """The archive's driver is an extra: nothing else imports it, and the CLI starts without."""
+    pattern = re.compile(r"^\s*(?:from|import)\s+psycopg", re.M)
+    for part in ("daemon", "client", "schema", "firmware_protocol"):
+        for path in (ROOT / part).rglob("*.py"):
+            if pattern.search(path.read_text(encoding="utf-8")):
+                assert path.is_relative_to(ROOT / "client" / "archive"), path
+    code = "import sys, taprig.client.cli; assert 'psycopg' not in sys.modules"
+    subprocess.run([sys.executable, "-c", code], check=True, timeout=60)

@@ -16,6 +16,7 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+import bench_archive
 import bench_capture
 import bench_client
 import bench_decode
@@ -54,6 +55,9 @@ BENCHES = [
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
     Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),
+    Bench("archive: many rigs into PostgreSQL, one test read back",
+          lambda q: bench_archive.run(3, 20, 5_000) if q else bench_archive.run(),
+          lambda rows: bench_archive.show(rows, decimals=2), bench_archive.headline),
     Bench("client: quick-look check, exports, plots",
           lambda q: bench_client.run(30 if q else 210), bench_client.show, bench_client.headline),
     Bench("client: modal fit (pLSCF, stabilization, LSFD), scaling, Monte-Carlo",
