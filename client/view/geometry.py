@@ -107,10 +107,14 @@ class Geometry:
                 for lab, p, d in zip(self.labels, self.xyz, self.directions, strict=True)
             ],
             "faces": [
-                {"name": f.name, "triangles": f.triangles.tolist(),
-                 "normal": [float(v) for v in f.normal], "given": f.given}
+                {
+                    "name": f.name,
+                    "triangles": f.triangles.tolist(),
+                    "normal": [float(v) for v in f.normal],
+                    "given": f.given,
+                }
                 for f in self.faces
-            ],  # fmt: skip
+            ],
             "lines": self.lines.tolist(),
         }
 

@@ -142,9 +142,10 @@ def from_peaks(data: TestData) -> ModeSet:
 
 def modes_for(data: TestData) -> ModeSet:
     """The modes to show: the modal fit when client/modal is installed, else the peaks."""
-    try:
-        from ..modal import fit  # type: ignore[attr-defined,unused-ignore]
-    except ImportError:
-        return from_peaks(data)
-    return from_model(fit(data), data)
+    import importlib
 
+    try:
+        modal = importlib.import_module("taprig.client.modal")
+    except ModuleNotFoundError:
+        return from_peaks(data)
+    return from_model(modal.fit(data), data)

@@ -20,6 +20,7 @@ that is not planar and has no surfaces given.
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -109,9 +110,11 @@ def _record(draft: _Draft, number: int, words: list[str]) -> None:
         at = [_known(draft, a) for a in args]
         if len(at) < 2:
             raise GeometryError("a line joins two or more points")
-        draft.lines += [(a, b) for a, b in zip(at, at[1:], strict=False) if a != b]
+        draft.lines += [(a, b) for a, b in itertools.pairwise(at) if a != b]
     else:
-        raise GeometryError(f"unknown record {words[0]!r}; use point, face, points, tri, quad, line")
+        raise GeometryError(
+            f"unknown record {words[0]!r}; use point, face, points, tri, quad, line"
+        )
 
 
 def _point(draft: _Draft, args: list[str]) -> None:

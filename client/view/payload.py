@@ -79,9 +79,9 @@ def page_data(data: TestData, modes: ModeSet, geometry: Geometry) -> dict[str, A
     """The page's opening data (module docstring); plain JSON types, NaN as null."""
     flat = unfold(geometry)
     summed = np.abs(data.h1).sum(axis=(0, 1))
-    shapes = normalise(spread(modes.shape, modes.point, geometry)) if len(modes) else []
+    shapes = normalise(spread(modes.shape, modes.point, geometry))
     measured = set(data.points)
-    return jsonable({
+    out: dict[str, Any] = jsonable({
         "test": _test_info(data),
         "freq_hz": _list(data.freq_hz, 4),
         "summed_db": _list(_db(summed), 3),
@@ -106,6 +106,7 @@ def page_data(data: TestData, modes: ModeSet, geometry: Geometry) -> dict[str, A
                       for r in modes.poles],
         },
     })  # fmt: skip
+    return out
 
 
 def point_frf(data: TestData, row: int) -> dict[str, Any]:
@@ -114,14 +115,16 @@ def point_frf(data: TestData, row: int) -> dict[str, Any]:
     if not 0 <= row < len(data.points):
         raise IndexError(f"no point row {row}; the test has {len(data.points)}")
     h = data.h1[row]
-    return jsonable({
+    out: dict[str, Any] = jsonable({
         "point": data.points[row],
         "responses": [
-            {"label": r, "mag_db": _list(_db(h[k]), 3), "phase_deg": _list(np.degrees(np.angle(h[k])), 2),
+            {"label": r, "mag_db": _list(_db(h[k]), 3),
+             "phase_deg": _list(np.degrees(np.angle(h[k])), 2),
              "coherence": _list(data.coherence[row, k], 4)}
             for k, r in enumerate(data.responses)
         ],
     })  # fmt: skip
+    return out
 
 
 def deflection(data: TestData, geometry: Geometry, line: int) -> dict[str, Any]:

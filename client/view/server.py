@@ -15,7 +15,7 @@ from __future__ import annotations
 import asyncio
 import json
 import threading
-from collections.abc import Callable
+from collections.abc import Awaitable, Callable
 from importlib import resources
 from typing import Final
 
@@ -104,10 +104,10 @@ class ViewServer:
 
     def _piece(
         self, build: Callable[[TestData, int], dict[str, object]]
-    ) -> Callable[[web.Request], object]:
+    ) -> Callable[[web.Request], Awaitable[web.StreamResponse]]:
         """A handler answering build(data, int(last path part)); 404 for a bad number."""
 
-        async def handler(request: web.Request) -> web.Response:
+        async def handler(request: web.Request) -> web.StreamResponse:
             text = next(iter(request.match_info.values()))
             try:
                 body = build(self.data, int(text))

@@ -8,49 +8,38 @@ from __future__ import annotations
 
 import contextlib
 import json
-import shutil
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 from selenium import webdriver
-from selenium.webdriver.chrome.service import Service as DriverService
 from selenium.webdriver.remote.webdriver import WebDriver
 
-from tests.web.harness import CHROMEDRIVER, CHROMIUM, wait
+from tests.web.harness import chromium, wait
 
 __all__ = ["desktop", "requested_urls", "severe_logs", "wait"]
 
 
 @contextlib.contextmanager
 def desktop(tmp: Path, width: int = 1400, height: int = 1000) -> Iterator[WebDriver]:
-    """Headless Chromium with a `width` × `height` window; a missing browser is an error."""
-    for path in (CHROMIUM, CHROMEDRIVER):
-        if shutil.which(path) is None:
-            raise RuntimeError(f"{path} is missing: install Debian's chromium and chromium-driver")
+    """Headless Chromium with a `width` × `height` window, console and network logged."""
     options = webdriver.ChromeOptions()
-    options.binary_location = CHROMIUM
-    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                 "--disable-dev-shm-usage", f"--user-data-dir={tmp / 'chromium-profile'}",
-                 f"--window-size={width},{height}"):  # fmt: skip
-        options.add_argument(flag)
+    options.add_argument(f"--window-size={width},{height}")
     options.set_capability("goog:loggingPrefs", {"browser": "ALL", "performance": "ALL"})
-    service = DriverService(CHROMEDRIVER, log_output=str(tmp / "chromedriver.log"))
-    driver = webdriver.Chrome(service=service, options=options)
-    try:
+    with chromium(tmp, options) as driver:
         yield driver
-    finally:
-        driver.quit()
 
 
 def requested_urls(driver: WebDriver) -> list[str]:
-    """Every URL the page asked the network for since the last call (DevTools log)."""
+    """Every network URL (http, https, ws, wss) the browser asked for since the last call
+    (DevTools log); the browser's own chrome:// and data: loads are not the network."""
     urls = []
     for entry in driver.get_log("performance"):  # type: ignore[attr-defined]
         message: dict[str, Any] = json.loads(entry["message"])["message"]
         if message.get("method") == "Network.requestWillBeSent":
-            urls.append(message["params"]["request"]["url"])
+            url = message["params"]["request"]["url"]
+            if url.split(":", 1)[0] in ("http", "https", "ws", "wss"):
+                urls.append(url)
     return urls
 
 
