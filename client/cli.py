@@ -412,6 +412,11 @@ def demo(
     typer.echo(result.check.read_text(encoding="utf-8").split("\n\n")[0])
 
 
+from .view.command import view  # noqa: E402  (its own module; heavy imports run inside)
+
+app.command()(view)
+
+
 def main() -> None:
     app()
 

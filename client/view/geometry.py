@@ -205,7 +205,8 @@ def triangulate(name: str, xyz: FloatArray, members: IntArray) -> IntArray:
     except QhullError as exc:  # coincident points and the like
         raise GeometryError(f"face {name!r} cannot be triangulated: {exc}".split("\n")[0]) from None
     tri = local[simplices]
-    area = np.abs(np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])) / 2
+    u, v = tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0]
+    area = np.abs(u[:, 0] * v[:, 1] - u[:, 1] * v[:, 0]) / 2
     keep = area > 1e-12 * float(extent.max()) ** 2
     out: IntArray = members[simplices[keep]].astype(np.int64)
     return out

@@ -16,8 +16,11 @@ import pytest
 
 from taprig.client.dataset import TestData
 from taprig.client.view.modes import ModeSet, auto_mac, from_model
+from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
+from taprig.daemon.runner import RunningRig
 from taprig.firmware_protocol.virtual import ModalModel, demo_panel
 from tests.client.analytic import analytic_test_data
+from tests.client.conftest import places, served  # noqa: F401  (fixtures for the command tests)
 
 PANEL = demo_panel(2000.0)
 FREQ = np.arange(0.0, 2000.0 + 1e-9, 0.5)  # Hz
@@ -54,3 +57,21 @@ def truth_modes(model: ModalModel, data: TestData, orders: range = range(4, 31, 
 def known() -> Known:
     data = analytic_test_data(PANEL, FREQ, TAU_S)
     return Known(PANEL, data, truth_modes(PANEL, data))
+
+
+def commit_analytic(running: RunningRig, data: TestData) -> None:
+    """`data` committed through the rig's store as the rig commits point sets, one per row
+    (Gfx = H1·Gff, the cross spectrum H1 comes from), so a client can pull and mirror it."""
+    grid = [GridPoint(p, *map(float, xyz), d) for p, *xyz, d in data.grid]
+    store = running.store
+    store.save_test(data.test, grid, RovingMode.HAMMER, data.reference, 5, {"sensor_points": {}})
+    hits = (StoredHit(100, "2026-12-01T09:00:00Z", True, 40.0, 8e-4, (), None),)
+    for i, p in enumerate(data.points):
+        store.commit_point_set(PointSet(
+            test=data.test, point=p, version=0, roving_mode=RovingMode.HAMMER, drive_point=p,
+            response_labels=data.responses, response_points=data.response_points[i],
+            n_averages=5, freq_hz=data.freq_hz, h1=data.h1[i], h2=data.h2[i],
+            coherence=data.coherence[i], gff=data.gff[i], gxx=data.gxx[i],
+            gfx=data.h1[i] * data.gff[i], hits=hits, meta={"exp_tau_s": data.exp_tau_s,
+                                                          "sample_rate_hz": 2 * data.freq_hz[-1]},
+        ))  # fmt: skip
