@@ -19,7 +19,8 @@ from selenium.webdriver.common.keys import Keys
 from selenium.webdriver.remote.webdriver import WebDriver
 from selenium.webdriver.support.select import Select
 
-from taprig.client.view.geometry import from_grid
+from taprig.client.view.geometry import Geometry, from_grid
+from taprig.client.view.outline import parse_outline
 from taprig.client.view.payload import normalise, spread
 from taprig.client.view.server import ViewServer, ViewThread
 
@@ -60,9 +61,11 @@ def click_at_frequency(driver: WebDriver, canvas_id: str, f_hz: float, f_top: fl
     ).click().perform()
 
 
-def expected_positions(known: Known, mode: int, f: dict[str, Any]) -> np.ndarray:
+def expected_positions(
+    known: Known, mode: int, f: dict[str, Any], geo: Geometry | None = None
+) -> np.ndarray:
     """x + a·s·Re(φ e^{iθ})·d for the model's own shape φ (normalised as the page's)."""
-    geo = from_grid(known.data.grid)
+    geo = geo if geo is not None else from_grid(known.data.grid)
     phi = normalise(spread(known.modes.shape, known.modes.point, geo))[mode]
     value = (phi * np.exp(1j * f["phase"])).real
     return geo.xyz + f["amp"] * f["scale_m"] * value[:, None] * geo.directions
@@ -125,3 +128,32 @@ def test_frf_click_shows_the_deflection_and_the_flat_view_animates(
     f = wait(driver, "a flat frame", lambda d: (f := frame(d))["layout"] == "flat" and f)
     assert next_frame(driver, f["frame"])["phase"] != f["phase"]
     assert severe_logs(driver) == []
+
+
+# E1 is measured sideways here (+y), R1 and R6 are not measured at all
+BOX = """point E1 0.05 0.36 0.0 +y
+point R1 0.05 0.40 -0.20 +y
+point R6 0.55 0.40 -0.20 +y
+face top
+points A1 A2 A3 A4 A5 A6 B1 B2 B3 B4 B5 B6 C1 C2 C3 C4 C5 C6 D1 D2 D3 D4 D5 D6 E1 E2 E3 E4 E5 E6
+face back
+quad E1 E6 R6 R1
+"""
+
+
+def test_directions_and_unmeasured_points_are_drawn_as_given(known: Known, tmp_path: Path) -> None:
+    """On an outline with a second face, each point moves along its own direction (E1
+    sideways) and the unmeasured points stay at rest; positions to 1e-6 m."""
+    geo = parse_outline(BOX, known.data.grid)
+    server = ViewServer(known.data, known.modes, geo)
+    with ViewThread(server) as served, desktop(tmp_path) as driver:
+        driver.get(served.url)
+        f = wait(driver, "an animated frame", lambda d: d.execute_script(
+            "return window.taprigView && window.taprigView.frames >= 2") and frame(d))  # fmt: skip
+        drawn = np.array(f["positions"]).reshape(-1, 3)
+        assert np.abs(drawn - expected_positions(known, 0, f, geo)).max() <= 1e-6
+        e1, r1 = geo.index("E1"), geo.index("R1")
+        moved = drawn - geo.xyz
+        assert moved[e1, 0] == 0 and moved[e1, 2] == 0
+        assert np.all(moved[r1] == 0)
+        assert severe_logs(driver) == []
