@@ -10,7 +10,7 @@ order. Two sources fill it:
   freq_hz, damping or damping_ratio, stable).
 * `from_peaks(data)`, the stand-in while no fit exists: the quick-look check's peaks
   (client/check.py), deflection shapes from Im H1. It is labelled as peaks, never as a fit,
-  and has no stabilization poles.
+  and has no stabilization poles; its MPC is NaN (a real shape's MPC is 1 by definition).
 
 Numbers: MAC (Allemang & Brown, "A correlation coefficient for modal vector analysis",
 1982): |φ_iᴴφ_j|² / ((φ_iᴴφ_i)(φ_jᴴφ_j)). MPC (Pappa, Elliott & Schenk, "Consistent-mode
@@ -135,7 +135,8 @@ def from_peaks(data: TestData) -> ModeSet:
         source=PEAKS_SOURCE, label=PEAKS_LABEL,
         freq_hz=np.array([p.freq_hz for p in peaks], dtype=np.float64),
         damping_ratio=np.array([p.damping_ratio for p in peaks], dtype=np.float64),
-        mpc=mpc(shape), shape=shape, point=data.points, mac=auto_mac(shape),
+        # Im H1 shapes are real by construction: their MPC would be 1 and say nothing
+        mpc=np.full(len(peaks), np.nan), shape=shape, point=data.points, mac=auto_mac(shape),
         flags=tuple(flags),
     )  # fmt: skip
 
