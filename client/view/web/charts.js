@@ -70,7 +70,10 @@ function range(traces, i0, i1, pad) {
 
 function xAxis(ctx, band, w, h) {
   ctx.fillStyle = SOFT; ctx.font = "10px system-ui, sans-serif";
-  for (const f of ticks(band.lo, band.hi, 6)) ctx.fillText(`${f}`, band.x(f, w) - 8, h - 8);
+  for (const f of ticks(band.lo, band.hi, 6)) {
+    const text = `${f}`, x = band.x(f, w) - ctx.measureText(text).width / 2;
+    ctx.fillText(text, Math.min(x, w - ctx.measureText(text).width - 2), h - 8);
+  }
   ctx.fillText("f / Hz", 4, h - 8);
 }
 
