@@ -443,6 +443,11 @@ from .fitting_cli import register as _register_fit  # noqa: E402 (needs the help
 _register_fit(app)
 
 
+from .view.command import view  # noqa: E402  (its own module; heavy imports run inside)
+
+app.command()(view)
+
+
 def main() -> None:
     app()
 

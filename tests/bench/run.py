@@ -28,6 +28,7 @@ import bench_service
 import bench_spectra
 import bench_startup
 import bench_text_input
+import bench_view
 from table import Figure, summary
 
 
@@ -71,6 +72,8 @@ BENCHES = [
           lambda rows: bench_startup.show(rows, decimals=2), bench_startup.headline),
     Bench("phone page: tap to plots in headless Chromium, page weight",
           lambda q: bench_phone.run(3 if q else 10), bench_phone.show, bench_phone.headline),
+    Bench("view page: 500 points to first animated frame, frame rate, page weight",
+          lambda q: bench_view.run(1 if q else 3), bench_view.show, bench_view.headline),
 ]  # fmt: skip
 
 

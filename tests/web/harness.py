@@ -93,15 +93,14 @@ def taprigd(tmp: Path, *settings: str, test: str = "shop-panel") -> Iterator[Tap
 
 
 @contextlib.contextmanager
-def phone(tmp: Path) -> Iterator[WebDriver]:
-    """Headless Chromium emulating a phone held upright (touch, its size and pixel ratio)."""
+def chromium(tmp: Path, options: webdriver.ChromeOptions) -> Iterator[WebDriver]:
+    """Headless Chromium with our usual flags added to `options`; a missing browser fails."""
     for path in (CHROMIUM, CHROMEDRIVER):
         if shutil.which(path) is None:
             raise RuntimeError(
                 f"{path} is missing: install Debian's chromium and chromium-driver "
-                "(.ci/run does); the phone page is tested only in a real browser"
+                "(.ci/run does); pages are tested only in a real browser"
             )
-    options = webdriver.ChromeOptions()
     options.binary_location = CHROMIUM
     profile = tmp / "chromium-profile"
     for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
@@ -109,14 +108,22 @@ def phone(tmp: Path) -> Iterator[WebDriver]:
                  "--disable-sync", "--disable-dev-shm-usage", f"--user-data-dir={profile}",
                  "--autoplay-policy=no-user-gesture-required"):  # fmt: skip
         options.add_argument(flag)
-    options.add_experimental_option("mobileEmulation", {"deviceMetrics": {**PHONE, "touch": True}})
-    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
     service = DriverService(CHROMEDRIVER, log_output=str(tmp / "chromedriver.log"))
     driver = webdriver.Chrome(service=service, options=options)
     try:
         yield driver
     finally:
         driver.quit()
+
+
+@contextlib.contextmanager
+def phone(tmp: Path) -> Iterator[WebDriver]:
+    """Headless Chromium emulating a phone held upright (touch, its size and pixel ratio)."""
+    options = webdriver.ChromeOptions()
+    options.add_experimental_option("mobileEmulation", {"deviceMetrics": {**PHONE, "touch": True}})
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    with chromium(tmp, options) as driver:
+        yield driver
 
 
 def wait(driver: WebDriver, what: str, check: Callable[[WebDriver], T]) -> T:
