@@ -102,22 +102,33 @@ def from_model(model: Any, data: TestData) -> ModeSet:
     for j, p in enumerate(data.points):
         if p in order:
             shape[:, j] = np.asarray(model.shape)[:, order[p]]
-    from ..modal.stability import STABLE
-
-    orders = np.asarray(model.diagram_order)
-    poles = tuple(
-        PoleRow(int(n), np.asarray(model.diagram_freq_hz, dtype=np.float64)[orders == n],
-                np.asarray(model.diagram_damping_ratio, dtype=np.float64)[orders == n],
-                np.asarray(model.diagram_status)[orders == n] == STABLE)
-        for n in np.unique(orders)
-    )  # fmt: skip
     return ModeSet(
         source="fit", label=FIT_LABEL,
         freq_hz=np.asarray(model.freq_hz, dtype=np.float64),
         damping_ratio=np.asarray(model.damping_ratio, dtype=np.float64),
         mpc=np.asarray(model.mpc, dtype=np.float64), shape=shape, point=data.points,
         mac=np.asarray(model.mac, dtype=np.float64),
-        flags=tuple(tuple(str(c) for c in f) for f in model.flags), poles=poles,
+        flags=tuple(tuple(str(c) for c in f) for f in model.flags), poles=_poles(model),
+    )  # fmt: skip
+
+
+def _poles(model: Any) -> tuple[PoleRow, ...]:
+    """The stabilization diagram: a ModalModel's diagram arrays, or rows given as such."""
+    if not hasattr(model, "diagram_order"):
+        return tuple(
+            PoleRow(int(row.order), np.asarray(row.freq_hz, dtype=np.float64),
+                    np.asarray(row.damping, dtype=np.float64),
+                    np.asarray(row.stable, dtype=np.bool_))
+            for row in getattr(model, "stabilization", ())
+        )  # fmt: skip
+    from ..modal.stability import STABLE
+
+    orders = np.asarray(model.diagram_order)
+    return tuple(
+        PoleRow(int(n), np.asarray(model.diagram_freq_hz, dtype=np.float64)[orders == n],
+                np.asarray(model.diagram_damping_ratio, dtype=np.float64)[orders == n],
+                np.asarray(model.diagram_status)[orders == n] == STABLE)
+        for n in np.unique(orders)
     )  # fmt: skip
 
 

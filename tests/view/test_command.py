@@ -57,7 +57,7 @@ def look_at_page(url: str, tmp_path: Path) -> None:
         wait(driver, "an animated frame", lambda d: d.execute_script(
             "return window.taprigView && window.taprigView.frames >= 2"))  # fmt: skip
         caption = driver.find_element(By.ID, "modes-caption").text
-        assert "quick-look peaks" in caption and "not a modal fit" in caption
+        assert "modal fit" in caption and "quick-look" not in caption
         rows = driver.find_elements(By.CSS_SELECTOR, "#modes tbody tr")
         assert len(rows) >= 3
         assert severe_logs(driver) == []
@@ -65,9 +65,8 @@ def look_at_page(url: str, tmp_path: Path) -> None:
 
 
 def test_view_serves_a_mirrored_test(mirrored: Places, tmp_path: Path) -> None:
-    """The page loads the mirrored test with the quick-look peaks, labelled as such (no
-    modal fit on this branch), without console errors or requests off loopback; SIGTERM
-    stops the command cleanly."""
+    """The page loads the mirrored test with its modal fit, labelled as such, without console
+    errors or requests off loopback; SIGTERM stops the command cleanly."""
     env = {**os.environ, "TAPRIG_HOME": str(mirrored.config.parent)}
     args = [sys.executable, "-m", "taprig.client", "view", "--no-browser"]
     with subprocess.Popen(args, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
