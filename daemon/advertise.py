@@ -19,10 +19,8 @@ import contextlib
 import ipaddress
 import logging
 import re
-import secrets
 import threading
 from collections.abc import Coroutine, Mapping, Sequence
-from pathlib import Path
 from typing import Any, Final, Literal, TypeVar
 
 import ifaddr
@@ -49,27 +47,6 @@ Interfaces = Sequence[str] | InterfaceChoice
 """Where to serve mDNS: `InterfaceChoice.All` (IPv4) or a list of interface addresses."""
 
 _T = TypeVar("_T")
-
-
-def new_rig_id() -> str:
-    """A fresh random rig id (48 bits, 12 hex digits) for a rig's configuration to keep."""
-    return secrets.token_hex(6)
-
-
-RIG_ID_FILE: Final = "rig-id"
-
-
-def rig_id(state_dir: Path) -> str:
-    """This rig's stable id, made on first start and kept in the state folder."""
-    path = state_dir / RIG_ID_FILE
-    try:
-        text = path.read_text(encoding="ascii").strip()
-    except FileNotFoundError:
-        text = ""
-    if not text:
-        text = new_rig_id()
-        path.write_text(text + "\n", encoding="ascii")
-    return text
 
 
 def encode_txt(entries: Mapping[str, str]) -> bytes:
@@ -179,7 +156,7 @@ class Advertiser:
 
     name: the rig's name, 1..59 bytes of UTF-8 without control characters; renamed
     ``name-2``, ``name-3``, ... if the LAN already has it (see `name` after start).
-    rig_id: the rig's stable id, 1..36 of ``0-9 a-z -`` (`new_rig_id` makes one).
+    rig_id: the rig's stable id, 1..36 of ``0-9 a-z -`` (daemon/identity.py makes one).
     port: TCP port of the rig's HTTP service.
     interfaces: `InterfaceChoice.All` or a list of interface addresses to serve mDNS on.
     addresses: addresses to advertise; by default those of the served interfaces (for

@@ -2,10 +2,12 @@
 
     SerialLink (reader thread) ─► Decoder ─► Acquirer ─► check_hit ─► Session ─► Store
 
-The processing thread owns the decoder, the acquirer and the session; other
-threads (the CLI, the HTTP service) talk to it through `call`, which
-queues a command and waits for its result, so nothing is shared unlocked.
-Observers get every outcome as a plain event.
+The processing thread owns the decoder, the acquirer, the session and every field of
+the rig; other threads (the CLI, the HTTP service, the event loop) never read those
+fields. They act through `call`, which queues a command and waits for its result, and
+read `view()`: a frozen `RigView` the processing thread publishes whole, under a lock,
+after every command and every item it processes. Observers get every outcome as a plain
+event, on the processing thread.
 """
 
 from __future__ import annotations
@@ -17,6 +19,7 @@ import queue
 import shutil
 import threading
 import time
+from collections import deque
 from collections.abc import Callable
 from concurrent.futures import Future
 from dataclasses import dataclass, field
@@ -38,15 +41,15 @@ from taprig.firmware_protocol import (
 )
 
 from . import __version__
-from .acquire import Acquirer, TriggerSettings
+from .capture.acquire import Acquirer, TriggerSettings
+from .capture.hits import CheckSettings, check_hit
+from .capture.link import LinkChange, LinkState, SerialLink
+from .capture.session import HitOutcome, Plan, Session
+from .capture.spectra import WindowSettings, single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
-from .hits import CheckSettings, check_hit
-from .link import LinkChange, LinkState, SerialLink
 from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
-from .session import HitOutcome, Plan, Session
-from .spectra import WindowSettings, single_average_warning
 from .store import Store
 
 log = logging.getLogger(__name__)
@@ -69,11 +72,40 @@ class RigEvent:
     data: dict[str, Any]
 
 
+LATENCIES_KEPT = 256  # most recent commit latencies kept for a look (bounded: runs for months)
+
+
 @dataclass
 class RigStats:
+    """Counters of the processing thread (which alone writes them)."""
+
     hits_seen: int = 0
     hits_while_disarmed: int = 0
-    commit_latency_s: list[float] = field(default_factory=list)
+    commits: int = 0
+    commit_latency_s: deque[float] = field(default_factory=lambda: deque(maxlen=LATENCIES_KEPT))
+    """Seconds from the last item's arrival to its point set committed, most recent last."""
+
+
+@dataclass(frozen=True, slots=True)
+class RigView:
+    """The rig as other threads may see it: published whole by the processing thread.
+
+    plan: the selected test's plan (None: none selected); point: the cursor.
+    commit_latency_s: the most recent commit latencies (seconds), oldest first.
+    last_hit: a display-sized view of the last hit (daemon/display.py), or None.
+    """
+
+    link_state: LinkState
+    info: DeviceInfo | None
+    armed: bool
+    waiting_for_room: bool
+    plan: Plan | None
+    point: str | None
+    hits_seen: int
+    hits_while_disarmed: int
+    commits: int
+    commit_latency_s: tuple[float, ...]
+    last_hit: dict[str, Any] | None
 
 
 class Rig:
@@ -104,7 +136,7 @@ class Rig:
         self._item_time = 0.0
         self._last_record: HitRecord | None = None
         self.last_hit: dict[str, Any] | None = None
-        """A display-sized view of the last hit; replaced whole, so any thread may read it."""
+        """A display-sized view of the last hit (other threads: `view().last_hit`)."""
         self.beat = time.monotonic()
         """When the processing thread last went round its loop (monotonic s); for a watchdog."""
         self.free_mb: float | None = None
@@ -114,6 +146,8 @@ class Rig:
         self._next_disk_check = 0.0
         self._disk_unreadable = False
         self._resume: dict[str, Any] | None = None
+        self._view_lock = threading.Lock()
+        self._view = self._make_view()
 
     # --- lifecycle ------------------------------------------------------------
 
@@ -206,6 +240,11 @@ class Rig:
     def snapshot(self) -> dict[str, Any]:
         return self.call(self._snapshot)
 
+    def view(self) -> RigView:
+        """The rig's state as last published by the processing thread (any thread; no wait)."""
+        with self._view_lock:
+            return self._view
+
     # --- processing thread ----------------------------------------------------
 
     def _run(self) -> None:
@@ -215,6 +254,7 @@ class Rig:
                 self._next_disk_check = self.beat + DISK_CHECK_S
                 self._watch_disk()
             self._serve_commands()
+            self._publish()
             try:
                 item = self._link.items.get(timeout=0.02)
             except queue.Empty:
@@ -228,6 +268,20 @@ class Rig:
             except Exception:
                 # A bug in one stage must not stop the rig: log it and carry on with the stream.
                 log.exception("processing failed; continuing with the next data")
+            self._publish()
+
+    def _make_view(self) -> RigView:
+        s, st = self.session, self.stats
+        return RigView(
+            self.link_state, self.info, self.armed, self.waiting_for_room,
+            s.plan if s else None, s.cursor if s else None, st.hits_seen,
+            st.hits_while_disarmed, st.commits, tuple(st.commit_latency_s), self.last_hit,
+        )  # fmt: skip
+
+    def _publish(self) -> None:
+        view = self._make_view()
+        with self._view_lock:
+            self._view = view
 
     def _serve_commands(self) -> None:
         while True:
@@ -368,6 +422,7 @@ class Rig:
             if self.session is not None:
                 self.session.done.discard(ps.point)
             return
+        self.stats.commits += 1
         self.stats.commit_latency_s.append(time.perf_counter() - self._item_time)
         self._emit("completed", {"point": stored.point, "version": stored.version,
                                  "seq": stored.seq, "averages": stored.n_averages})  # fmt: skip
@@ -523,6 +578,8 @@ class Rig:
         }  # fmt: skip
 
     def _emit(self, kind: str, data: dict[str, Any]) -> None:
+        # Published first: an observer told of a change finds it in `view()`.
+        self._publish()
         event = RigEvent(kind, data)
         for observer in self._observers:
             try:

@@ -13,9 +13,9 @@ import pytest
 
 from taprig.daemon.config import load_config
 from taprig.daemon.errors import SessionError
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, RovingMode
 from taprig.daemon.rig import RigEvent
-from taprig.daemon.runner import RunningRig, start_rig
 from taprig.firmware_protocol.virtual import accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
 
@@ -69,7 +69,7 @@ def grid_of(vi: VirtualInstrument, labels: list[str]) -> list[GridPoint]:
 
 def wait_info(r: RunningRig) -> None:
     deadline = time.monotonic() + 10
-    while r.rig.info is None:
+    while r.rig.view().info is None:
         assert time.monotonic() < deadline, "device never identified itself"
         time.sleep(0.01)
 
@@ -126,7 +126,7 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     assert again.data["version"] == 2
     assert len(r.store.list_point_sets(test="panel-1")) == 4
     assert r.store.integrity_check() == "ok"
-    assert r.rig.stats.commit_latency_s
+    assert r.rig.view().commit_latency_s
 
 
 def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
@@ -137,10 +137,10 @@ def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
     r.rig.select_test("idle")
     vi.tap("A1")
     deadline = time.monotonic() + 5
-    while r.rig.stats.hits_seen == 0:
+    while r.rig.view().hits_seen == 0:
         assert time.monotonic() < deadline
         time.sleep(0.01)
-    assert r.rig.stats.hits_while_disarmed == 1
+    assert r.rig.view().hits_while_disarmed == 1
     assert r.store.list_point_sets() == []
 
 
@@ -224,7 +224,7 @@ def test_text_device_captures(tmp_path: Path) -> None:
         assert vi is not None
         ev = Events(r)
         wait_info(r)
-        assert r.rig.info is not None and r.rig.info.rate_hz == 5000.0
+        assert r.rig.view().info is not None and r.rig.view().info.rate_hz == 5000.0
         r.rig.create_test("txt", grid_of(vi, ["E6"]))
         r.rig.select_test("txt")
         r.rig.arm()

@@ -14,7 +14,7 @@ import pytest
 
 from taprig.daemon.config import load_config
 from taprig.daemon.errors import SessionError
-from taprig.daemon.runner import RunningRig, start_rig
+from taprig.daemon.lifespan import RunningRig, start_rig
 
 from .test_rig import DAMPED, Events, grid_of, tap_and_wait, wait_info
 
@@ -131,7 +131,7 @@ def test_refuses_to_arm_without_disk_room(tmp_path: Path) -> None:
         r.rig.select_test("t")
         with pytest.raises(SessionError, match=r"MB free in .* needs 100000000 MB to arm"):
             r.rig.arm()
-        assert not r.rig.armed
+        assert not r.rig.view().armed
     finally:
         r.close()
 

@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import PointSet, RovingMode
-from taprig.daemon.runner import RunningRig, start_rig
 from taprig.firmware_protocol.virtual import DEMO_DRIVING_POINT, ModalModel, accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
 

@@ -25,10 +25,13 @@ import numpy as np
 import pytest
 
 from taprig.daemon import __version__
+from taprig.daemon.api.bodies import BodyCache
+from taprig.daemon.api.openapi import openapi, openapi_text
+from taprig.daemon.api.routes import ROUTES, Route
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import ROUTES, BodyCache, Route, Service, openapi, openapi_text
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.schema import API_VERSION, wire
 
 from .test_rig import DAMPED, PAUSE_S, grid_of, wait_info
@@ -596,9 +599,9 @@ def test_eight_concurrent_readers_see_every_point_set(running: RunningRig, auth:
 
 def test_openapi_document_is_committed_and_matches_the_routes() -> None:
     """daemon/openapi.json is `openapi_text()`; regenerate it with
-    ``python -m taprig.daemon.service --openapi > daemon/openapi.json``."""
+    ``python -m taprig.daemon.api --openapi > daemon/openapi.json``."""
     assert OPENAPI_FILE.read_text() == openapi_text(), (
-        "daemon/openapi.json is stale: run python -m taprig.daemon.service --openapi "
+        "daemon/openapi.json is stale: run python -m taprig.daemon.api --openapi "
         "> daemon/openapi.json"
     )
     doc = json.loads(OPENAPI_FILE.read_text())

@@ -20,12 +20,12 @@ from typing import Any
 import aiohttp
 import pytest
 
-from taprig.daemon import session as session_module
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
+from taprig.daemon.capture import session as session_module
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import Service
 from taprig.firmware_protocol.virtual.modal import demo_panel
 
 PAUSE_S = 0.15  # between taps: longer than one 4096-sample record at 51.2 kHz (80 ms)
@@ -87,7 +87,7 @@ def test_wall_clock_set_back_sync_by_seq_is_exact(
     r = start_rig(cfg, model=model)
     try:
         deadline = time.monotonic() + 10
-        while r.rig.info is None:
+        while r.rig.view().info is None:
             assert time.monotonic() < deadline
             time.sleep(0.02)
         grid = [GridPoint(p, *(float(v) for v in model.coords[model.index(p)])) for p in model.grid]
