@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import math
 import queue
 import time
 from collections.abc import Iterator
@@ -74,12 +75,27 @@ def wait_info(r: RunningRig) -> None:
         time.sleep(0.01)
 
 
-def tap_and_wait(r: RunningRig, ev: Events, point: str, **kw: object) -> RigEvent:
+def wait_streamed(r: RunningRig, index: int, timeout: float = 10.0) -> None:
+    """Until the daemon has decoded the device's samples up to `index` (its sample clock)."""
     assert r.instrument is not None
-    time.sleep(PAUSE_S)  # the simulated operator's pause, part of the scenario
+    per_frame = r.instrument.settings.frame_samples
+    deadline = time.monotonic() + timeout
+    while r.rig.snapshot()["link"]["frames_ok"] * per_frame < index:
+        assert time.monotonic() < deadline, f"the stream never reached sample {index}"
+        time.sleep(0.01)
+
+
+def tap_and_wait(r: RunningRig, ev: Events, point: str, **kw: object) -> RigEvent:
+    """One tap and the hit event it caused; then the operator's pause, PAUSE_S on the
+    device's own sample clock (not the wall clock, which a loaded machine stretches)."""
+    vi = r.instrument
+    assert vi is not None
     ev.clear()
-    assert r.instrument.tap(point, **kw) is not None  # type: ignore[arg-type]
-    return ev.next("hit")
+    tap = vi.tap(point, **kw)  # type: ignore[arg-type]
+    assert tap is not None
+    hit = ev.next("hit")
+    wait_streamed(r, tap.first_index + math.ceil(PAUSE_S * vi.rate_hz))
+    return hit
 
 
 def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
