@@ -23,7 +23,8 @@ from .auth import Auth
 from .config import Config
 from .errors import ConfigError
 from .notify import Notifier
-from .rig import Rig, RigEvent
+from .rig import Rig
+from .rigstate import RigEvent
 from .store import Store
 from .supervise import report, status_line
 from .wirebody import encode_body

@@ -12,22 +12,17 @@ event, on the processing thread.
 
 from __future__ import annotations
 
-import json
 import logging
-import os
 import queue
 import shutil
 import threading
 import time
-from collections import deque
 from collections.abc import Callable
 from concurrent.futures import Future
-from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
 from taprig.firmware_protocol import (
     Command,
-    Decoder,
     DeviceInfo,
     DeviceInfoReceived,
     FrameEncoder,
@@ -37,75 +32,25 @@ from taprig.firmware_protocol import (
     ProtocolViolation,
     SampleBlock,
     StatusReceived,
-    make_decoder,
 )
 
-from . import __version__
-from .capture.acquire import Acquirer, TriggerSettings
-from .capture.hits import CheckSettings, check_hit
+from . import resume, stages
+from .capture.acquire import Acquirer
+from .capture.hits import check_hit
 from .capture.link import LinkChange, LinkState, SerialLink
-from .capture.session import HitOutcome, Plan, Session
-from .capture.spectra import WindowSettings, single_average_warning
+from .capture.session import HitOutcome, Session
+from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
-from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
+from .records import GridPoint, HitRecord, PointSet, RovingMode
+from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .store import Store
 
 log = logging.getLogger(__name__)
 T = TypeVar("T")
 
 DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
-SESSION_FILE = "session.json"
-"""In the data folder: the selected test and whether the rig is armed, so that a restarted
-daemon (after a crash, a power cut, a watchdog kill) carries on where it was."""
-
-
-@dataclass(frozen=True, slots=True)
-class RigEvent:
-    """Something an operator display wants to know.
-
-    kind: "hit", "completed", "device", "cursor" or "message".
-    """
-
-    kind: str
-    data: dict[str, Any]
-
-
-LATENCIES_KEPT = 256  # most recent commit latencies kept for a look (bounded: runs for months)
-
-
-@dataclass
-class RigStats:
-    """Counters of the processing thread (which alone writes them)."""
-
-    hits_seen: int = 0
-    hits_while_disarmed: int = 0
-    commits: int = 0
-    commit_latency_s: deque[float] = field(default_factory=lambda: deque(maxlen=LATENCIES_KEPT))
-    """Seconds from the last item's arrival to its point set committed, most recent last."""
-
-
-@dataclass(frozen=True, slots=True)
-class RigView:
-    """The rig as other threads may see it: published whole by the processing thread.
-
-    plan: the selected test's plan (None: none selected); point: the cursor.
-    commit_latency_s: the most recent commit latencies (seconds), oldest first.
-    last_hit: a display-sized view of the last hit (daemon/display.py), or None.
-    """
-
-    link_state: LinkState
-    info: DeviceInfo | None
-    armed: bool
-    waiting_for_room: bool
-    plan: Plan | None
-    point: str | None
-    hits_seen: int
-    hits_while_disarmed: int
-    commits: int
-    commit_latency_s: tuple[float, ...]
-    last_hit: dict[str, Any] | None
 
 
 class Rig:
@@ -120,8 +65,8 @@ class Rig:
         self.link_state = LinkState.CONNECTING
         self.armed = False
         self.session: Session | None = None
-        self._decoder = self._make_decoder()
-        self._checks = self._check_settings()  # the configuration never changes while running
+        self._decoder = stages.decoder(config)
+        self._checks = stages.check_settings(config)
         self._acq: Acquirer | None = None
         self._enc = FrameEncoder()
         self._link = SerialLink(self.url, baudrate=config.device.baudrate,
@@ -167,13 +112,10 @@ class Rig:
         self._link.close()
 
     def resume_later(self) -> bool:
-        """Carry on with the session a previous run left (SESSION_FILE) once the device has
-        identified itself: select its test and arm if it was armed. False if there is none."""
-        try:
-            record = json.loads((self.store.path.parent / SESSION_FILE).read_text("utf-8"))
-        except (FileNotFoundError, ValueError):
-            return False
-        if not isinstance(record, dict) or not isinstance(record.get("test"), str):
+        """Carry on with the session a previous run left (daemon/resume.py) once the device
+        has identified itself: select its test and arm if it was armed. False if there is none."""
+        record = resume.read(self.store.path.parent)
+        if record is None:
             return False
 
         def now_or_when_identified() -> None:
@@ -329,26 +271,12 @@ class Rig:
         self.info = info
         if not changed and self._acq is not None:
             return
-        cfg = self.config
         try:
-            cfg.check_rate(info.rate_hz)
+            self._acq = stages.acquirer(self.config, info)
         except TaprigError as exc:
             self._emit("message", {"text": str(exc)})
             self._acq = None
             return
-        needed = max(c.index for c in cfg.channels) + 1
-        if info.channel_count < needed:
-            self._emit("message", {"text": f"the device has {info.channel_count} channels; "
-                                   f"the configuration uses {needed}"})  # fmt: skip
-            self._acq = None
-            return
-        cap = cfg.capture
-        trig = TriggerSettings(cap.trigger_level_n, cap.hysteresis_n, cap.trigger_slope,
-                               cap.pretrigger, cap.block)  # fmt: skip
-        self._acq = Acquirer(
-            cfg.channels, trig, info.rate_hz, [c.full_scale_v for c in info.channels],
-            ring_seconds=cap.ring_seconds, full_scale_margin=cap.full_scale_margin,
-        )  # fmt: skip
         log.info(
             "device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz
         )
@@ -380,15 +308,8 @@ class Rig:
         self._after(session.on_hit(record, verdict))
 
     def _after(self, outcome: HitOutcome) -> HitOutcome:
-        v = outcome.verdict
         self._remember(outcome)  # before the event: a display told of a hit can fetch it
-        self._emit("hit", {
-            "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
-            "waiting": outcome.waiting, "averages": outcome.averages,
-            "peak_force_n": v.peak_force_n, "pulse_width_s": v.pulse_width_s,
-            "rejections": [(f.code, f.message) for f in v.rejections],
-            "warnings": [(f.code, f.message) for f in v.warnings],
-        })  # fmt: skip
+        self._emit("hit", hit_fields(outcome, as_pairs=True))
         if outcome.completed is not None:
             self._commit(outcome.completed)
         return outcome
@@ -403,14 +324,7 @@ class Rig:
         labels = tuple(ch.label for ch in session.channels)
         view = last_hit_view(record.data, record.rate_hz, record.first_index, labels,
                              *(frf if frf is not None else (None, None, None)))  # fmt: skip
-        v = outcome.verdict
-        view.update({
-            "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
-            "waiting": outcome.waiting, "averages": outcome.averages,
-            "peak_force_n": v.peak_force_n, "pulse_width_s": v.pulse_width_s,
-            "rejections": [{"code": f.code, "message": f.message} for f in v.rejections],
-            "warnings": [{"code": f.code, "message": f.message} for f in v.warnings],
-        })  # fmt: skip
+        view.update(hit_fields(outcome, as_pairs=False))
         self.last_hit = view
 
     def _commit(self, ps: PointSet) -> None:
@@ -427,21 +341,6 @@ class Rig:
         self._emit("completed", {"point": stored.point, "version": stored.version,
                                  "seq": stored.seq, "averages": stored.n_averages})  # fmt: skip
 
-    def _check_settings(self) -> CheckSettings:
-        cap = self.config.capture
-        chans = sorted(self.config.channels, key=lambda c: c.index)
-        force = next(i for i, c in enumerate(chans) if c.role is Role.FORCE)
-        return CheckSettings(
-            force_channel=force,
-            response_channels=tuple(i for i, c in enumerate(chans) if c.role is Role.RESPONSE),
-            trigger_level_n=cap.trigger_level_n,
-            force_floor_n=cap.force_floor_n,
-            double_hit_fraction=cap.double_hit_fraction,
-            decay_warning_fraction=cap.decay_warning_fraction,
-            exponential_window=self.config.windows.exponential_end is not None,
-            sign=1.0 if cap.trigger_slope == "rising" else -1.0,
-        )
-
     # --- command bodies (processing thread) ----------------------------------
 
     def _select(self, name: str) -> None:
@@ -449,15 +348,7 @@ class Rig:
         if self.info is None:
             raise SessionError("the device has not identified itself yet; check the link")
         done = [s.point for s in self.store.list_point_sets(test=name, latest_only=True)]
-        cfg = self.config
-        w = cfg.windows
-        self.session = Session(
-            Plan(plan.name, tuple(plan.grid), RovingMode(plan.roving_mode), plan.reference,
-                 plan.averages, dict(plan.meta.get("sensor_points", {}))),
-            cfg.channels, self.info.rate_hz, cfg.capture.block,
-            WindowSettings(w.force_margin_s, w.force_taper_s, w.exponential_end),
-            auto_accept=cfg.capture.accept == "auto", meta=self._meta(), done=done,
-        )  # fmt: skip
+        self.session = stages.session(self.config, plan, self.info, done)
         warning = single_average_warning(plan.averages)
         if warning:
             log.warning("test %s: %s", name, warning)
@@ -466,38 +357,11 @@ class Rig:
         self._keep_session()
 
     def _keep_session(self) -> None:
-        """Write SESSION_FILE: the test selected and whether capture is wanted (armed, or
-        paused for disk room). Atomic; a failure (a full disk) is logged, not raised."""
+        """Keep the selected test and whether capture is wanted (armed, or paused for disk
+        room) for a restarted daemon (daemon/resume.py)."""
         s = self.session
-        record = {"test": s.plan.name if s else None, "armed": self.armed or self.waiting_for_room}
-        path = self.store.path.parent / SESSION_FILE
-        tmp = path.with_name(SESSION_FILE + ".tmp")
-        try:
-            with tmp.open("w", encoding="utf-8") as f:
-                f.write(json.dumps(record) + "\n")
-                f.flush()
-                os.fsync(f.fileno())  # survives a power cut: the rename never names an empty file
-            os.replace(tmp, path)
-        except OSError as exc:
-            log.warning("cannot keep the session in %s: %s", path, exc)
-
-    def _meta(self) -> dict[str, Any]:
-        info = self.info
-        assert info is not None
-        cap = self.config.capture
-        return {
-            "rig": self.config.rig.name,
-            "daemon_version": __version__,
-            "pretrigger": cap.pretrigger,
-            "trigger_level_n": cap.trigger_level_n,
-            "device": {
-                "id": info.device_id, "firmware": info.firmware,
-                "protocol_version": info.protocol_version,
-                "sample_format": info.sample_format.name.lower(), "rate_hz": info.rate_hz,
-                "full_scale_v": [c.full_scale_v for c in info.channels],
-                "adc_bits": [c.adc_bits for c in info.channels],
-            },
-        }  # fmt: skip
+        resume.keep(self.store.path.parent, s.plan.name if s else None,
+                    self.armed or self.waiting_for_room)  # fmt: skip
 
     def _arm(self) -> None:
         self._need_session()
@@ -586,10 +450,3 @@ class Rig:
                 observer(event)
             except Exception:
                 log.exception("an observer failed on %s", kind)
-
-    def _make_decoder(self) -> Decoder:
-        d = self.config.device
-        if d.format == "text":
-            return make_decoder("text", rate_hz=d.text_rate_hz or None,
-                                full_scale_v=d.text_full_scale_v)  # fmt: skip
-        return make_decoder("binary")

@@ -21,7 +21,8 @@ from .errors import DiskLowError, SessionError
 from .grid import import_grid_csv
 from .lifespan import RunningRig, lifespan
 from .records import GridPoint, RovingMode
-from .rig import Rig, RigEvent
+from .rig import Rig
+from .rigstate import RigEvent
 
 log = logging.getLogger("taprig.daemon")
 

@@ -10,7 +10,8 @@ import time
 from typing import Final
 
 from .notify import Notifier
-from .rig import Rig, RigView
+from .rig import Rig
+from .rigstate import RigView
 
 log = logging.getLogger(__name__)
 

@@ -1,15 +1,19 @@
 """A guard for tests: notes every asyncio callback that blocks its event loop too long.
 
 Every callback an asyncio loop runs (a task step, a call_soon, a timer) goes through
-`asyncio.Handle._run`; `install()` wraps it to time each one. What counts is the time the
-callback kept its loop from running *on its own account*: its wall time minus the time its
-thread sat runnable in the kernel's run queue, waiting for a CPU other processes held. So a
-callback that computes or waits on I/O, a lock or a sleep for 150 ms is caught, and one
-merely descheduled for 150 ms on a loaded 2-core machine is not.
+`asyncio.Handle._run`; `install()` wraps it to time each one. What counts is what the
+callback itself did, not what a loaded machine did to it:
 
-The run-queue wait comes from Linux's per-thread scheduler statistics,
-``/proc/thread-self/schedstat`` ("time spent on the cpu", "time spent waiting on a
-runqueue", both in ns; Documentation/scheduler/sched-stats.rst in the kernel sources).
+- computing: its thread's CPU time over LIMIT_S (not stretched by other processes);
+- blocking: wall time minus run-queue wait (descheduled, waiting for a CPU) over LIMIT_S,
+  spent in at most BLOCKING_SLICES scheduling slices, i.e. in one or two long waits (a sleep,
+  a join, a blocking read or lock). Waiting for the GIL while this process's other threads
+  run also keeps a thread off the CPU, but in many short waits (the interpreter hands the
+  GIL over every 5 ms), so a callback merely slowed by its neighbours is not counted.
+
+CPU time, run-queue wait and the number of slices come from Linux's per-thread scheduler
+statistics, ``/proc/thread-self/schedstat`` (Documentation/scheduler/sched-stats.rst in the
+kernel sources: time on the cpu and time waiting on a runqueue, in ns; timeslices run).
 """
 
 from __future__ import annotations
@@ -21,6 +25,7 @@ import time
 from typing import Any, Final
 
 LIMIT_S: Final = 0.100  # a callback that holds its loop longer than this fails the test
+BLOCKING_SLICES: Final = 4  # at most this many times scheduled: the time went in a few waits
 _SCHEDSTAT: Final = "/proc/thread-self/schedstat"
 
 slow: list[str] = []
@@ -37,9 +42,10 @@ class _StatFile:
     def __init__(self) -> None:
         self.fd = os.open(_SCHEDSTAT, os.O_RDONLY)
 
-    def wait_s(self) -> float:
-        """Seconds this thread has waited on a run queue since it started."""
-        return int(os.pread(self.fd, 128, 0).split()[1]) / 1e9
+    def read(self) -> tuple[float, float, int]:
+        """(s on a CPU, s waiting on a run queue, slices run) since this thread started."""
+        on_cpu, queued, slices = os.pread(self.fd, 128, 0).split()[:3]
+        return int(on_cpu) / 1e9, int(queued) / 1e9, int(slices)
 
     def __del__(self) -> None:
         os.close(self.fd)
@@ -54,17 +60,29 @@ def _stat() -> _StatFile:
 
 def _timed_run(self: asyncio.Handle) -> None:
     stat = _stat()
-    queued0, t0 = stat.wait_s(), time.perf_counter()
+    before, t0 = stat.read(), time.perf_counter()
     try:
         _original_run(self)
     finally:
         wall = time.perf_counter() - t0
         if wall > LIMIT_S:  # only then is the second read worth it
-            held = wall - (stat.wait_s() - queued0)
-            if held > LIMIT_S:
+            verdict = held(wall, before, stat.read())
+            if verdict:
                 with _lock:
-                    slow.append(f"{self!r} held its loop {held * 1e3:.0f} ms "
-                                f"(wall {wall * 1e3:.0f} ms)")  # fmt: skip
+                    slow.append(f"{self!r} {verdict}")
+
+
+def held(wall: float, before: tuple[float, float, int], after: tuple[float, float, int]) -> str:
+    """Why a callback of `wall` seconds held its loop, or "" if it did not (module docstring);
+    `before` and `after` are `_StatFile.read()` around it."""
+    cpu, queued, slices = (a - b for a, b in zip(after, before, strict=True))
+    waited = wall - queued - cpu
+    if cpu > LIMIT_S:
+        return f"computed {cpu * 1e3:.0f} ms (wall {wall * 1e3:.0f} ms)"
+    if cpu + waited > LIMIT_S and slices <= BLOCKING_SLICES:
+        return (f"held its loop {(cpu + waited) * 1e3:.0f} ms in {int(slices)} slices "
+                f"(wall {wall * 1e3:.0f} ms)")  # fmt: skip
+    return ""
 
 
 def install() -> None:

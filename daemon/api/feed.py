@@ -19,7 +19,7 @@ from .bodies import dumps
 from .routes import EVENT_STREAM
 
 if TYPE_CHECKING:
-    from ..rig import RigEvent
+    from ..rigstate import RigEvent
 
 log = logging.getLogger(__name__)
 

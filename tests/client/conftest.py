@@ -34,7 +34,7 @@ from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.rig import RigEvent
+from taprig.daemon.rigstate import RigEvent
 from taprig.firmware_protocol.virtual import (
     DEMO_DRIVING_POINT,
     ModalModel,

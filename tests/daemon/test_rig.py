@@ -16,7 +16,7 @@ from taprig.daemon.config import load_config
 from taprig.daemon.errors import SessionError
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, RovingMode
-from taprig.daemon.rig import RigEvent
+from taprig.daemon.rigstate import RigEvent
 from taprig.firmware_protocol.virtual import accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
 
@@ -86,16 +86,21 @@ def wait_streamed(r: RunningRig, index: int, timeout: float = 10.0) -> None:
 
 
 def tap_and_wait(r: RunningRig, ev: Events, point: str, **kw: object) -> RigEvent:
-    """One tap and the hit event it caused; then the operator's pause, PAUSE_S on the
-    device's own sample clock (not the wall clock, which a loaded machine stretches)."""
+    """The operator's pause, PAUSE_S on the device's own sample clock (not the wall clock,
+    which a loaded machine stretches); then one tap and the hit event it caused."""
+    operator_pause(r)
+    ev.clear()
+    assert r.instrument is not None
+    assert r.instrument.tap(point, **kw) is not None  # type: ignore[arg-type]
+    return ev.next("hit")
+
+
+def operator_pause(r: RunningRig) -> None:
+    """Until the daemon has decoded PAUSE_S more of the device's samples than it has now."""
     vi = r.instrument
     assert vi is not None
-    ev.clear()
-    tap = vi.tap(point, **kw)  # type: ignore[arg-type]
-    assert tap is not None
-    hit = ev.next("hit")
-    wait_streamed(r, tap.first_index + math.ceil(PAUSE_S * vi.rate_hz))
-    return hit
+    now = r.rig.snapshot()["link"]["frames_ok"] * vi.settings.frame_samples
+    wait_streamed(r, now + math.ceil(PAUSE_S * vi.rate_hz))
 
 
 def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:

@@ -14,7 +14,6 @@ import contextlib
 import hashlib
 import json
 import logging
-import math
 import re
 import time
 from collections.abc import AsyncIterator, Awaitable, Callable, Iterator
@@ -35,7 +34,7 @@ from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.schema import API_VERSION, wire
 
-from .test_rig import DAMPED, PAUSE_S, grid_of, wait_info, wait_streamed
+from .test_rig import DAMPED, grid_of, operator_pause, wait_info
 
 OPENAPI_FILE = Path(__file__).resolve().parents[2] / "daemon" / "openapi.json"
 LIMIT_S = 30.0  # the longest any one test may wait for anything
@@ -186,16 +185,12 @@ def labels_grid(running: RunningRig, labels: list[str]) -> list[Json]:
 
 
 async def tap(running: RunningRig, stream: EventStream, point: str) -> Any:
-    """One clean tap at `point` by the simulated operator; the hit event it caused; then the
-    operator's pause, PAUSE_S on the device's sample clock."""
-    vi = running.instrument
-    assert vi is not None
-    record = await asyncio.to_thread(vi.tap, point, 25.0)
-    assert record is not None
-    hit = await stream.next("hit")
-    rested = record.first_index + math.ceil(PAUSE_S * vi.rate_hz)
-    await asyncio.to_thread(wait_streamed, running, rested)
-    return hit
+    """The operator's pause (on the device's sample clock), then one clean tap at `point`;
+    the hit event it caused."""
+    assert running.instrument is not None
+    await asyncio.to_thread(operator_pause, running)
+    assert await asyncio.to_thread(running.instrument.tap, point, 25.0) is not None
+    return await stream.next("hit")
 
 
 async def until(condition: Callable[[], bool]) -> None:
