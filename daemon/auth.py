@@ -50,12 +50,12 @@ import stat
 import threading
 import time
 from collections import deque
-from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Final
 
 from .errors import TaprigError
+from .redact import RedactingFilter, redact
 
 log = logging.getLogger(__name__)
 
@@ -68,17 +68,12 @@ FAILURE_WINDOW_S: Final = 60.0
 LOCKOUT_S: Final = 60.0
 MAX_TRACKED_PEERS: Final = 4096
 """Peers whose failures are remembered; beyond it the oldest records are dropped."""
-REDACTED: Final = "<redacted>"
 
 # A token as this module writes it or as an operator may have put it: URL-safe base64.
 _TOKEN_RE: Final = re.compile(r"[A-Za-z0-9_-]{32,128}")
 # RFC 6750 §2.1: credentials = "Bearer" 1*SP b64token; the scheme is case-insensitive
 # (RFC 9110 §11.1). Plain spaces only: `\s` would also take Unicode spaces.
 _BEARER_RE: Final = re.compile(r"[Bb][Ee][Aa][Rr][Ee][Rr] +([A-Za-z0-9._~+/-]+=*)[ \t]*")
-# Things in a log line that look like credentials, whatever the current token is.
-_REDACT_BEARER: Final = re.compile(r"(?i)\b(bearer\s+)[A-Za-z0-9._~+/-]+=*")
-_REDACT_PARAM: Final = re.compile(r"(?i)\b(token\s*[=:]\s*)[A-Za-z0-9._~+/-]+=*")
-_REDACT_LIKE: Final = re.compile(r"(?<![A-Za-z0-9_-])[A-Za-z0-9_-]{43}(?![A-Za-z0-9_-])")
 
 
 class AuthError(TaprigError):
@@ -232,36 +227,6 @@ def _peer_key(peer: str) -> str:
 def _parse_bearer(authorization: str) -> str | None:
     m = _BEARER_RE.fullmatch(authorization.strip(" \t"))
     return m.group(1) if m else None
-
-
-def redact(text: str, known: Iterable[str] = ()) -> str:
-    """`text` with each of the `known` secrets and anything that looks like a token replaced.
-
-    Looks like a token: the value after ``Bearer`` or after ``token=`` / ``token:``, and any
-    run of exactly 43 URL-safe base64 characters (the length of this module's tokens).
-    A 64-digit SHA-256 hex digest is left alone.
-    """
-    for secret in known:
-        if secret:
-            text = text.replace(secret, REDACTED)
-    text = _REDACT_BEARER.sub(lambda m: m.group(1) + REDACTED, text)
-    text = _REDACT_PARAM.sub(lambda m: m.group(1) + REDACTED, text)
-    return _REDACT_LIKE.sub(REDACTED, text)
-
-
-class RedactingFilter(logging.Filter):
-    """A logging filter that passes every record with its message run through `redact`."""
-
-    def __init__(self, auth: Auth) -> None:
-        super().__init__()
-        self._auth = auth
-
-    def filter(self, record: logging.LogRecord) -> bool:
-        message = record.getMessage()
-        clean = self._auth.redact(message)
-        if clean != message:
-            record.msg, record.args = clean, None
-        return True
 
 
 class Auth:
@@ -431,7 +396,7 @@ class Auth:
 
     def log_filter(self) -> RedactingFilter:
         """A logging filter that redacts tokens; add it to the service's log handlers."""
-        return RedactingFilter(self)
+        return RedactingFilter(lambda: (self._token,))
 
 
 def replace_token_file(state_dir: Path) -> None:

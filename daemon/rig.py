@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import logging
 import queue
-import shutil
 import threading
 import time
 from collections.abc import Callable
@@ -45,6 +44,7 @@ from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
+from .room import Room
 from .store import Store
 
 log = logging.getLogger(__name__)
@@ -84,13 +84,12 @@ class Rig:
         """A display-sized view of the last hit (other threads: `view().last_hit`)."""
         self.beat = time.monotonic()
         """When the processing thread last went round its loop (monotonic s); for a watchdog."""
-        self.free_mb: float | None = None
-        """Free space for the store (MB, 10^6 bytes) at the last look, every DISK_CHECK_S."""
         self.waiting_for_room = False
         """Armed, or asked to arm, while the disk was too full: arms by itself when room returns."""
         self._next_disk_check = 0.0
-        self._disk_unreadable = False
+        self._room = Room(store.path.parent, config.store.min_free_mb)
         self._resume: dict[str, Any] | None = None
+        self._latencies: tuple[float, ...] = ()
         self._view_lock = threading.Lock()
         self._view = self._make_view()
 
@@ -216,8 +215,8 @@ class Rig:
         s, st = self.session, self.stats
         return RigView(
             self.link_state, self.info, self.armed, self.waiting_for_room,
-            s.plan if s else None, s.cursor if s else None, st.hits_seen,
-            st.hits_while_disarmed, st.commits, tuple(st.commit_latency_s), self.last_hit,
+            s.plan if s else None, s.cursor if s else None, self._decoder.stats.samples,
+            st.hits_seen, st.hits_while_disarmed, st.commits, self._latencies, self.last_hit,
         )  # fmt: skip
 
     def _publish(self) -> None:
@@ -338,6 +337,7 @@ class Rig:
             return
         self.stats.commits += 1
         self.stats.commit_latency_s.append(time.perf_counter() - self._item_time)
+        self._latencies = tuple(self.stats.commit_latency_s)  # copied per commit, not per item
         self._emit("completed", {"point": stored.point, "version": stored.version,
                                  "seq": stored.seq, "averages": stored.n_averages})  # fmt: skip
 
@@ -365,11 +365,13 @@ class Rig:
 
     def _arm(self) -> None:
         self._need_session()
-        if self._disk_low():
+        if self._room.low():
             # Refused, but the wish is kept: an unattended rig carries on once room returns.
             self.waiting_for_room = True
             self._keep_session()
-            raise DiskLowError(f"{self._room_text()} to arm; it arms by itself when there is room")
+            raise DiskLowError(
+                f"{self._room.shortage()} to arm; it arms by itself when there is room"
+            )
         self.armed = True
         self._keep_session()
         self._emit("cursor", self._snapshot())
@@ -379,34 +381,18 @@ class Rig:
         self._keep_session()
         self._emit("cursor", self._snapshot())
 
-    def _disk_low(self) -> bool:
-        """Look at the free space now (updates `free_mb`); True below store.min_free_mb."""
-        self.free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
-        return self.free_mb < self.config.store.min_free_mb
-
-    def _room_text(self) -> str:
-        return (f"only {self.free_mb or 0.0:.0f} MB free in {self.store.path.parent}; "
-                f"the rig needs {self.config.store.min_free_mb} MB")  # fmt: skip
-
     def _watch_disk(self) -> None:
         """Pause capture while the disk is too full and resume it when room returns.
 
         The service keeps serving what is stored meanwhile; only new hits are ignored.
         """
-        try:
-            low = self._disk_low()
-        except OSError as exc:  # the folder vanished or the disk failed: say so once, go on
-            level = logging.DEBUG if self._disk_unreadable else logging.WARNING
-            log.log(level, "cannot read the free space of %s: %s", self.store.path.parent, exc)
-            self._disk_unreadable = True
-            return
-        self._disk_unreadable = False
+        low = self._room.look()
         if low and self.armed:
             self.armed, self.waiting_for_room = False, True
-            text = f"{self._room_text()}: capture paused until there is room"
-        elif not low and self.waiting_for_room and self.session is not None:
+            text = f"{self._room.shortage()}: capture paused until there is room"
+        elif low is False and self.waiting_for_room and self.session is not None:
             self.armed, self.waiting_for_room = True, False
-            text = f"{self.free_mb:.0f} MB free in {self.store.path.parent}: capture resumed"
+            text = f"{self._room.plenty()}: capture resumed"
         else:
             return
         (log.warning if low else log.info)(text)
@@ -424,7 +410,7 @@ class Rig:
         self._emit("cursor", self._snapshot())
 
     def _snapshot(self) -> dict[str, Any]:
-        s = self.session
+        s, free = self.session, self._room.free_mb
         st = self._decoder.stats
         return {
             "device": self.url, "state": self.link_state.value, "armed": self.armed,
@@ -436,7 +422,7 @@ class Rig:
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
                      "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
-            "disk": {"free_mb": None if self.free_mb is None else round(self.free_mb, 1),
+            "disk": {"free_mb": None if free is None else round(free, 1),
                      "min_free_mb": self.config.store.min_free_mb,
                      "waiting_for_room": self.waiting_for_room},
         }  # fmt: skip

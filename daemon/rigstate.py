@@ -46,6 +46,7 @@ class RigView:
     """The rig as other threads may see it: published whole by the processing thread.
 
     plan: the selected test's plan (None: none selected); point: the cursor.
+    samples: sample frames decoded so far (the device's sample clock as the rig has read it).
     commit_latency_s: the most recent commit latencies (seconds), oldest first.
     last_hit: a display-sized view of the last hit (daemon/display.py), or None.
     """
@@ -56,6 +57,7 @@ class RigView:
     waiting_for_room: bool
     plan: Plan | None
     point: str | None
+    samples: int
     hits_seen: int
     hits_while_disarmed: int
     commits: int

@@ -77,10 +77,8 @@ def wait_info(r: RunningRig) -> None:
 
 def wait_streamed(r: RunningRig, index: int, timeout: float = 10.0) -> None:
     """Until the daemon has decoded the device's samples up to `index` (its sample clock)."""
-    assert r.instrument is not None
-    per_frame = r.instrument.settings.frame_samples
     deadline = time.monotonic() + timeout
-    while r.rig.snapshot()["link"]["frames_ok"] * per_frame < index:
+    while r.rig.view().samples < index:
         assert time.monotonic() < deadline, f"the stream never reached sample {index}"
         time.sleep(0.01)
 
@@ -99,8 +97,7 @@ def operator_pause(r: RunningRig) -> None:
     """Until the daemon has decoded PAUSE_S more of the device's samples than it has now."""
     vi = r.instrument
     assert vi is not None
-    now = r.rig.snapshot()["link"]["frames_ok"] * vi.settings.frame_samples
-    wait_streamed(r, now + math.ceil(PAUSE_S * vi.rate_hz))
+    wait_streamed(r, r.rig.view().samples + math.ceil(PAUSE_S * vi.rate_hz))
 
 
 def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
