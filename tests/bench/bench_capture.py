@@ -91,8 +91,9 @@ while time.monotonic() - t0 < float(sys.argv[2]):
     port.read(65536)
 print((sum(os.times()[:2]) - c0) / (time.monotonic() - t0))
 """
-IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.runner, "
-           "taprig.daemon.serve, taprig.firmware_protocol.virtual.instrument")  # fmt: skip
+IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.lifespan, "
+           "taprig.daemon.run, taprig.daemon.api.service, "
+           "taprig.firmware_protocol.virtual.instrument")  # fmt: skip
 
 
 def bare_reader_cpu(url: str, seconds: float) -> float:
