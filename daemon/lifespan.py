@@ -15,7 +15,7 @@ import concurrent.futures
 import contextlib
 import logging
 from collections.abc import AsyncIterator, Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from . import identity
@@ -25,34 +25,19 @@ from .errors import ConfigError
 from .notify import Notifier
 from .rig import Rig
 from .rigstate import RigEvent
+from .running import RunningRig
 from .store import Store
 from .supervise import report, status_line
 from .wirebody import encode_body
 
 if TYPE_CHECKING:  # the simulator is imported only when a virtual device is configured
     from taprig.firmware_protocol.virtual import ModalModel
-    from taprig.firmware_protocol.virtual.control import ControlServer
     from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, VirtualInstrument
 
     from .advertise import Advertiser
     from .api.service import Service
 
 log = logging.getLogger(__name__)
-
-
-@dataclass
-class RunningRig:
-    """The capture parts of a running daemon; `close()` stops them in reverse (idempotent)."""
-
-    config: Config
-    store: Store
-    rig: Rig
-    instrument: VirtualInstrument | None = None
-    control: ControlServer | None = None
-    _stack: contextlib.ExitStack = field(default_factory=contextlib.ExitStack, repr=False)
-
-    def close(self) -> None:
-        self._stack.close()  # an ExitStack runs its callbacks once
 
 
 def start_rig(

@@ -19,10 +19,11 @@ from pathlib import Path
 from .config import Config
 from .errors import DiskLowError, SessionError
 from .grid import import_grid_csv
-from .lifespan import RunningRig, lifespan
+from .lifespan import lifespan
 from .records import GridPoint, RovingMode
 from .rig import Rig
 from .rigstate import RigEvent
+from .running import RunningRig
 
 log = logging.getLogger("taprig.daemon")
 

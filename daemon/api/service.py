@@ -46,7 +46,7 @@ from .routes import HEARTBEAT_S, JSON, PREFIX, ROUTES, Call, Payload, Route
 
 if TYPE_CHECKING:
     from ..auth import Auth
-    from ..lifespan import RunningRig
+    from ..running import RunningRig
 
 log = logging.getLogger(__name__)
 
