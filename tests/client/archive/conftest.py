@@ -23,8 +23,8 @@ from taprig.client.archive.follow import Archiver
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import Service
+from taprig.daemon.lifespan import RunningRig, start_rig
+from taprig.daemon.api.service import Service
 from taprig.firmware_protocol.virtual import ModalModel, accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
 from taprig.schema import wire
