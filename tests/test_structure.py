@@ -36,9 +36,9 @@ LONG_MODULES = {
     "firmware_protocol/virtual/synth.py": "the synthesiser; not split yet",
 }
 # Runtime dependencies no installed module imports yet, each with its reason.
-NOT_YET_IMPORTED = {
-    "scipy": "client/modal/ (another branch, merged with this one) imports it",
-}
+NOT_YET_IMPORTED = {}
+# Extras whose own package may import them at module level: nothing outside it imports it.
+EXTRA_HOMES = {"psycopg": "taprig.client.archive"}
 # What each import name is installed as (import name → distribution).
 DISTRIBUTIONS = {"serial": "pyserial"}
 
@@ -170,7 +170,7 @@ def test_no_import_loop() -> None:
     graph: dict[str, set[str]] = {m: set() for m in modules()}
     for imp in all_imports():
         target = _internal(imp.target)
-        if target is not None and not imp.typing_only and target != imp.module:
+        if target is not None and not (imp.typing_only or imp.lazy) and target != imp.module:
             graph[imp.module].add(target)
     loops = _cycles(graph)
     assert not loops, "import loops:\n" + "\n".join(" -> ".join(c) for c in loops)
@@ -285,6 +285,9 @@ def test_every_third_party_import_is_declared() -> None:
             continue
         if dist in runtime or (imp.lazy and dist in extras):
             continue
+        home = EXTRA_HOMES.get(dist)
+        if dist in extras and home is not None and imp.module.startswith(home + "."):
+            continue
         where = "an extra, imported at module level" if dist in extras else "not declared"
         bad.append(f"{imp.module}:{imp.line} imports {imp.target}: {where}")
     assert not bad, "\n".join(bad)
@@ -319,10 +322,23 @@ def long_functions() -> list[str]:
             if isinstance(node, ast.FunctionDef | ast.AsyncFunctionDef):
                 assert node.end_lineno is not None
                 first = node.decorator_list[0].lineno if node.decorator_list else node.lineno
-                n = node.end_lineno - first + 1
+                n = node.end_lineno - first + 1 - _docstring_lines(node)
                 if n > FUNCTION_LINES:
                     out.append(f"{path.relative_to(ROOT)}:{node.lineno} {node.name}: {n} lines")
     return out
+
+
+def _docstring_lines(node: ast.FunctionDef | ast.AsyncFunctionDef) -> int:
+    """The docstring's lines: equations and references are welcome, they are not code."""
+    first = node.body[0]
+    if (
+        isinstance(first, ast.Expr)
+        and isinstance(first.value, ast.Constant)
+        and isinstance(first.value.value, str)
+    ):
+        assert first.end_lineno is not None
+        return first.end_lineno - first.lineno + 1
+    return 0
 
 
 def test_no_module_over_the_limit() -> None:
