@@ -23,7 +23,7 @@ import time
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Final
+from typing import TYPE_CHECKING, Any, Final
 
 from taprig.firmware_protocol.virtual.control import ControlClient
 
@@ -32,6 +32,9 @@ from .errors import ClientError
 from .mirror import Mirror
 from .pull import PullReport, pull
 from .remote import RigClient, RigError
+
+if TYPE_CHECKING:
+    from .check import CheckResult
 
 TEST_NAME: Final = "demo-panel"
 AVERAGES: Final = 2
@@ -204,6 +207,16 @@ def _fit(data: TestData, result: DemoResult, say: Say) -> None:
     say(f"   {result.modes.name}: {model.n_modes} modes")
 
 
+def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -> None:
+    try:
+        from .plots import write_plots
+
+        result.plots = write_plots(data, checked, result.folder / "plots")
+        say(f"   {len(result.plots)} plots in {result.folder / 'plots'}")
+    except ClientError as exc:  # matplotlib missing: the rest of the demo stands
+        say(f"   no plots: {exc}")
+
+
 def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
     """The whole demo; files in `out` (created). Raises ClientError when a stage fails."""
     started = time.perf_counter()
@@ -254,13 +267,7 @@ def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
         _fit(data, result, say)
         _lap(stages, "modal fit", started)
         if plots:
-            try:
-                from .plots import write_plots
-
-                result.plots = write_plots(data, checked, out / "plots")
-                say(f"   {len(result.plots)} plots in {out / 'plots'}")
-            except ClientError as exc:  # matplotlib missing: the rest of the demo stands
-                say(f"   no plots: {exc}")
+            _plots(data, checked, result, say)
             _lap(stages, "plots", started)
         result.seconds = time.perf_counter() - started
         return result

@@ -19,25 +19,20 @@ import contextlib
 import ipaddress
 import logging
 import re
-import secrets
 import threading
 from collections.abc import Coroutine, Mapping, Sequence
-from pathlib import Path
 from typing import Any, Final, Literal, TypeVar
 
 import ifaddr
 from zeroconf import InterfaceChoice, ServiceInfo
 from zeroconf.asyncio import AsyncZeroconf
 
-from taprig.schema import API_VERSION, SERVICE_TYPE, TXT_API, TXT_ID, TXT_RUN, TXT_TEST
+from taprig.schema import SERVICE_TYPE
+
+from .txt import rig_txt
 
 log = logging.getLogger(__name__)
 
-TXT_KEY_MAX_CHARS: Final = 9  # RFC 6763 §6.4
-TXT_MAX_BYTES: Final = 200  # RFC 6763 §6.2: the whole record, length octets included
-TXT_STRING_MAX_BYTES: Final = 255  # RFC 1035 §3.3: a <character-string> has a 1-octet length
-# Our choice: leaves the record well under TXT_MAX_BYTES with the longest id.
-TEST_NAME_MAX_BYTES: Final = 64
 # RFC 6763 §4.1.1 allows 63 bytes; 4 are kept for the "-NNN" python-zeroconf appends on a clash.
 NAME_MAX_BYTES: Final = 59
 RIG_ID_RE: Final = re.compile(r"[0-9a-z-]{1,36}")  # also the host label taprig-<id>.local.
@@ -49,82 +44,6 @@ Interfaces = Sequence[str] | InterfaceChoice
 """Where to serve mDNS: `InterfaceChoice.All` (IPv4) or a list of interface addresses."""
 
 _T = TypeVar("_T")
-
-
-def new_rig_id() -> str:
-    """A fresh random rig id (48 bits, 12 hex digits) for a rig's configuration to keep."""
-    return secrets.token_hex(6)
-
-
-RIG_ID_FILE: Final = "rig-id"
-
-
-def rig_id(state_dir: Path) -> str:
-    """This rig's stable id, made on first start and kept in the state folder."""
-    path = state_dir / RIG_ID_FILE
-    try:
-        text = path.read_text(encoding="ascii").strip()
-    except FileNotFoundError:
-        text = ""
-    if not text:
-        text = new_rig_id()
-        path.write_text(text + "\n", encoding="ascii")
-    return text
-
-
-def encode_txt(entries: Mapping[str, str]) -> bytes:
-    """DNS-SD TXT record data for ``key=value`` entries, in order.
-
-    Raises ValueError naming the key when a key is empty, longer than 9 characters
-    (RFC 6763 §6.4), not printable ASCII or contains "=" (§6.4), repeats another key
-    ignoring case, or when an entry exceeds 255 bytes or the whole record 200 bytes
-    (RFC 6763 §6.2; the error then names the largest entry).
-    """
-    out = bytearray()
-    sizes: dict[str, int] = {}
-    seen: set[str] = set()
-    for key, value in entries.items():
-        if not 1 <= len(key) <= TXT_KEY_MAX_CHARS:
-            raise ValueError(
-                f"TXT key {key!r} has {len(key)} characters; 1 to {TXT_KEY_MAX_CHARS} allowed "
-                "(RFC 6763 §6.4)"
-            )
-        if "=" in key or not all(0x20 <= ord(c) <= 0x7E for c in key):
-            raise ValueError(f"TXT key {key!r}: printable ASCII without '=' only (RFC 6763 §6.4)")
-        if key.lower() in seen:
-            raise ValueError(f"TXT key {key!r} appears twice (keys ignore case, RFC 6763 §6.4)")
-        seen.add(key.lower())
-        item = f"{key}={value}".encode()
-        if len(item) > TXT_STRING_MAX_BYTES:
-            raise ValueError(
-                f"TXT entry {key!r} is {len(item)} bytes; at most {TXT_STRING_MAX_BYTES} allowed"
-            )
-        out.append(len(item))
-        out += item
-        sizes[key] = 1 + len(item)
-    if not out:
-        raise ValueError("TXT record has no entries")
-    if len(out) > TXT_MAX_BYTES:
-        largest = max(sizes, key=sizes.__getitem__)
-        raise ValueError(
-            f"TXT record is {len(out)} bytes; at most {TXT_MAX_BYTES} allowed (RFC 6763 §6.2); "
-            f"largest entry is {largest!r} ({sizes[largest]} bytes)"
-        )
-    return bytes(out)
-
-
-def cut_utf8(text: str, max_bytes: int) -> str:
-    """The longest prefix of text whose UTF-8 encoding fits in max_bytes."""
-    # Slicing the bytes may split a character; dropping the partial tail keeps valid UTF-8.
-    return text.encode()[:max_bytes].decode(errors="ignore")
-
-
-def rig_txt(rig_id: str, *, running: bool, test: str | None) -> bytes:
-    """The TXT record of a rig (layout in `taprig.schema`); test is cut to 64 bytes."""
-    entries = {TXT_API: str(API_VERSION), TXT_ID: rig_id, TXT_RUN: "1" if running else "0"}
-    if test:
-        entries[TXT_TEST] = cut_utf8(test, TEST_NAME_MAX_BYTES)
-    return encode_txt(entries)
 
 
 def _ip_text(ip: ifaddr.IP) -> str:
@@ -179,7 +98,7 @@ class Advertiser:
 
     name: the rig's name, 1..59 bytes of UTF-8 without control characters; renamed
     ``name-2``, ``name-3``, ... if the LAN already has it (see `name` after start).
-    rig_id: the rig's stable id, 1..36 of ``0-9 a-z -`` (`new_rig_id` makes one).
+    rig_id: the rig's stable id, 1..36 of ``0-9 a-z -`` (daemon/identity.py makes one).
     port: TCP port of the rig's HTTP service.
     interfaces: `InterfaceChoice.All` or a list of interface addresses to serve mDNS on.
     addresses: addresses to advertise; by default those of the served interfaces (for

@@ -1,9 +1,9 @@
-"""Token authentication of the rig's HTTP service and pairing of workstations with it.
+"""Token authentication of the rig's HTTP service.
 
 One secret per rig: `state_dir/token`, 43 characters of ``A-Z a-z 0-9 - _``
 (``secrets.token_urlsafe(32)``, 256 random bits). A workstation sends it on every request as
 ``Authorization: Bearer <token>`` (RFC 6750 §2.1). The operator hands it over by
-``taprigd pair``: a pairing URL, printed and drawn as a QR code for the terminal.
+``taprigd pair`` (daemon/pairing.py: a pairing URL, printed and drawn as a QR code).
 
 The token file
 --------------
@@ -50,15 +50,12 @@ import stat
 import threading
 import time
 from collections import deque
-from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Final
 
-import numpy as np
-import segno
-
 from .errors import TaprigError
+from .redact import RedactingFilter, redact
 
 log = logging.getLogger(__name__)
 
@@ -71,24 +68,12 @@ FAILURE_WINDOW_S: Final = 60.0
 LOCKOUT_S: Final = 60.0
 MAX_TRACKED_PEERS: Final = 4096
 """Peers whose failures are remembered; beyond it the oldest records are dropped."""
-QUIET_ZONE: Final = 4
-"""Light modules around a QR code (ISO/IEC 18004: a quiet zone 4 modules wide)."""
-REDACTED: Final = "<redacted>"
 
 # A token as this module writes it or as an operator may have put it: URL-safe base64.
 _TOKEN_RE: Final = re.compile(r"[A-Za-z0-9_-]{32,128}")
 # RFC 6750 §2.1: credentials = "Bearer" 1*SP b64token; the scheme is case-insensitive
 # (RFC 9110 §11.1). Plain spaces only: `\s` would also take Unicode spaces.
 _BEARER_RE: Final = re.compile(r"[Bb][Ee][Aa][Rr][Ee][Rr] +([A-Za-z0-9._~+/-]+=*)[ \t]*")
-# Things in a log line that look like credentials, whatever the current token is.
-_REDACT_BEARER: Final = re.compile(r"(?i)\b(bearer\s+)[A-Za-z0-9._~+/-]+=*")
-_REDACT_PARAM: Final = re.compile(r"(?i)\b(token\s*[=:]\s*)[A-Za-z0-9._~+/-]+=*")
-# RFC 1123 §2.1 host names: dot-separated labels of letters, digits and inner hyphens.
-_HOSTNAME_RE: Final = re.compile(
-    r"(?=.{1,253}$)[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?"
-    r"(?:\.[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?)*\.?"
-)
-_REDACT_LIKE: Final = re.compile(r"(?<![A-Za-z0-9_-])[A-Za-z0-9_-]{43}(?![A-Za-z0-9_-])")
 
 
 class AuthError(TaprigError):
@@ -244,71 +229,6 @@ def _parse_bearer(authorization: str) -> str | None:
     return m.group(1) if m else None
 
 
-def redact(text: str, known: Iterable[str] = ()) -> str:
-    """`text` with each of the `known` secrets and anything that looks like a token replaced.
-
-    Looks like a token: the value after ``Bearer`` or after ``token=`` / ``token:``, and any
-    run of exactly 43 URL-safe base64 characters (the length of this module's tokens).
-    A 64-digit SHA-256 hex digest is left alone.
-    """
-    for secret in known:
-        if secret:
-            text = text.replace(secret, REDACTED)
-    text = _REDACT_BEARER.sub(lambda m: m.group(1) + REDACTED, text)
-    text = _REDACT_PARAM.sub(lambda m: m.group(1) + REDACTED, text)
-    return _REDACT_LIKE.sub(REDACTED, text)
-
-
-class RedactingFilter(logging.Filter):
-    """A logging filter that passes every record with its message run through `redact`."""
-
-    def __init__(self, auth: Auth) -> None:
-        super().__init__()
-        self._auth = auth
-
-    def filter(self, record: logging.LogRecord) -> bool:
-        message = record.getMessage()
-        clean = self._auth.redact(message)
-        if clean != message:
-            record.msg, record.args = clean, None
-        return True
-
-
-def qr_text(url: str, *, invert: bool = False) -> str:
-    """`url` as a QR code (error correction level M) drawn with Unicode half blocks.
-
-    One text row holds two module rows: "▀" upper, "▄" lower, "█" both, " " neither, with a
-    quiet zone of `QUIET_ZONE` modules all round. By default the *light* modules are drawn,
-    for light text on a dark terminal (a console or ssh session on the board); invert=True
-    draws the dark modules, for dark text on a light background.
-    """
-    qr = segno.make_qr(url, error="m", boost_error=False)
-    dark = np.array(list(qr.matrix_iter(border=QUIET_ZONE)), dtype=bool)
-    ink = dark if invert else ~dark
-    if ink.shape[0] % 2:  # pad with one more light row so the rows pair up
-        ink = np.vstack([ink, np.full((1, ink.shape[1]), not invert)])
-    glyphs = np.array([" ", "▄", "▀", "█"])
-    codes = 2 * ink[0::2].astype(np.intp) + ink[1::2]
-    return "\n".join("".join(row) for row in glyphs[codes])
-
-
-def _url_host(host: str) -> str:
-    """`host` as the host part of a URL: a DNS name, an IPv4 address or a bracketed IPv6."""
-    bare = host[1:-1] if host.startswith("[") and host.endswith("]") else host
-    try:
-        addr = ipaddress.ip_address(bare)
-    except ValueError:
-        if bare is not host or not _HOSTNAME_RE.fullmatch(host):
-            raise ValueError(f"{host!r} is not a host name or an IP address") from None
-        return host
-    if addr.is_unspecified:
-        raise ValueError(
-            f"{host} means 'every address' to a server; give one a workstation can reach"
-        )
-    # RFC 6874: the "%" before an IPv6 zone is written "%25" in a URL.
-    return f"[{str(addr).replace('%', '%25')}]" if addr.version == 6 else str(addr)
-
-
 class Auth:
     """The rig's access token and the checks of presented credentials. Thread-safe.
 
@@ -316,8 +236,6 @@ class Auth:
     file is unsafe (see the module text). max_failures, window_s, lockout_s: the failure
     limit per peer (seconds on the monotonic clock).
     """
-
-    qr_text = staticmethod(qr_text)  # also reachable as Auth.qr_text / auth.qr_text
 
     def __init__(
         self,
@@ -470,19 +388,7 @@ class Auth:
         while len(self._peers) > self.max_peers:  # still full: forget the longest quiet
             del self._peers[next(iter(self._peers))]
 
-    # -- pairing and logs
-
-    def pairing_url(self, host: str, port: int) -> str:
-        """``http://{host}:{port}/pair#token=<token>``, for a workstation to pair with.
-
-        The token is in the fragment (after ``#``): an HTTP client keeps the fragment to
-        itself and never sends it in a request (RFC 3986 §3.5, RFC 9110 §7.1), so even a
-        browser opening the URL leaves no token in this rig's or a proxy's access logs.
-        An IPv6 address is put in brackets (RFC 3986 §3.2.2).
-        """
-        if isinstance(port, bool) or not isinstance(port, int) or not 1 <= port <= 65535:
-            raise ValueError(f"port must be 1..65535, got {port!r}")
-        return f"http://{_url_host(host)}:{port}/pair#token={self.token}"
+    # -- logs
 
     def redact(self, text: str) -> str:
         """`text` with the current token and anything token-like replaced (see `redact`)."""
@@ -490,37 +396,11 @@ class Auth:
 
     def log_filter(self) -> RedactingFilter:
         """A logging filter that redacts tokens; add it to the service's log handlers."""
-        return RedactingFilter(self)
+        return RedactingFilter(lambda: (self._token,))
 
 
-def pair_command_output(state_dir: Path, host: str, port: int, rotate: bool) -> str:
-    """What ``taprigd pair`` prints: the pairing URL as a QR code and as text.
-
-    rotate: first replace the token (without reading the old file, so this also mends an
-    unsafe one); workstations paired before must pair again. AuthError / ValueError as
-    `Auth` and `Auth.pairing_url` raise them.
-    """
-    path = Path(state_dir) / TOKEN_FILE
-    if rotate:
-        Path(state_dir).mkdir(mode=0o700, parents=True, exist_ok=True)
-        _replace_token_file(path, secrets.token_urlsafe(TOKEN_BYTES))
-    url = Auth(Path(state_dir)).pairing_url(host, port)
-    lines = []
-    if rotate:
-        lines += [
-            "Made a new access token. Workstations paired before must pair again;",
-            "a running taprigd refuses the old token from its next request on.",
-            "",
-        ]
-    lines += [
-        "Pair a workstation with this rig: scan the code, or give it this address:",
-        "",
-        qr_text(url),
-        "",
-        f"  {url}",
-        "",
-        "The address holds the rig's access token: whoever has it can read everything",
-        "this rig stores. Keep it private; `taprigd pair --rotate` makes a new token and",
-        "shuts out every workstation paired before.",
-    ]
-    return "\n".join(lines) + "\n"
+def replace_token_file(state_dir: Path) -> None:
+    """Put a new token in `state_dir` without reading the old file (so this also mends an
+    unsafe one); workstations paired before must pair again."""
+    Path(state_dir).mkdir(mode=0o700, parents=True, exist_ok=True)
+    _replace_token_file(Path(state_dir) / TOKEN_FILE, secrets.token_urlsafe(TOKEN_BYTES))

@@ -6,20 +6,17 @@ a part of the daemon; the parts never print.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import logging
 import signal
 import threading
-from dataclasses import dataclass
+from collections.abc import Iterator
 from enum import StrEnum
 from pathlib import Path
-from typing import TYPE_CHECKING, Annotated
+from typing import Annotated
 
 import typer
-
-if TYPE_CHECKING:
-    from .rig import Rig
-    from .runner import RunningRig
 
 app = typer.Typer(
     help="taprig capture daemon: reads a hammer-and-accelerometer device over a serial link.",
@@ -45,6 +42,24 @@ class InputFormat(StrEnum):
 class Transport(StrEnum):
     pty = "pty"
     tcp = "tcp"
+
+
+@contextlib.contextmanager
+def _guard() -> Iterator[None]:
+    """The one place daemon errors become exit codes: a line on stderr and the error's code
+    (daemon/errors.py); a bad value found past typer exits 2; Ctrl-C ends quietly."""
+    from .errors import TaprigError
+
+    try:
+        yield
+    except TaprigError as exc:
+        typer.echo(f"taprigd: {exc}", err=True)
+        raise typer.Exit(code=exc.exit_code) from None
+    except ValueError as exc:  # e.g. a pairing host that is no host
+        typer.echo(f"taprigd: {exc}", err=True)
+        raise typer.Exit(code=2) from None
+    except KeyboardInterrupt:
+        pass
 
 
 def _setup_logging(verbose: bool) -> None:
@@ -230,139 +245,19 @@ def run(
     verbose: VerboseOption = False,
 ) -> None:
     """Capture: open the device, select a test, arm, and store every completed point set."""
-    from .errors import TaprigError
-
-    _setup_logging(verbose)
-    options = RunOptions(test, grid, roving, reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events, virtual_control)  # fmt: skip
-    try:
-        _run(config, set_ or [], options)
-    except TaprigError as exc:
-        typer.echo(f"taprigd: {exc}", err=True)
-        raise typer.Exit(code=exc.exit_code) from None
-
-
-@dataclass(frozen=True)
-class RunOptions:
-    test: str | None
-    grid: Path | None
-    roving: Roving
-    reference: str | None
-    duration: float
-    virtual_taps: float
-    virtual_double_hits: float
-    truth: Path | None
-    json_events: bool = False
-    virtual_control: int | None = None
-
-
-def _run(config_path: Path | None, overrides: list[str], opt: RunOptions) -> None:
     import asyncio
 
     from .config import load_config
-    from .rig import RigEvent
-    from .runner import start_rig
-    from .serve import serve
-
-    cfg = load_config(config_path, overrides)
-    running = start_rig(cfg)
-    log = logging.getLogger("taprig.daemon")
-
-    def show(event: RigEvent) -> None:
-        if opt.json_events:
-            print(json.dumps({"kind": event.kind, **event.data}, default=str), flush=True)
-        else:
-            log.info("%s %s", event.kind, event.data)
-
-    async def tick() -> None:
-        vi = running.instrument
-        if vi is not None and opt.virtual_taps > 0 and running.rig.session is not None:
-            await asyncio.to_thread(_simulated_tap, running)
-
-    control = None
-    try:
-        running.rig.subscribe(show)
-        vi = running.instrument
-        if opt.virtual_control is not None and vi is None:
-            from .errors import ConfigError
-
-            raise ConfigError("--virtual-control needs a virtual device (device.url=virtual...)")
-        if vi is not None and opt.virtual_control is not None:
-            from taprig.firmware_protocol.virtual.control import ControlServer
-
-            control = ControlServer(vi, port=opt.virtual_control).start()
-        if vi is not None:
-            vi.faults.double_hit_probability = opt.virtual_double_hits
-            if opt.truth is not None:
-                from taprig.firmware_protocol.virtual import write_truth
-
-                write_truth(vi.model, opt.truth)
-        if opt.test is not None:
-            _open_test(running, opt, threading.Event())
-        elif running.rig.resume_later():
-            log.info("carrying on with the previous run's test once the device identifies itself")
-        period = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
-        asyncio.run(serve(running, duration_s=opt.duration, tick=tick, tick_s=period,
-                          control_port=control.port if control else None))  # fmt: skip
-    except KeyboardInterrupt:
-        pass
-    finally:
-        if control is not None:
-            control.close()
-        running.close()
-
-
-def _open_test(running: RunningRig, opt: RunOptions, stop: threading.Event) -> None:
-    from .errors import DiskLowError
-    from .records import GridPoint, RovingMode
-    from .store import import_grid_csv
-
-    rig, vi, name = running.rig, running.instrument, opt.test
-    assert name is not None
-    known = {t.name for t in running.store.list_tests()}
-    if opt.grid is not None:
-        points = import_grid_csv(opt.grid.read_text(encoding="utf-8"))
-    elif vi is not None and name not in known:
-        m = vi.model
-        xyz = [tuple(float(v) for v in m.coords[m.index(p)]) for p in m.grid]
-        points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
-    else:
-        points = []
-    if points:
-        sensor_points = dict(vi.model.sensors) if vi is not None else None
-        rig.create_test(name, points, RovingMode(opt.roving.value), opt.reference,
-                        sensor_points=sensor_points)  # fmt: skip
-    _wait_for_device(rig, stop)
-    rig.select_test(name)
-    try:
-        rig.arm()
-    except DiskLowError as exc:  # serve what is stored; the rig arms itself when room returns
-        logging.getLogger("taprig.daemon").warning("%s", exc)
-
-
-def _simulated_tap(running: RunningRig) -> None:
-    """The virtual operator: in roving-sensor mode move the sensor, then tap."""
     from .records import RovingMode
+    from .run import RunOptions
+    from .run import run as run_daemon
 
-    vi, session = running.instrument, running.rig.session
-    assert vi is not None and session is not None
-    point = running.rig.snapshot()["point"]
-    if session.plan.roving_mode is RovingMode.SENSOR:
-        vi.move_sensor(next(iter(vi.model.sensors)), point)
-        point = session.plan.reference
-    vi.tap(point)
-
-
-def _wait_for_device(rig: Rig, stop: threading.Event, timeout: float = 30.0) -> None:
-    from .errors import SessionError
-
-    deadline = timeout
-    while rig.info is None:
-        if stop.wait(0.05):
-            return
-        deadline -= 0.05
-        if deadline <= 0:
-            raise SessionError(f"the device at {rig.url} did not identify itself in {timeout:g} s")
+    _setup_logging(verbose)
+    options = RunOptions(test, grid, RovingMode(roving.value), reference, duration, virtual_taps,
+                         virtual_double_hits, truth, json_events, virtual_control)  # fmt: skip
+    with _guard():
+        cfg = load_config(config, set_ or [])
+        asyncio.run(run_daemon(cfg, options))
 
 
 @app.command()
@@ -378,9 +273,9 @@ def pair(
     ] = False,
 ) -> None:
     """Print the pairing address and a QR code for a phone camera."""
-    from .auth import pair_command_output
     from .config import load_config
     from .errors import TaprigError
+    from .pairing import pair_command_output
 
     try:
         cfg = load_config(config, set_ or [])
@@ -404,14 +299,10 @@ def status(
     Exit code 0 when taprigd runs and answers, 1 when it does not (2: configuration error).
     """
     from .config import load_config
-    from .errors import TaprigError
     from .status import gather, render
 
-    try:
+    with _guard():
         cfg = load_config(config, set_ or [])
-    except TaprigError as exc:
-        typer.echo(f"taprigd: {exc}", err=True)
-        raise typer.Exit(code=exc.exit_code) from None
     summary = gather(cfg)
     if as_json:
         typer.echo(json.dumps(summary, indent=2))

@@ -33,7 +33,9 @@ from taprig.firmware_protocol.virtual.instrument import (
     open_virtual,
 )
 
-from .link import LinkChange, SerialLink
+from .capture.link import LinkChange, SerialLink
+
+CONNECT_S = 5.0  # allowance for a device to open and start sending, seconds
 
 
 @dataclass
@@ -68,10 +70,12 @@ def probe(
     taps: int = 0,
     text_rate_hz: float | None = None,
     truth_path: Path | None = None,
+    connect_s: float = CONNECT_S,
 ) -> ProbeReport:
     """Open `device` (a pyserial URL, or "virtual"), stream for `seconds`, report.
 
     truth_path: for the virtual device, where to write its true modal model.
+    connect_s: how long to wait beyond `seconds` for the first samples.
     """
     vi: VirtualInstrument | None = None
     url = device
@@ -86,7 +90,7 @@ def probe(
     decoder: Decoder = make_decoder(fmt, **({"rate_hz": text_rate_hz} if fmt == "text" else {}))
     link = SerialLink(url).start()
     try:
-        return _stream(link, decoder, url, fmt, seconds, taps, vi)
+        return _stream(link, decoder, url, fmt, (seconds, connect_s), taps, vi)
     finally:
         link.close()
         if vi is not None:
@@ -98,17 +102,18 @@ def _stream(
     dec: Decoder,
     url: str,
     fmt: str,
-    seconds: float,
+    times: tuple[float, float],
     n_taps: int,
     vi: VirtualInstrument | None,
 ) -> ProbeReport:
+    seconds, connect_s = times
     enc = FrameEncoder()
     report = ProbeReport(url, None, dec.stats, seconds, 0)
     blocks: list[SampleBlock] = []
     tap_plan = [seconds * (k + 0.5) / max(n_taps, 1) for k in range(n_taps)] if vi else []
     records: list[TapRecord] = []
     started: float | None = None
-    deadline = time.monotonic() + seconds + 5.0  # connect allowance
+    deadline = time.monotonic() + seconds + connect_s
     while True:
         now = time.monotonic()
         if started is not None and now - started >= seconds:

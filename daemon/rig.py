@@ -2,29 +2,26 @@
 
     SerialLink (reader thread) ─► Decoder ─► Acquirer ─► check_hit ─► Session ─► Store
 
-The processing thread owns the decoder, the acquirer and the session; other
-threads (the CLI, the HTTP service) talk to it through `call`, which
-queues a command and waits for its result, so nothing is shared unlocked.
-Observers get every outcome as a plain event.
+The processing thread owns the decoder, the acquirer, the session and every field of
+the rig; other threads (the CLI, the HTTP service, the event loop) never read those
+fields. They act through `call`, which queues a command and waits for its result, and
+read `view()`: a frozen `RigView` the processing thread publishes whole, under a lock,
+after every command and every item it processes. Observers get every outcome as a plain
+event, on the processing thread.
 """
 
 from __future__ import annotations
 
-import json
 import logging
-import os
 import queue
-import shutil
 import threading
 import time
 from collections.abc import Callable
 from concurrent.futures import Future
-from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
 from taprig.firmware_protocol import (
     Command,
-    Decoder,
     DeviceInfo,
     DeviceInfoReceived,
     FrameEncoder,
@@ -34,46 +31,26 @@ from taprig.firmware_protocol import (
     ProtocolViolation,
     SampleBlock,
     StatusReceived,
-    make_decoder,
 )
 
-from . import __version__
-from .acquire import Acquirer, TriggerSettings
+from . import resume, stages
+from .capture.acquire import Acquirer
+from .capture.hits import check_hit
+from .capture.link import LinkChange, LinkState, SerialLink
+from .capture.session import HitOutcome, Session
+from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
-from .hits import CheckSettings, check_hit
-from .link import LinkChange, LinkState, SerialLink
-from .records import GridPoint, HitRecord, PointSet, Role, RovingMode
-from .session import HitOutcome, Plan, Session
-from .spectra import WindowSettings, single_average_warning
+from .records import GridPoint, HitRecord, PointSet, RovingMode
+from .rigstate import RigEvent, RigStats, RigView, hit_fields
+from .room import Room
 from .store import Store
 
 log = logging.getLogger(__name__)
 T = TypeVar("T")
 
 DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
-SESSION_FILE = "session.json"
-"""In the data folder: the selected test and whether the rig is armed, so that a restarted
-daemon (after a crash, a power cut, a watchdog kill) carries on where it was."""
-
-
-@dataclass(frozen=True, slots=True)
-class RigEvent:
-    """Something an operator display wants to know.
-
-    kind: "hit", "completed", "device", "cursor" or "message".
-    """
-
-    kind: str
-    data: dict[str, Any]
-
-
-@dataclass
-class RigStats:
-    hits_seen: int = 0
-    hits_while_disarmed: int = 0
-    commit_latency_s: list[float] = field(default_factory=list)
 
 
 class Rig:
@@ -88,8 +65,8 @@ class Rig:
         self.link_state = LinkState.CONNECTING
         self.armed = False
         self.session: Session | None = None
-        self._decoder = self._make_decoder()
-        self._checks = self._check_settings()  # the configuration never changes while running
+        self._decoder = stages.decoder(config)
+        self._checks = stages.check_settings(config)
         self._acq: Acquirer | None = None
         self._enc = FrameEncoder()
         self._link = SerialLink(self.url, baudrate=config.device.baudrate,
@@ -104,16 +81,17 @@ class Rig:
         self._item_time = 0.0
         self._last_record: HitRecord | None = None
         self.last_hit: dict[str, Any] | None = None
-        """A display-sized view of the last hit; replaced whole, so any thread may read it."""
+        """A display-sized view of the last hit (other threads: `view().last_hit`)."""
         self.beat = time.monotonic()
         """When the processing thread last went round its loop (monotonic s); for a watchdog."""
-        self.free_mb: float | None = None
-        """Free space for the store (MB, 10^6 bytes) at the last look, every DISK_CHECK_S."""
         self.waiting_for_room = False
         """Armed, or asked to arm, while the disk was too full: arms by itself when room returns."""
         self._next_disk_check = 0.0
-        self._disk_unreadable = False
+        self._room = Room(store.path.parent, config.store.min_free_mb)
         self._resume: dict[str, Any] | None = None
+        self._latencies: tuple[float, ...] = ()
+        self._view_lock = threading.Lock()
+        self._view = self._make_view()
 
     # --- lifecycle ------------------------------------------------------------
 
@@ -133,13 +111,10 @@ class Rig:
         self._link.close()
 
     def resume_later(self) -> bool:
-        """Carry on with the session a previous run left (SESSION_FILE) once the device has
-        identified itself: select its test and arm if it was armed. False if there is none."""
-        try:
-            record = json.loads((self.store.path.parent / SESSION_FILE).read_text("utf-8"))
-        except (FileNotFoundError, ValueError):
-            return False
-        if not isinstance(record, dict) or not isinstance(record.get("test"), str):
+        """Carry on with the session a previous run left (daemon/resume.py) once the device
+        has identified itself: select its test and arm if it was armed. False if there is none."""
+        record = resume.read(self.store.path.parent)
+        if record is None:
             return False
 
         def now_or_when_identified() -> None:
@@ -206,6 +181,11 @@ class Rig:
     def snapshot(self) -> dict[str, Any]:
         return self.call(self._snapshot)
 
+    def view(self) -> RigView:
+        """The rig's state as last published by the processing thread (any thread; no wait)."""
+        with self._view_lock:
+            return self._view
+
     # --- processing thread ----------------------------------------------------
 
     def _run(self) -> None:
@@ -215,6 +195,7 @@ class Rig:
                 self._next_disk_check = self.beat + DISK_CHECK_S
                 self._watch_disk()
             self._serve_commands()
+            self._publish()
             try:
                 item = self._link.items.get(timeout=0.02)
             except queue.Empty:
@@ -228,6 +209,20 @@ class Rig:
             except Exception:
                 # A bug in one stage must not stop the rig: log it and carry on with the stream.
                 log.exception("processing failed; continuing with the next data")
+            self._publish()
+
+    def _make_view(self) -> RigView:
+        s, st = self.session, self.stats
+        return RigView(
+            self.link_state, self.info, self.armed, self.waiting_for_room,
+            s.plan if s else None, s.cursor if s else None, self._decoder.stats.samples,
+            st.hits_seen, st.hits_while_disarmed, st.commits, self._latencies, self.last_hit,
+        )  # fmt: skip
+
+    def _publish(self) -> None:
+        view = self._make_view()
+        with self._view_lock:
+            self._view = view
 
     def _serve_commands(self) -> None:
         while True:
@@ -275,26 +270,12 @@ class Rig:
         self.info = info
         if not changed and self._acq is not None:
             return
-        cfg = self.config
         try:
-            cfg.check_rate(info.rate_hz)
+            self._acq = stages.acquirer(self.config, info)
         except TaprigError as exc:
             self._emit("message", {"text": str(exc)})
             self._acq = None
             return
-        needed = max(c.index for c in cfg.channels) + 1
-        if info.channel_count < needed:
-            self._emit("message", {"text": f"the device has {info.channel_count} channels; "
-                                   f"the configuration uses {needed}"})  # fmt: skip
-            self._acq = None
-            return
-        cap = cfg.capture
-        trig = TriggerSettings(cap.trigger_level_n, cap.hysteresis_n, cap.trigger_slope,
-                               cap.pretrigger, cap.block)  # fmt: skip
-        self._acq = Acquirer(
-            cfg.channels, trig, info.rate_hz, [c.full_scale_v for c in info.channels],
-            ring_seconds=cap.ring_seconds, full_scale_margin=cap.full_scale_margin,
-        )  # fmt: skip
         log.info(
             "device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz
         )
@@ -326,15 +307,8 @@ class Rig:
         self._after(session.on_hit(record, verdict))
 
     def _after(self, outcome: HitOutcome) -> HitOutcome:
-        v = outcome.verdict
         self._remember(outcome)  # before the event: a display told of a hit can fetch it
-        self._emit("hit", {
-            "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
-            "waiting": outcome.waiting, "averages": outcome.averages,
-            "peak_force_n": v.peak_force_n, "pulse_width_s": v.pulse_width_s,
-            "rejections": [(f.code, f.message) for f in v.rejections],
-            "warnings": [(f.code, f.message) for f in v.warnings],
-        })  # fmt: skip
+        self._emit("hit", hit_fields(outcome, as_pairs=True))
         if outcome.completed is not None:
             self._commit(outcome.completed)
         return outcome
@@ -349,14 +323,7 @@ class Rig:
         labels = tuple(ch.label for ch in session.channels)
         view = last_hit_view(record.data, record.rate_hz, record.first_index, labels,
                              *(frf if frf is not None else (None, None, None)))  # fmt: skip
-        v = outcome.verdict
-        view.update({
-            "point": outcome.point, "accepted": v.accepted, "counted": outcome.counted,
-            "waiting": outcome.waiting, "averages": outcome.averages,
-            "peak_force_n": v.peak_force_n, "pulse_width_s": v.pulse_width_s,
-            "rejections": [{"code": f.code, "message": f.message} for f in v.rejections],
-            "warnings": [{"code": f.code, "message": f.message} for f in v.warnings],
-        })  # fmt: skip
+        view.update(hit_fields(outcome, as_pairs=False))
         self.last_hit = view
 
     def _commit(self, ps: PointSet) -> None:
@@ -368,24 +335,11 @@ class Rig:
             if self.session is not None:
                 self.session.done.discard(ps.point)
             return
+        self.stats.commits += 1
         self.stats.commit_latency_s.append(time.perf_counter() - self._item_time)
+        self._latencies = tuple(self.stats.commit_latency_s)  # copied per commit, not per item
         self._emit("completed", {"point": stored.point, "version": stored.version,
                                  "seq": stored.seq, "averages": stored.n_averages})  # fmt: skip
-
-    def _check_settings(self) -> CheckSettings:
-        cap = self.config.capture
-        chans = sorted(self.config.channels, key=lambda c: c.index)
-        force = next(i for i, c in enumerate(chans) if c.role is Role.FORCE)
-        return CheckSettings(
-            force_channel=force,
-            response_channels=tuple(i for i, c in enumerate(chans) if c.role is Role.RESPONSE),
-            trigger_level_n=cap.trigger_level_n,
-            force_floor_n=cap.force_floor_n,
-            double_hit_fraction=cap.double_hit_fraction,
-            decay_warning_fraction=cap.decay_warning_fraction,
-            exponential_window=self.config.windows.exponential_end is not None,
-            sign=1.0 if cap.trigger_slope == "rising" else -1.0,
-        )
 
     # --- command bodies (processing thread) ----------------------------------
 
@@ -394,15 +348,7 @@ class Rig:
         if self.info is None:
             raise SessionError("the device has not identified itself yet; check the link")
         done = [s.point for s in self.store.list_point_sets(test=name, latest_only=True)]
-        cfg = self.config
-        w = cfg.windows
-        self.session = Session(
-            Plan(plan.name, tuple(plan.grid), RovingMode(plan.roving_mode), plan.reference,
-                 plan.averages, dict(plan.meta.get("sensor_points", {}))),
-            cfg.channels, self.info.rate_hz, cfg.capture.block,
-            WindowSettings(w.force_margin_s, w.force_taper_s, w.exponential_end),
-            auto_accept=cfg.capture.accept == "auto", meta=self._meta(), done=done,
-        )  # fmt: skip
+        self.session = stages.session(self.config, plan, self.info, done)
         warning = single_average_warning(plan.averages)
         if warning:
             log.warning("test %s: %s", name, warning)
@@ -411,46 +357,21 @@ class Rig:
         self._keep_session()
 
     def _keep_session(self) -> None:
-        """Write SESSION_FILE: the test selected and whether capture is wanted (armed, or
-        paused for disk room). Atomic; a failure (a full disk) is logged, not raised."""
+        """Keep the selected test and whether capture is wanted (armed, or paused for disk
+        room) for a restarted daemon (daemon/resume.py)."""
         s = self.session
-        record = {"test": s.plan.name if s else None, "armed": self.armed or self.waiting_for_room}
-        path = self.store.path.parent / SESSION_FILE
-        tmp = path.with_name(SESSION_FILE + ".tmp")
-        try:
-            with tmp.open("w", encoding="utf-8") as f:
-                f.write(json.dumps(record) + "\n")
-                f.flush()
-                os.fsync(f.fileno())  # survives a power cut: the rename never names an empty file
-            os.replace(tmp, path)
-        except OSError as exc:
-            log.warning("cannot keep the session in %s: %s", path, exc)
-
-    def _meta(self) -> dict[str, Any]:
-        info = self.info
-        assert info is not None
-        cap = self.config.capture
-        return {
-            "rig": self.config.rig.name,
-            "daemon_version": __version__,
-            "pretrigger": cap.pretrigger,
-            "trigger_level_n": cap.trigger_level_n,
-            "device": {
-                "id": info.device_id, "firmware": info.firmware,
-                "protocol_version": info.protocol_version,
-                "sample_format": info.sample_format.name.lower(), "rate_hz": info.rate_hz,
-                "full_scale_v": [c.full_scale_v for c in info.channels],
-                "adc_bits": [c.adc_bits for c in info.channels],
-            },
-        }  # fmt: skip
+        resume.keep(self.store.path.parent, s.plan.name if s else None,
+                    self.armed or self.waiting_for_room)  # fmt: skip
 
     def _arm(self) -> None:
         self._need_session()
-        if self._disk_low():
+        if self._room.low():
             # Refused, but the wish is kept: an unattended rig carries on once room returns.
             self.waiting_for_room = True
             self._keep_session()
-            raise DiskLowError(f"{self._room_text()} to arm; it arms by itself when there is room")
+            raise DiskLowError(
+                f"{self._room.shortage()} to arm; it arms by itself when there is room"
+            )
         self.armed = True
         self._keep_session()
         self._emit("cursor", self._snapshot())
@@ -460,34 +381,18 @@ class Rig:
         self._keep_session()
         self._emit("cursor", self._snapshot())
 
-    def _disk_low(self) -> bool:
-        """Look at the free space now (updates `free_mb`); True below store.min_free_mb."""
-        self.free_mb = shutil.disk_usage(self.store.path.parent).free / 1e6
-        return self.free_mb < self.config.store.min_free_mb
-
-    def _room_text(self) -> str:
-        return (f"only {self.free_mb or 0.0:.0f} MB free in {self.store.path.parent}; "
-                f"the rig needs {self.config.store.min_free_mb} MB")  # fmt: skip
-
     def _watch_disk(self) -> None:
         """Pause capture while the disk is too full and resume it when room returns.
 
         The service keeps serving what is stored meanwhile; only new hits are ignored.
         """
-        try:
-            low = self._disk_low()
-        except OSError as exc:  # the folder vanished or the disk failed: say so once, go on
-            level = logging.DEBUG if self._disk_unreadable else logging.WARNING
-            log.log(level, "cannot read the free space of %s: %s", self.store.path.parent, exc)
-            self._disk_unreadable = True
-            return
-        self._disk_unreadable = False
+        low = self._room.look()
         if low and self.armed:
             self.armed, self.waiting_for_room = False, True
-            text = f"{self._room_text()}: capture paused until there is room"
-        elif not low and self.waiting_for_room and self.session is not None:
+            text = f"{self._room.shortage()}: capture paused until there is room"
+        elif low is False and self.waiting_for_room and self.session is not None:
             self.armed, self.waiting_for_room = True, False
-            text = f"{self.free_mb:.0f} MB free in {self.store.path.parent}: capture resumed"
+            text = f"{self._room.plenty()}: capture resumed"
         else:
             return
         (log.warning if low else log.info)(text)
@@ -505,7 +410,7 @@ class Rig:
         self._emit("cursor", self._snapshot())
 
     def _snapshot(self) -> dict[str, Any]:
-        s = self.session
+        s, free = self.session, self._room.free_mb
         st = self._decoder.stats
         return {
             "device": self.url, "state": self.link_state.value, "armed": self.armed,
@@ -517,22 +422,17 @@ class Rig:
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
                      "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
-            "disk": {"free_mb": None if self.free_mb is None else round(self.free_mb, 1),
+            "disk": {"free_mb": None if free is None else round(free, 1),
                      "min_free_mb": self.config.store.min_free_mb,
                      "waiting_for_room": self.waiting_for_room},
         }  # fmt: skip
 
     def _emit(self, kind: str, data: dict[str, Any]) -> None:
+        # Published first: an observer told of a change finds it in `view()`.
+        self._publish()
         event = RigEvent(kind, data)
         for observer in self._observers:
             try:
                 observer(event)
             except Exception:
                 log.exception("an observer failed on %s", kind)
-
-    def _make_decoder(self) -> Decoder:
-        d = self.config.device
-        if d.format == "text":
-            return make_decoder("text", rate_hz=d.text_rate_hz or None,
-                                full_scale_v=d.text_full_scale_v)  # fmt: skip
-        return make_decoder("binary")

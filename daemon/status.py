@@ -19,7 +19,7 @@ from typing import Any
 from .auth import TOKEN_FILE
 from .config import Config
 from .errors import StoreError
-from .serve import RUN_FILE
+from .identity import read_run_file
 from .store import peek_stats
 
 ASK_TIMEOUT_S = 3.0
@@ -33,7 +33,7 @@ def gather(cfg: Config) -> dict[str, Any]:
     data_dir = cfg.store.data_dir
     out: dict[str, Any] = {"data_dir": str(data_dir), "running": False, "pid": None,
                            "service": None, "state": None, "problem": None}  # fmt: skip
-    run = _read_run_file(data_dir / RUN_FILE)
+    run = read_run_file(data_dir)
     if run is None:
         out["problem"] = "taprigd is not running (no run file)"
     elif not _alive(int(run["pid"])):
@@ -104,14 +104,6 @@ def _test_line(s: dict[str, Any]) -> str:
         armed = "paused, waiting for disk room"
     return (f"{s['test']}, point {s['point']} ({s['averages']}/{s['required']} averages), "
             f"{len(s['done'])} points done, {armed}")  # fmt: skip
-
-
-def _read_run_file(path: Path) -> dict[str, Any] | None:
-    try:
-        record = json.loads(path.read_text(encoding="utf-8"))
-    except (FileNotFoundError, ValueError):
-        return None
-    return record if isinstance(record, dict) and "pid" in record else None
 
 
 def _alive(pid: int) -> bool:

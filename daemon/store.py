@@ -19,14 +19,11 @@ followed by the raw little-endian C-order bytes. The schema version is `PRAGMA u
 from __future__ import annotations
 
 import contextlib
-import csv
 import dataclasses
 import datetime as dt
-import io
 import json
 import math
 import queue
-import re
 import sqlite3
 import struct
 import threading
@@ -38,7 +35,7 @@ from typing import Any, ClassVar, TypeVar
 
 import numpy as np
 
-from .errors import DiskFullError, StoreError
+from .errors import AlreadyExists, DiskFullError, NotFound, StoreError
 from .records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 
 T = TypeVar("T")
@@ -240,68 +237,6 @@ def _check_shapes(ps: PointSet) -> None:
             )
 
 
-# ---------------------------------------------------------------- grid CSV
-
-_DIRECTION = re.compile(r"[+-][xyz]")
-
-
-def import_grid_csv(text: str) -> list[GridPoint]:
-    """Grid points from CSV text with header `label,x,y,z[,direction]` (metres, "+z" default).
-
-    Blank lines are skipped. Raises StoreError naming the line and the field.
-    """
-    rows = [(n, r) for n, r in enumerate(csv.reader(io.StringIO(text)), 1) if any(r)]
-    if not rows:
-        raise StoreError("grid CSV is empty")
-    header = [h.strip().lower() for h in rows[0][1]]
-    if header not in (["label", "x", "y", "z"], ["label", "x", "y", "z", "direction"]):
-        raise StoreError(
-            f"grid CSV line {rows[0][0]}: header must be label,x,y,z[,direction], "
-            f"got {','.join(rows[0][1])}"
-        )
-    points: list[GridPoint] = []
-    seen: dict[str, int] = {}
-    for line, row in rows[1:]:
-        point = _grid_row(line, header, row)
-        if point.label in seen:
-            raise StoreError(
-                f"grid CSV line {line}: label {point.label!r} already on line {seen[point.label]}"
-            )
-        seen[point.label] = line
-        points.append(point)
-    if not points:
-        raise StoreError("grid CSV has a header but no points")
-    return points
-
-
-def _grid_row(line: int, header: list[str], row: list[str]) -> GridPoint:
-    if len(row) != len(header):
-        raise StoreError(f"grid CSV line {line}: {len(row)} fields, expected {len(header)}")
-    cells = dict(zip(header, (c.strip() for c in row), strict=True))
-    if not cells["label"]:
-        raise StoreError(f"grid CSV line {line}, field 'label': empty")
-    x, y, z = (_grid_number(line, axis, cells[axis]) for axis in ("x", "y", "z"))
-    direction = cells.get("direction") or "+z"
-    if not _DIRECTION.fullmatch(direction):
-        raise StoreError(
-            f"grid CSV line {line}, field 'direction': {direction!r} is not one "
-            "of +x -x +y -y +z -z"
-        )
-    return GridPoint(cells["label"], x, y, z, direction)
-
-
-def _grid_number(line: int, field: str, cell: str) -> float:
-    try:
-        value = float(cell)
-    except ValueError:
-        raise StoreError(
-            f"grid CSV line {line}, field {field!r}: {cell!r} is not a number"
-        ) from None
-    if not math.isfinite(value):
-        raise StoreError(f"grid CSV line {line}, field {field!r}: {cell!r} is not finite")
-    return value
-
-
 # ---------------------------------------------------------------- the store
 
 
@@ -323,7 +258,7 @@ def _fetch_point_set(conn: sqlite3.Connection, point_set_id: int, with_hits: boo
         (point_set_id,),
     ).fetchone()
     if row is None:
-        raise StoreError(f"no point set with id {point_set_id}")
+        raise NotFound(f"no point set with id {point_set_id}")
     hits = cur.execute(
         f"SELECT {_HIT_FIELDS}, {data} FROM hits WHERE point_set_id = ? ORDER BY ordinal",
         (point_set_id,),
@@ -537,7 +472,7 @@ class Store:
         meta_json: str,
     ) -> None:
         if conn.execute("SELECT 1 FROM tests WHERE name = ?", (name,)).fetchone():
-            raise StoreError(f"a test named {name!r} already exists")
+            raise AlreadyExists(f"a test named {name!r} already exists")
         cur = conn.execute(
             "INSERT INTO tests (name, created_utc, roving_mode, reference, averages, meta, seq)"
             " VALUES (?, ?, ?, ?, ?, ?, ?)",
@@ -633,7 +568,7 @@ class Store:
         with self._reading() as conn:
             row = conn.execute("SELECT * FROM tests WHERE name = ?", (name,)).fetchone()
             if row is None:
-                raise StoreError(f"no test named {name!r}")
+                raise NotFound(f"no test named {name!r}")
             return _test_plan(conn, row)
 
     def list_tests(self) -> list[TestPlan]:

@@ -1,4 +1,5 @@
-"""Shared test guards: no test may leave a thread running behind it."""
+"""Shared test guards: no test may leave a thread running behind it, and none may block an
+asyncio event loop for more than 100 ms in one callback (tests/loopguard.py)."""
 
 from __future__ import annotations
 
@@ -6,6 +7,10 @@ import threading
 from collections.abc import Iterator
 
 import pytest
+
+from tests import loopguard
+
+loopguard.install()
 
 
 @pytest.fixture(autouse=True)
@@ -19,3 +24,12 @@ def no_leaked_threads() -> Iterator[None]:
         t.join(timeout=deadline)
     still = [t.name for t in leaked if t.is_alive()]
     assert not still, f"threads left running: {still}"
+
+
+@pytest.fixture(autouse=True)
+def no_blocked_event_loop() -> Iterator[None]:
+    """Fail a test during which any asyncio callback held its loop over loopguard.LIMIT_S."""
+    loopguard.slow.clear()
+    yield
+    blocked = list(loopguard.slow)
+    assert not blocked, "event loop blocked:\n" + "\n".join(blocked)

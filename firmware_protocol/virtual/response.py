@@ -158,6 +158,18 @@ def modal_acceleration(
     tau = ts.reshape(-1) - float(t0)
     factors = _pair_factors(model, drive_point, points)  # (n_s, n_m)
 
+    q_dd = _unit_modal_acceleration(model, tau, width_s)  # (n_m, n_t), per unit F0
+    out = factors @ q_dd
+    out *= peak_n
+    return out.reshape((len(points), *ts.shape))
+
+
+def _unit_modal_acceleration(model: ModalModel, tau: FloatArray, width_s: float) -> FloatArray:
+    """Modal accelerations q_r''(tau) for a unit half-sine of `width_s` starting at tau = 0.
+
+    Shape (n_modes, tau.size); zero before the pulse, the closed form while it acts, each
+    mode's free decay after it (see the module docstring).
+    """
     w = model.omega
     zeta = model.damping_ratio
     w_d = w * np.sqrt(1.0 - zeta**2)
@@ -165,11 +177,9 @@ def modal_acceleration(
     big_w = math.pi / width_s
     # B = 2 A lambda^2 with A = 1/(2 i w_d); q'' = f + Re(B I) per unit force.
     coef = (lam * lam / (1j * w_d))[:, None]
-
     during = np.flatnonzero((tau >= 0.0) & (tau <= width_s))
     after = np.flatnonzero(tau > width_s)
-    out = np.zeros((len(points), tau.size), dtype=np.float64)
-
+    q_dd: FloatArray = np.zeros((lam.size, tau.size), dtype=np.float64)
     if during.size:
         td = tau[during]
         e_lam = np.exp(np.outer(lam, td))  # (n_m, n_d)
@@ -179,17 +189,12 @@ def modal_acceleration(
         integral = (0.5 / 1j) * (
             (e_pos - e_lam) / (1j * big_w - lam_c) + (e_neg - e_lam) / (1j * big_w + lam_c)
         )
-        force = np.sin(big_w * td)
-        q_dd = force + (coef * integral).real  # (n_m, n_d), per unit F0
-        out[:, during] = factors @ q_dd
+        q_dd[:, during] = np.sin(big_w * td) + (coef * integral).real
     if after.size:
         i_end = big_w * (1.0 + np.exp(lam * width_s)) / (lam * lam + big_w * big_w)
         decay = np.exp(np.outer(lam, tau[after] - width_s))  # (n_m, n_a)
-        q_dd = ((coef[:, 0] * i_end)[:, None] * decay).real
-        out[:, after] = factors @ q_dd
-
-    out *= peak_n
-    return out.reshape((len(points), *ts.shape))
+        q_dd[:, after] = ((coef[:, 0] * i_end)[:, None] * decay).real
+    return q_dd
 
 
 def accelerance(

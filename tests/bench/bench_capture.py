@@ -32,10 +32,10 @@ from pathlib import Path
 import numpy as np
 from table import Figure, Row, pick, show
 
+from taprig.daemon.capture.link import READ_TIMEOUT_S
 from taprig.daemon.config import load_config
-from taprig.daemon.link import READ_TIMEOUT_S
+from taprig.daemon.lifespan import start_rig
 from taprig.daemon.records import GridPoint
-from taprig.daemon.runner import start_rig
 from taprig.firmware_protocol.virtual import ModalModel, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
 
@@ -91,8 +91,9 @@ while time.monotonic() - t0 < float(sys.argv[2]):
     port.read(65536)
 print((sum(os.times()[:2]) - c0) / (time.monotonic() - t0))
 """
-IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.runner, "
-           "taprig.daemon.serve, taprig.firmware_protocol.virtual.instrument")  # fmt: skip
+IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.lifespan, "
+           "taprig.daemon.run, taprig.daemon.api.service, "
+           "taprig.firmware_protocol.virtual.instrument")  # fmt: skip
 
 
 def bare_reader_cpu(url: str, seconds: float) -> float:
@@ -179,7 +180,7 @@ def hit_latency(hits: int) -> list[Row]:
         r = start_rig(cfg, InstrumentSettings(), model=model)
         try:
             deadline = time.monotonic() + 10
-            while r.rig.info is None and time.monotonic() < deadline:
+            while r.rig.view().info is None and time.monotonic() < deadline:
                 time.sleep(0.01)
             grid = [GridPoint(p, *map(float, model.coords[model.index(p)])) for p in model.grid]
             r.rig.create_test("latency", grid)
@@ -187,14 +188,14 @@ def hit_latency(hits: int) -> list[Row]:
             r.rig.arm()
             assert r.instrument is not None
             for k in range(hits):
-                before = len(r.rig.stats.commit_latency_s)
+                before = r.rig.view().commits
                 r.instrument.tap(r.rig.snapshot()["point"])
                 deadline = time.monotonic() + 5
-                while len(r.rig.stats.commit_latency_s) == before:
+                while r.rig.view().commits == before:
                     assert time.monotonic() < deadline, f"hit {k} never committed"
                     time.sleep(0.005)
                 time.sleep(0.05)
-            lat = np.array(r.rig.stats.commit_latency_s) * 1e3
+            lat = np.array(r.rig.view().commit_latency_s) * 1e3
         finally:
             r.close()
     arr = np.random.default_rng(0).normal(size=(4, 16384))

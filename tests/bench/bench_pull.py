@@ -28,10 +28,10 @@ from table import Figure, Row, pick, show
 from taprig.client.mirror import Mirror
 from taprig.client.pull import pull
 from taprig.client.remote import RigClient
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
-from taprig.daemon.runner import start_rig
-from taprig.daemon.service import Service
+from taprig.daemon.lifespan import start_rig
 from taprig.schema import wire
 
 GOAL_RATIO = 0.5

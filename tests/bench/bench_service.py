@@ -28,12 +28,13 @@ import numpy as np
 from aiohttp import web
 from table import Figure, Row, pick, show
 
+from taprig.daemon.api.bodies import encode_point_set
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import RunningRig
 from taprig.daemon.records import GridPoint, PointSet, RovingMode
 from taprig.daemon.rig import Rig
-from taprig.daemon.runner import RunningRig
-from taprig.daemon.service import Service, encode_point_set
 from taprig.daemon.store import Store
 from taprig.daemon.wirebody import encode_body
 from taprig.schema import wire

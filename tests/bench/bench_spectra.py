@@ -20,7 +20,7 @@ import numpy as np
 import table
 from table import Figure, Row, pick
 
-from taprig.daemon.spectra import (
+from taprig.daemon.capture.spectra import (
     SpectralAverager,
     WindowSettings,
     exponential_window,

@@ -29,12 +29,12 @@ import pytest
 
 from taprig.client.dataset import TestData, assemble
 from taprig.client.rigs import PairedRig, Places, RigBook
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.rig import RigEvent
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import Service
+from taprig.daemon.rigstate import RigEvent
 from taprig.firmware_protocol.virtual import (
     DEMO_DRIVING_POINT,
     ModalModel,
@@ -208,7 +208,7 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
         assert vi is not None
         events: queue.Queue[RigEvent] = queue.Queue()
         r.rig.subscribe(events.put)
-        _until(lambda: r.rig.info is not None, "the device to identify itself")
+        _until(lambda: r.rig.view().info is not None, "the device to identify itself")
         m = vi.model
         grid = [GridPoint(p, *map(float, m.coords[m.index(p)])) for p in m.grid]
         sensors = dict(m.sensors)

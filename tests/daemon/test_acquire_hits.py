@@ -7,8 +7,8 @@ import math
 import numpy as np
 import pytest
 
-from taprig.daemon.acquire import Acquirer, RingBuffer, TriggerSettings
-from taprig.daemon.hits import (
+from taprig.daemon.capture.acquire import Acquirer, RingBuffer, TriggerSettings
+from taprig.daemon.capture.hits import (
     DOUBLE_HIT,
     GAP,
     OVERLOAD,

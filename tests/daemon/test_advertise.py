@@ -39,7 +39,9 @@ from typing import IO, Any
 import pytest
 from zeroconf import ServiceInfo
 
-from taprig.daemon.advertise import Advertiser, encode_txt, new_rig_id, rig_txt
+from taprig.daemon.advertise import Advertiser
+from taprig.daemon.identity import new_rig_id
+from taprig.daemon.txt import encode_txt, rig_txt
 from taprig.schema import API_VERSION, SERVICE_TYPE
 
 PEER = Path(__file__).with_name("mdns_peer.py")

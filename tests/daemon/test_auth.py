@@ -28,7 +28,8 @@ import pytest
 import segno
 
 from taprig.daemon import auth as auth_mod
-from taprig.daemon.auth import Auth, AuthError, AuthResult, pair_command_output, qr_text
+from taprig.daemon.auth import Auth, AuthError, AuthResult
+from taprig.daemon.pairing import pair_command_output, pairing_url, qr_text
 
 PEER = "192.0.2.10"  # RFC 5737 documentation addresses
 OTHER = "192.0.2.77"
@@ -358,7 +359,7 @@ def test_token_file_gone_or_unsafe_while_running_refuses_everything(
     a.path.unlink()
     assert a.check(bearer(token), PEER, now=12.0) is AuthResult.UNAVAILABLE
     with pytest.raises(AuthError):
-        a.pairing_url("rig.local", 8750)
+        pairing_url(a.token, "rig.local", 8750)
 
 
 # ---------------------------------------------------------------- pairing
@@ -366,7 +367,7 @@ def test_token_file_gone_or_unsafe_while_running_refuses_everything(
 
 def test_pairing_url_carries_the_token_only_in_the_fragment(state: Path) -> None:
     a = Auth(state)
-    url = a.pairing_url("taprig-7f3a.local", 8750)
+    url = pairing_url(a.token, "taprig-7f3a.local", 8750)
     assert url == f"http://taprig-7f3a.local:8750/pair#token={a.token}"
     parts = urlsplit(url)
     assert (parts.scheme, parts.hostname, parts.port, parts.path, parts.query) == (
@@ -388,7 +389,7 @@ def test_pairing_url_carries_the_token_only_in_the_fragment(state: Path) -> None
     ],
 )
 def test_pairing_url_hosts(state: Path, host: str, netloc: str) -> None:
-    url = Auth(state).pairing_url(host, 8750)
+    url = pairing_url(Auth(state).token, host, 8750)
     assert urlsplit(url).netloc == netloc
 
 
@@ -397,13 +398,13 @@ def test_pairing_url_hosts(state: Path, host: str, netloc: str) -> None:
 )
 def test_pairing_url_refuses_useless_hosts(state: Path, host: str) -> None:
     with pytest.raises(ValueError):
-        Auth(state).pairing_url(host, 8750)
+        pairing_url(Auth(state).token, host, 8750)
 
 
 @pytest.mark.parametrize("port", [0, 65536, -1, True])
 def test_pairing_url_refuses_bad_ports(state: Path, port: int) -> None:
     with pytest.raises(ValueError):
-        Auth(state).pairing_url("rig.local", port)
+        pairing_url(Auth(state).token, "rig.local", port)
 
 
 BYTE_M_CAPACITY = [14, 26, 42, 62, 84, 106, 122, 152, 180, 213]  # ISO/IEC 18004 Table 7
@@ -432,7 +433,7 @@ def test_qr_code_of_the_pairing_url(state: Path, host_len: int, invert: bool) ->
     """The URL is 67 characters + the host (port 8750, 43-character token), so hosts of 17/18
     and 39/40 characters sit on the level-M byte capacities of versions 5/6 (84) and 7/8
     (106); size 17 + 4V; the drawing shows every module and a 4-module light quiet zone."""
-    url = Auth(state).pairing_url("r" * host_len, 8750)
+    url = pairing_url(Auth(state).token, "r" * host_len, 8750)
     assert len(url) == 67 + host_len
     qr = segno.make_qr(url, error="m", boost_error=False)
     v = expected_version(len(url))
@@ -449,12 +450,6 @@ def test_qr_code_of_the_pairing_url(state: Path, host_len: int, invert: bool) ->
     quiet = drawn.copy()
     quiet[4 : 4 + side, 4 : 4 + side] = False
     assert not quiet.any()  # quiet zone and the padding row are light
-
-
-def test_qr_text_is_reachable_from_auth(state: Path) -> None:
-    a = Auth(state)
-    url = a.pairing_url("rig.local", 8750)
-    assert a.qr_text(url) == Auth.qr_text(url) == qr_text(url)
 
 
 def test_pair_command_output(state: Path) -> None:

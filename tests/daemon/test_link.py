@@ -7,7 +7,7 @@ import time
 from collections.abc import Callable
 from pathlib import Path
 
-from taprig.daemon.link import Item, LinkChange, LinkState, SerialLink
+from taprig.daemon.capture.link import Item, LinkChange, LinkState, SerialLink
 from taprig.firmware_protocol import Command, FrameEncoder, Opcode, SampleBlock, make_decoder
 from taprig.firmware_protocol.virtual.instrument import open_virtual
 

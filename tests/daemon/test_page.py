@@ -10,8 +10,8 @@ import re
 from pathlib import Path
 
 from taprig.daemon.auth import Auth
+from taprig.daemon.lifespan import RunningRig
 from taprig.daemon.page import FILES
-from taprig.daemon.runner import RunningRig
 
 from .test_service import auth, run, running, serving
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import math
 import queue
 import time
 from collections.abc import Iterator
@@ -13,9 +14,9 @@ import pytest
 
 from taprig.daemon.config import load_config
 from taprig.daemon.errors import SessionError
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, RovingMode
-from taprig.daemon.rig import RigEvent
-from taprig.daemon.runner import RunningRig, start_rig
+from taprig.daemon.rigstate import RigEvent
 from taprig.firmware_protocol.virtual import accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
 
@@ -69,17 +70,34 @@ def grid_of(vi: VirtualInstrument, labels: list[str]) -> list[GridPoint]:
 
 def wait_info(r: RunningRig) -> None:
     deadline = time.monotonic() + 10
-    while r.rig.info is None:
+    while r.rig.view().info is None:
         assert time.monotonic() < deadline, "device never identified itself"
         time.sleep(0.01)
 
 
+def wait_streamed(r: RunningRig, index: int, timeout: float = 10.0) -> None:
+    """Until the daemon has decoded the device's samples up to `index` (its sample clock)."""
+    deadline = time.monotonic() + timeout
+    while r.rig.view().samples < index:
+        assert time.monotonic() < deadline, f"the stream never reached sample {index}"
+        time.sleep(0.01)
+
+
 def tap_and_wait(r: RunningRig, ev: Events, point: str, **kw: object) -> RigEvent:
-    assert r.instrument is not None
-    time.sleep(PAUSE_S)  # the simulated operator's pause, part of the scenario
+    """The operator's pause, PAUSE_S on the device's own sample clock (not the wall clock,
+    which a loaded machine stretches); then one tap and the hit event it caused."""
+    operator_pause(r)
     ev.clear()
+    assert r.instrument is not None
     assert r.instrument.tap(point, **kw) is not None  # type: ignore[arg-type]
     return ev.next("hit")
+
+
+def operator_pause(r: RunningRig) -> None:
+    """Until the daemon has decoded PAUSE_S more of the device's samples than it has now."""
+    vi = r.instrument
+    assert vi is not None
+    wait_streamed(r, r.rig.view().samples + math.ceil(PAUSE_S * vi.rate_hz))
 
 
 def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
@@ -126,7 +144,7 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     assert again.data["version"] == 2
     assert len(r.store.list_point_sets(test="panel-1")) == 4
     assert r.store.integrity_check() == "ok"
-    assert r.rig.stats.commit_latency_s
+    assert r.rig.view().commit_latency_s
 
 
 def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
@@ -137,10 +155,10 @@ def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
     r.rig.select_test("idle")
     vi.tap("A1")
     deadline = time.monotonic() + 5
-    while r.rig.stats.hits_seen == 0:
+    while r.rig.view().hits_seen == 0:
         assert time.monotonic() < deadline
         time.sleep(0.01)
-    assert r.rig.stats.hits_while_disarmed == 1
+    assert r.rig.view().hits_while_disarmed == 1
     assert r.store.list_point_sets() == []
 
 
@@ -224,7 +242,7 @@ def test_text_device_captures(tmp_path: Path) -> None:
         assert vi is not None
         ev = Events(r)
         wait_info(r)
-        assert r.rig.info is not None and r.rig.info.rate_hz == 5000.0
+        assert r.rig.view().info is not None and r.rig.view().info.rate_hz == 5000.0
         r.rig.create_test("txt", grid_of(vi, ["E6"]))
         r.rig.select_test("txt")
         r.rig.arm()

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import time
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -18,12 +17,12 @@ import numpy as np
 import pytest
 
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import start_rig
 from taprig.daemon.records import PointSet, RovingMode
-from taprig.daemon.runner import RunningRig, start_rig
 from taprig.firmware_protocol.virtual import DEMO_DRIVING_POINT, ModalModel, accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
 
-from .test_rig import Events, grid_of, wait_info
+from .test_rig import Events, grid_of, wait_info, wait_streamed
 
 # The demo panel with 3 % damping on every mode, so a tap rings down in under a second.
 PANEL = demo_panel()
@@ -36,16 +35,6 @@ RING_DOWN_S = math.log(1e4) / float(np.min(MODEL.damping_ratio * MODEL.omega))
 # range, the dynamic range of a good 24-bit front end (common practice, from memory). The
 # instrument's default, 20 µV, is 12 dB worse; see test_h1_matches_the_analytic_accelerance.
 NOISE_V_RMS = 5e-6
-
-
-def wait_streamed(r: RunningRig, index: int, timeout: float = 10.0) -> None:
-    """Until the daemon has decoded the device's samples up to `index` (its sample clock)."""
-    assert r.instrument is not None
-    per_frame = r.instrument.settings.frame_samples
-    deadline = time.monotonic() + timeout
-    while r.rig.snapshot()["link"]["frames_ok"] * per_frame < index:
-        assert time.monotonic() < deadline, f"the stream never reached sample {index}"
-        time.sleep(0.01)
 
 
 @pytest.fixture(scope="module")

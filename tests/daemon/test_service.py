@@ -25,13 +25,16 @@ import numpy as np
 import pytest
 
 from taprig.daemon import __version__
+from taprig.daemon.api.bodies import BodyCache
+from taprig.daemon.api.openapi import openapi, openapi_text
+from taprig.daemon.api.routes import ROUTES, Route
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import ROUTES, BodyCache, Route, Service, openapi, openapi_text
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.schema import API_VERSION, wire
 
-from .test_rig import DAMPED, PAUSE_S, grid_of, wait_info
+from .test_rig import DAMPED, grid_of, operator_pause, wait_info
 
 OPENAPI_FILE = Path(__file__).resolve().parents[2] / "daemon" / "openapi.json"
 LIMIT_S = 30.0  # the longest any one test may wait for anything
@@ -182,9 +185,10 @@ def labels_grid(running: RunningRig, labels: list[str]) -> list[Json]:
 
 
 async def tap(running: RunningRig, stream: EventStream, point: str) -> Any:
-    """One clean tap at `point` by the simulated operator; the hit event it caused."""
+    """The operator's pause (on the device's sample clock), then one clean tap at `point`;
+    the hit event it caused."""
     assert running.instrument is not None
-    await asyncio.sleep(PAUSE_S)  # the operator's pause between taps, part of the scenario
+    await asyncio.to_thread(operator_pause, running)
     assert await asyncio.to_thread(running.instrument.tap, point, 25.0) is not None
     return await stream.next("hit")
 
@@ -596,9 +600,9 @@ def test_eight_concurrent_readers_see_every_point_set(running: RunningRig, auth:
 
 def test_openapi_document_is_committed_and_matches_the_routes() -> None:
     """daemon/openapi.json is `openapi_text()`; regenerate it with
-    ``python -m taprig.daemon.service --openapi > daemon/openapi.json``."""
+    ``python -m taprig.daemon.api --openapi > daemon/openapi.json``."""
     assert OPENAPI_FILE.read_text() == openapi_text(), (
-        "daemon/openapi.json is stale: run python -m taprig.daemon.service --openapi "
+        "daemon/openapi.json is stale: run python -m taprig.daemon.api --openapi "
         "> daemon/openapi.json"
     )
     doc = json.loads(OPENAPI_FILE.read_text())

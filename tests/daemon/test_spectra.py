@@ -16,7 +16,7 @@ import pytest
 from numpy.typing import NDArray
 from scipy import signal
 
-from taprig.daemon.spectra import (
+from taprig.daemon.capture.spectra import (
     NO_EXP_TAU_S,
     HitSpectra,
     SpectralAverager,

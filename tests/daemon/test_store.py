@@ -29,9 +29,9 @@ import numpy as np
 import pytest
 
 from taprig.daemon import store as store_mod
-from taprig.daemon.errors import DiskFullError, StoreError
+from taprig.daemon.errors import AlreadyExists, DiskFullError, NotFound, StoreError
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.store import Store, import_grid_csv
+from taprig.daemon.store import Store
 
 GRID = [GridPoint(f"P{i}", 0.1 * i, 0.0, 0.0) for i in range(1, 5)]
 ARRAYS = ("freq_hz", "h1", "h2", "coherence", "gff", "gxx", "gfx")
@@ -491,11 +491,11 @@ def test_tests_round_trip_and_feed(tmp_path: Path) -> None:
             ("test", "beam", 1),
             ("test", "plate", 2),
         ]
-        with pytest.raises(StoreError, match="already exists"):
+        with pytest.raises(AlreadyExists, match="already exists"):
             s.save_test("beam", GRID, "hammer", "P1", 3, {})
         with pytest.raises(StoreError, match="reference 'P7'"):
             s.save_test("bar", GRID, "hammer", "P7", 3, {})
-        with pytest.raises(StoreError, match="no test named 'bar'"):
+        with pytest.raises(NotFound, match="no test named 'bar'"):
             s.get_test("bar")
         assert s.last_seq() == 2
 
@@ -508,42 +508,6 @@ def test_close_is_idempotent_and_final(tmp_path: Path) -> None:
         s.last_seq()
     with pytest.raises(StoreError, match="closed"):
         s.save_test("beam", GRID, "hammer", "P1", 3, {})
-
-
-GOOD_CSV = """label,x,y,z,direction
-P1, 0.0, 0.0, 0.0, +z
-
-P2,0.25,0,0.0,-y
-P3,0.5,1e-1,0,
-"""
-
-
-def test_grid_csv_good() -> None:
-    """Coordinates parse as Python floats (metres); an empty direction means "+z"."""
-    assert import_grid_csv(GOOD_CSV) == [
-        GridPoint("P1", 0.0, 0.0, 0.0, "+z"),
-        GridPoint("P2", 0.25, 0.0, 0.0, "-y"),
-        GridPoint("P3", 0.5, 0.1, 0.0, "+z"),
-    ]
-    assert import_grid_csv("label,x,y,z\nA,1,2,3\n") == [GridPoint("A", 1.0, 2.0, 3.0)]
-
-
-@pytest.mark.parametrize(
-    ("text", "message"),
-    [
-        ("name,x,y,z\nP1,0,0,0\n", "line 1: header must be label,x,y,z"),
-        ("label,x,y,z\nP1,0,0,0\nP2,0,abc,0\n", "line 3, field 'y': 'abc' is not a number"),
-        ("label,x,y,z\nP1,0,0,nan\n", "line 2, field 'z': 'nan' is not finite"),
-        ("label,x,y,z\nP1,0,0,0\n\nP1,1,0,0\n", "line 4: label 'P1' already on line 2"),
-        ("label,x,y,z,direction\nP1,0,0,0,up\n", "line 2, field 'direction'"),
-        ("label,x,y,z\nP1,0,0\n", "line 2: 3 fields, expected 4"),
-        ("label,x,y,z\n", "no points"),
-        ("", "empty"),
-    ],
-)
-def test_grid_csv_errors_name_line_and_field(text: str, message: str) -> None:
-    with pytest.raises(StoreError, match=message):
-        import_grid_csv(text)
 
 
 def test_wire_body_is_written_with_the_point_set(tmp_path: Path) -> None:

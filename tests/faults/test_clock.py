@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import asyncio
 import datetime as dt
+import math
 import time
 from pathlib import Path
 from typing import Any
@@ -20,13 +21,14 @@ from typing import Any
 import aiohttp
 import pytest
 
-from taprig.daemon import session as session_module
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
+from taprig.daemon.capture import session as session_module
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import Service
 from taprig.firmware_protocol.virtual.modal import demo_panel
+from tests.daemon.test_rig import wait_streamed
 
 PAUSE_S = 0.15  # between taps: longer than one 4096-sample record at 51.2 kHz (80 ms)
 
@@ -45,13 +47,16 @@ class SteppedClock:
 def capture_one(r: RunningRig) -> None:
     """One tap that completes a point (averages = 1); waits until it is stored."""
     before = len(r.store.list_point_sets())
-    assert r.instrument is not None
-    r.instrument.tap("A1")
+    vi = r.instrument
+    assert vi is not None
+    tap = vi.tap("A1")
+    assert tap is not None
     deadline = time.monotonic() + 10
     while len(r.store.list_point_sets()) == before:
         assert time.monotonic() < deadline, "the point set was never stored"
         time.sleep(0.02)
-    time.sleep(PAUSE_S)
+    # The operator's pause before the next tap, on the device's sample clock.
+    wait_streamed(r, tap.first_index + math.ceil(PAUSE_S * vi.rate_hz))
 
 
 class Follower:
@@ -87,7 +92,7 @@ def test_wall_clock_set_back_sync_by_seq_is_exact(
     r = start_rig(cfg, model=model)
     try:
         deadline = time.monotonic() + 10
-        while r.rig.info is None:
+        while r.rig.view().info is None:
             assert time.monotonic() < deadline
             time.sleep(0.02)
         grid = [GridPoint(p, *(float(v) for v in model.coords[model.index(p)])) for p in model.grid]

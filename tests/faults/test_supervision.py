@@ -22,7 +22,7 @@ from typing import Any
 import pytest
 
 from taprig.daemon.notify import Notifier
-from taprig.daemon.serve import _report
+from taprig.daemon.supervise import report
 
 from .process import Taprigd, wait_until
 
@@ -98,16 +98,17 @@ def test_ready_status_watchdog_stopping(manager: Manager, tmp_path: Path) -> Non
 
 
 class _RigStandIn(SimpleNamespace):
-    """What `_report` reads of a rig; `beat` (monotonic s) is moved by the test."""
+    """What `report` reads of a rig; `beat` (monotonic s) is moved by the test."""
 
 
 def test_watchdog_pings_stop_when_the_rig_thread_is_stuck(manager: Manager) -> None:
     notify = Notifier({"NOTIFY_SOCKET": manager.name, "WATCHDOG_USEC": "200000"})
-    rig: Any = _RigStandIn(beat=time.monotonic(), waiting_for_room=False, armed=False,
-                      session=None, link_state=SimpleNamespace(value="connected"))  # fmt: skip
+    view = SimpleNamespace(waiting_for_room=False, armed=False, plan=None, point=None,
+                           link_state=SimpleNamespace(value="connected"))  # fmt: skip
+    rig: Any = _RigStandIn(beat=time.monotonic(), view=lambda: view)
 
     async def run_for(seconds: float) -> None:
-        task = asyncio.create_task(_report(rig, notify))
+        task = asyncio.create_task(report(rig, notify))
         await asyncio.sleep(seconds)
         task.cancel()
         with pytest.raises(asyncio.CancelledError):

@@ -17,7 +17,7 @@ import pytest
 from taprig.client.dataset import TestData
 from taprig.client.view.modes import ModeSet, auto_mac, from_model
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.runner import RunningRig
+from taprig.daemon.running import RunningRig
 from taprig.firmware_protocol.virtual import ModalModel, demo_panel
 from tests.client.analytic import analytic_test_data
 from tests.client.conftest import places, served  # noqa: F401  (fixtures for the command tests)

@@ -20,11 +20,11 @@ import pytest
 from taprig.client.archive.config import ArchiveConfig, RigSource
 from taprig.client.archive.db import migrate
 from taprig.client.archive.follow import Archiver
+from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
+from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.runner import RunningRig, start_rig
-from taprig.daemon.service import Service
 from taprig.firmware_protocol.virtual import ModalModel, accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
 from taprig.schema import wire

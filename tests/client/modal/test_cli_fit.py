@@ -16,7 +16,7 @@ from taprig.client import dataset
 from taprig.client.modal import ModalModel
 from taprig.client.rigs import Places
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
-from taprig.daemon.runner import RunningRig
+from taprig.daemon.running import RunningRig
 
 from ..conftest import ServedRig
 from ..test_cli import as_json, taprig

@@ -15,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import SessionError
-from .records import (
+from ..errors import NotFound, SessionError
+from ..records import (
     ChannelSpec,
     Finding,
     GridPoint,
@@ -95,7 +95,7 @@ class Session:
 
     def goto(self, label: str) -> None:
         if label not in self.labels:
-            raise SessionError(f"point {label!r} is not on the grid of test {self.plan.name!r}")
+            raise NotFound(f"point {label!r} is not on the grid of test {self.plan.name!r}")
         self.cursor = label
         self._new_point()
 

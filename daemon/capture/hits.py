@@ -10,7 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .records import Finding, HitRecord, HitVerdict
+from ..records import Finding, HitRecord, HitVerdict
 
 PULSE_EDGE = 0.05  # the pulse is where the force exceeds 5 % of its peak
 

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .records import ChannelSpec, HitRecord, Role
+from ..records import ChannelSpec, HitRecord, Role
 
 
 @dataclass(frozen=True, slots=True)

@@ -1,0 +1,333 @@
+"""The rig's HTTP service under /v1: aiohttp on the daemon's asyncio event loop.
+
+Requests flow: the route table (routes.py) → token check (daemon/auth.py) → validation
+(validate.py) → a handler here → a response body (bodies.py); any exception on the way
+becomes a status in errors.py. Rig events reach clients through feed.py; control requests
+act once per request id (once.py). The phone page (daemon/page.py) is added beside the
+table, outside /v1: static files that need no token.
+
+Threads: handlers run on the event loop and never block it; every rig and store call goes
+through `asyncio.to_thread`. Rig state is read from the rig's published view
+(`Rig.view()`), never from its fields.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import functools
+import logging
+import math
+from collections.abc import Awaitable, Callable
+from typing import TYPE_CHECKING, Final
+
+from aiohttp import web
+
+from taprig.schema import API_VERSION, wire
+
+from .. import __version__, identity, page
+from ..errors import TaprigError
+from ..records import RovingMode
+from . import validate
+from .bodies import (
+    BODY_CACHE_BYTES,
+    BodyCache,
+    device_json,
+    encode_point_set,
+    json_response,
+    outcome_json,
+    reply,
+    test_obj,
+)
+from .errors import ApiError, Outcome, error_of, invalid
+from .feed import Feed
+from .once import Once
+from .openapi import openapi_text
+from .routes import HEARTBEAT_S, JSON, PREFIX, ROUTES, Call, Payload, Route
+
+if TYPE_CHECKING:
+    from ..auth import Auth
+    from ..running import RunningRig
+
+log = logging.getLogger(__name__)
+
+CHANGES_LIMIT: Final = 1000  # entries per /v1/changes answer
+SHUTDOWN_S: Final = 2.0  # how long close waits for requests in flight
+# The access log names the peer, the request line, the status, the size and the time;
+# never a header, so the Authorization header (the token) cannot reach a log.
+ACCESS_LOG_FORMAT: Final = '%a "%r" %s %b %Tfs'
+# And, should a token be written anyway (a client putting it in a URL), these loggers redact it.
+REDACTED_LOGGERS: Final = (
+    "aiohttp.access", "aiohttp.server", "aiohttp.web", __name__, "taprig.daemon.api.errors",
+    "taprig.daemon.api.feed",
+)  # fmt: skip
+
+
+class Service:
+    """The HTTP service of one running rig. `await async_start()`, then `.port` is bound.
+
+    host, port: where to listen (port 0: any free port). max_body: largest request body in
+    bytes (413 beyond). rig_name: reported by /v1/info (default: the configured rig name).
+    rig_id: the rig's stable id, reported by /v1/info (default: daemon/identity.py's, kept in
+    the state folder).
+    heartbeat_s: comment interval on idle event streams. body_cache_bytes: encoded point sets
+    kept for the next reader (0: none).
+    """
+
+    def __init__(
+        self,
+        running: RunningRig,
+        auth: Auth,
+        *,
+        host: str = "127.0.0.1",
+        port: int = 0,
+        max_body: int = 1 << 20,
+        rig_name: str | None = None,
+        rig_id: str | None = None,
+        heartbeat_s: float = HEARTBEAT_S,
+        body_cache_bytes: int = BODY_CACHE_BYTES,
+    ) -> None:
+        self.running, self.auth = running, auth
+        self.store, self.rig = running.store, running.rig
+        self.host, self.port, self.max_body = host, port, max_body
+        self.rig_name = rig_name if rig_name is not None else running.config.rig.name
+        data_dir = running.config.store.data_dir
+        self.rig_id = rig_id if rig_id is not None else identity.rig_id(data_dir)
+        self._runner: web.AppRunner | None = None
+        self._feed = Feed(heartbeat_s)
+        self._once = Once()
+        self._subscribed = False
+        self._closed = False
+        self._log_filter = auth.log_filter()
+        self._bodies = BodyCache(body_cache_bytes)
+        self._web: dict[str, page.StaticFile] = {}
+
+    # -- lifecycle (event loop)
+
+    async def async_start(self) -> None:
+        """Listen on host:port; a second call does nothing."""
+        if self._runner is not None:
+            return
+        if self._closed:
+            raise RuntimeError("the service was closed; make a new one")
+        self._feed.attach(asyncio.get_running_loop())
+        if not self._subscribed:
+            self.rig.subscribe(self._feed.from_rig)
+            self._subscribed = True
+        for name in REDACTED_LOGGERS:
+            logging.getLogger(name).addFilter(self._log_filter)
+        self._web = await asyncio.to_thread(page.load)  # the phone page, read once
+        runner = web.AppRunner(self.make_app(), access_log_format=ACCESS_LOG_FORMAT,
+                               shutdown_timeout=SHUTDOWN_S)  # fmt: skip
+        await runner.setup()
+        try:
+            await web.TCPSite(runner, self.host, self.port).start()
+        except BaseException:
+            await runner.cleanup()
+            raise
+        self._runner = runner
+        self.port = int(runner.addresses[0][1])
+        log.info("service on http://%s:%d%s", self.host, self.port, PREFIX)
+
+    async def async_close(self) -> None:
+        """End event streams and long-polls, stop listening. Safe to call twice."""
+        if self._closed:
+            return
+        self._closed = True
+        self._feed.close()
+        if self._runner is not None:
+            await self._runner.cleanup()
+        for name in REDACTED_LOGGERS:
+            logging.getLogger(name).removeFilter(self._log_filter)
+
+    def make_app(self) -> web.Application:
+        """The aiohttp application of `ROUTES` (subclasses may add routes before start)."""
+        app = web.Application(client_max_size=self.max_body, middlewares=[self._errors])
+        for route in ROUTES:
+            app.router.add_route(route.method, route.path, self._bind(route))
+        if self._web:
+            page.add_routes(app, self._web)  # outside /v1: static files, no token
+        return app
+
+    @property
+    def polls_waiting(self) -> int:
+        """Long-polls of /v1/changes waiting for a change right now."""
+        return self._feed.polls_waiting
+
+    # -- plumbing
+
+    @web.middleware
+    async def _errors(
+        self, request: web.Request, handler: Callable[[web.Request], Awaitable[web.StreamResponse]]
+    ) -> web.StreamResponse:
+        try:
+            return await handler(request)
+        except ConnectionError:
+            raise  # the client went away: nothing to answer
+        except Exception as exc:
+            status, payload, headers = error_of(exc)
+            return json_response(payload, status, headers)
+
+    def _bind(self, route: Route) -> Callable[[web.Request], Awaitable[web.StreamResponse]]:
+        serve: Callable[[Call], Awaitable[web.StreamResponse]] = getattr(
+            self, f"_on_{route.handler}"
+        )
+
+        async def handler(request: web.Request) -> web.StreamResponse:
+            if not route.public:
+                await self.authorize(request)
+            args = validate.params(route, request)
+            body = await validate.body(route, request) if route.body is not None else {}
+            return await serve(Call(request, route, args, body))
+
+        return handler
+
+    async def authorize(self, request: web.Request) -> None:
+        """Raise ApiError 401, 429 or 503 unless the request carries the rig's token."""
+        peer = request.remote or ""
+        # Auth.check stats the token file: a syscall, so off the loop like any other.
+        verdict = await asyncio.to_thread(
+            self.auth.check, request.headers.get("Authorization"), peer
+        )
+        status = verdict.http_status
+        if status == 429:
+            wait = max(1, math.ceil(self.auth.retry_after(peer)))  # RFC 9110 §10.2.3: seconds
+            raise ApiError(429, "rate_limited", f"too many failed attempts; retry in {wait} s",
+                           {"Retry-After": str(wait)})  # fmt: skip
+        if status == 503:
+            raise ApiError(503, "unavailable", "the rig's token file cannot be used; see its log")
+        if status != 200:
+            raise ApiError(401, "unauthorized", "")
+
+    async def _answer_once(
+        self, what: str, body: Payload, act: Callable[[], Awaitable[Outcome]]
+    ) -> web.Response:
+        status, payload, headers = await self._once.run(what, body, act)
+        return json_response(payload, status, headers)
+
+    # -- public
+
+    async def _on_info(self, call: Call) -> web.StreamResponse:
+        return json_response({
+            "rig": self.rig_name, "rig_id": self.rig_id, "api_version": API_VERSION,
+            "schema_version": wire.SCHEMA_VERSION, "daemon_version": __version__,
+        })  # fmt: skip
+
+    async def _on_health(self, call: Call) -> web.StreamResponse:
+        try:
+            await asyncio.to_thread(self.store.last_seq)
+            store_ok = True
+        except TaprigError:
+            store_ok = False
+        payload = {"status": "ok" if store_ok else "degraded", "store": store_ok,
+                   "link": self.rig.view().link_state.value}  # fmt: skip
+        return json_response(payload, 200 if store_ok else 503)
+
+    async def _on_openapi(self, call: Call) -> web.StreamResponse:
+        return web.Response(text=openapi_text(), content_type=JSON)
+
+    # -- reading
+
+    async def _on_state(self, call: Call) -> web.StreamResponse:
+        snapshot = await asyncio.to_thread(self.rig.snapshot)
+        last_seq = await asyncio.to_thread(self.store.last_seq)
+        view = self.rig.view()
+        return json_response({
+            "rig": self.rig_name, "session": snapshot, "device": device_json(view.info),
+            "hits_seen": view.hits_seen, "hits_while_disarmed": view.hits_while_disarmed,
+            "last_seq": last_seq, "accept": self.running.config.capture.accept.value,
+            "channels": [{"label": c.label, "role": str(c.role)}
+                         for c in sorted(self.running.config.channels, key=lambda c: c.index)],
+        })  # fmt: skip
+
+    async def _on_last_hit(self, call: Call) -> web.StreamResponse:
+        last = self.rig.view().last_hit
+        if last is None:
+            raise ApiError(404, "no_hit", "no hit has been captured yet")
+        return json_response(last)
+
+    async def _on_tests(self, call: Call) -> web.StreamResponse:
+        plans = await asyncio.to_thread(self.store.list_tests)
+        return reply(call, {"tests": [test_obj(t) for t in plans]})
+
+    async def _on_test(self, call: Call) -> web.StreamResponse:
+        plan = await asyncio.to_thread(self.store.get_test, call.args["name"])  # NotFound: 404
+        return reply(call, test_obj(plan))
+
+    async def _on_points(self, call: Call) -> web.StreamResponse:
+        test = call.args.get("test")
+        if test is not None:
+            await asyncio.to_thread(self.store.get_test, test)  # NotFound: 404
+        rows = await asyncio.to_thread(self.store.list_point_sets, test, call.args.get("since", 0))
+        return reply(call, {"points": [wire.point_set_summary_json(s) for s in rows]})
+
+    async def _on_point(self, call: Call) -> web.StreamResponse:
+        pid, with_hits = call.args["id"], bool(call.args.get("hits", 0))
+        key = (pid, with_hits, wire.wants_msgpack(call.request.headers.get("Accept")))
+        encoded = self._bodies.get(key)
+        if encoded is None:  # NotFound for an id never stored: 404
+            encoded = await asyncio.to_thread(encode_point_set, self.store, *key)
+            self._bodies.put(key, encoded)
+        body, media, digest = encoded
+        return web.Response(body=body, content_type=media, headers={"Content-Digest": digest})
+
+    async def _on_changes(self, call: Call) -> web.StreamResponse:
+        since = call.args.get("since", 0)
+        changes = await self._feed.poll(
+            lambda: asyncio.to_thread(self.store.changes, since, CHANGES_LIMIT),
+            call.args.get("wait", 0.0),
+        )
+        objs = [wire.change_to_obj(wire.change_from_record(c)) for c in changes]
+        last = changes[-1].seq if changes else since
+        return reply(call, {"changes": objs, "last_seq": last,
+                            "more": len(changes) == CHANGES_LIMIT})  # fmt: skip
+
+    async def _on_events(self, call: Call) -> web.StreamResponse:
+        return await self._feed.stream(call.request)
+
+    # -- writing
+
+    async def _on_create_test(self, call: Call) -> web.StreamResponse:
+        return await self._answer_once("create_test", call.body, lambda: self._create(call.body))
+
+    async def _create(self, body: Payload) -> Outcome:
+        grid = validate.grid(body)
+        labels = {p.label for p in grid}
+        reference = body.get("reference", grid[0].label)
+        if reference not in labels:
+            raise invalid(f"body.reference: {reference!r} is not a label of the grid")
+        known = {c.label for c in self.running.config.response_channels}
+        sensors = body.get("sensor_points", {})
+        if set(sensors) - known:
+            raise invalid(f"body.sensor_points: {sorted(set(sensors) - known)} are not "
+                          f"response channels (those are {sorted(known)})")  # fmt: skip
+        name = body["name"]
+        await asyncio.to_thread(  # AlreadyExists: 409
+            self.rig.create_test, name, grid, RovingMode(body.get("roving_mode", "hammer")),
+            reference, body.get("averages"), sensors,
+        )  # fmt: skip
+        self._feed.wake()
+        plan = await asyncio.to_thread(self.store.get_test, name)
+        return 201, test_obj(plan), {"Location": f"{PREFIX}/tests/{name}"}
+
+    async def _on_session(self, call: Call) -> web.StreamResponse:
+        action = call.route.action
+        assert action is not None
+        return await self._answer_once(f"session/{action}", call.body,
+                                       lambda: self._act(action, call.body))  # fmt: skip
+
+    async def _act(self, action: str, body: Payload) -> Outcome:
+        rig = self.rig
+        simple: dict[str, Callable[[], None]] = {
+            "arm": rig.arm, "disarm": rig.disarm, "redo": rig.redo,
+            "next": functools.partial(rig.step, 1), "previous": functools.partial(rig.step, -1),
+            "select": functools.partial(rig.select_test, body.get("test", "")),
+            "goto": functools.partial(rig.goto, body.get("point", "")),
+        }  # fmt: skip
+        out: Payload = {"action": action, "request_id": body["request_id"]}
+        if action in ("accept", "reject"):
+            decide = rig.accept if action == "accept" else rig.reject
+            out["outcome"] = outcome_json(await asyncio.to_thread(decide))
+        else:  # an unknown test or point is NotFound: 404
+            await asyncio.to_thread(simple[action])
+        out["state"] = await asyncio.to_thread(rig.snapshot)
+        return 200, out, {}

@@ -1,0 +1,154 @@
+"""`taprigd run`: start every part (daemon/lifespan.py), open the test, serve until told to stop.
+
+Stops on SIGTERM or SIGINT, or after `RunOptions.duration` seconds. With a virtual device a
+simulated operator may tap every few seconds (`virtual_taps`), as a hand would.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import functools
+import json
+import logging
+import signal
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+from .config import Config
+from .errors import DiskLowError, SessionError
+from .grid import import_grid_csv
+from .lifespan import lifespan
+from .records import GridPoint, RovingMode
+from .rig import Rig
+from .rigstate import RigEvent
+from .running import RunningRig
+
+log = logging.getLogger("taprig.daemon")
+
+DEVICE_WAIT_S = 30.0  # how long `--test` waits for the device to identify itself, seconds
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """What `taprigd run` was asked beyond the configuration (its command-line options)."""
+
+    test: str | None = None
+    grid: Path | None = None
+    roving: RovingMode = RovingMode.HAMMER
+    reference: str | None = None
+    duration: float = 0.0
+    virtual_taps: float = 0.0
+    virtual_double_hits: float = 0.0
+    truth: Path | None = None
+    json_events: bool = False
+    virtual_control: int | None = None
+
+
+async def run(cfg: Config, opt: RunOptions) -> None:
+    """Run the daemon until SIGTERM/SIGINT (or `opt.duration` seconds); every part stops on
+    the way out, also on an error. The signals are taken first: one that arrives while the
+    parts start ends the run as soon as they have."""
+    stop = asyncio.Event()
+    loop = asyncio.get_running_loop()
+    for sig in (signal.SIGTERM, signal.SIGINT):
+        loop.add_signal_handler(sig, stop.set)
+    try:
+        async with lifespan(cfg, control_port=opt.virtual_control,
+                            prepare=functools.partial(_prepare, opt=opt)) as daemon:  # fmt: skip
+            await _until_stopped(daemon.running, opt, stop)
+    finally:
+        for sig in (signal.SIGTERM, signal.SIGINT):
+            loop.remove_signal_handler(sig)
+
+
+def _prepare(running: RunningRig, opt: RunOptions) -> None:
+    """Before the service opens (a worker thread): events shown, the simulated device set up,
+    the test opened (or the previous run's resumed once the device identifies itself)."""
+    running.rig.subscribe(_shower(opt.json_events))
+    vi = running.instrument
+    if vi is not None:
+        vi.faults.double_hit_probability = opt.virtual_double_hits
+        if opt.truth is not None:
+            from taprig.firmware_protocol.virtual import write_truth
+
+            write_truth(vi.model, opt.truth)
+    if opt.test is not None:
+        open_test(running, opt)
+    elif running.rig.resume_later():
+        log.info("carrying on with the previous run's test once the device identifies itself")
+
+
+def _shower(json_events: bool) -> Callable[[RigEvent], None]:
+    def show(event: RigEvent) -> None:
+        if json_events:
+            print(json.dumps({"kind": event.kind, **event.data}, default=str), flush=True)
+        else:
+            log.info("%s %s", event.kind, event.data)
+
+    return show
+
+
+async def _until_stopped(running: RunningRig, opt: RunOptions, stop: asyncio.Event) -> None:
+    """Wait for `stop` or the end of `opt.duration`; the simulated operator taps every
+    `opt.virtual_taps` seconds meanwhile."""
+    loop = asyncio.get_running_loop()
+    tick_s = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
+    end = loop.time() + opt.duration if opt.duration > 0 else float("inf")
+    while not stop.is_set() and loop.time() < end:
+        with contextlib.suppress(TimeoutError):
+            await asyncio.wait_for(stop.wait(), timeout=min(tick_s, max(end - loop.time(), 0)))
+        tapping = running.instrument is not None and opt.virtual_taps > 0
+        if tapping and not stop.is_set() and running.rig.view().plan is not None:
+            await asyncio.to_thread(simulated_tap, running)
+
+
+def open_test(running: RunningRig, opt: RunOptions) -> None:
+    """Create the test if asked (from `--grid` or the virtual device's model), select it
+    once the device has identified itself, and arm (a low disk only defers arming)."""
+    rig, vi, name = running.rig, running.instrument, opt.test
+    assert name is not None
+    known = {t.name for t in running.store.list_tests()}
+    if opt.grid is not None:
+        points = import_grid_csv(opt.grid.read_text(encoding="utf-8"))
+    elif vi is not None and name not in known:
+        m = vi.model
+        xyz = [tuple(float(v) for v in m.coords[m.index(p)]) for p in m.grid]
+        points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
+    else:
+        points = []
+    if points:
+        sensor_points = dict(vi.model.sensors) if vi is not None else None
+        rig.create_test(name, points, opt.roving, opt.reference,
+                        sensor_points=sensor_points)  # fmt: skip
+    wait_for_device(rig)
+    rig.select_test(name)
+    try:
+        rig.arm()
+    except DiskLowError as exc:  # serve what is stored; the rig arms itself when room returns
+        log.warning("%s", exc)
+
+
+def simulated_tap(running: RunningRig) -> None:
+    """The virtual operator: in roving-sensor mode move the sensor, then tap."""
+    vi, plan = running.instrument, running.rig.view().plan
+    assert vi is not None and plan is not None
+    point = running.rig.snapshot()["point"]
+    if plan.roving_mode is RovingMode.SENSOR:
+        vi.move_sensor(next(iter(vi.model.sensors)), point)
+        point = plan.reference
+    vi.tap(point)
+
+
+def wait_for_device(rig: Rig, timeout_s: float = DEVICE_WAIT_S) -> None:
+    """Return once the device has identified itself; SessionError after `timeout_s`."""
+    import time
+
+    deadline = time.monotonic() + timeout_s
+    while rig.view().info is None:
+        if time.monotonic() > deadline:
+            raise SessionError(
+                f"the device at {rig.url} did not identify itself in {timeout_s:g} s"
+            )
+        time.sleep(0.05)  # polling a thread's published state; there is nothing to wait on

@@ -1,0 +1,31 @@
+"""A running rig's capture parts, as `daemon/lifespan.py` started them, for the parts that
+serve it (the HTTP service, the command line)."""
+
+from __future__ import annotations
+
+import contextlib
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+from .config import Config
+from .rig import Rig
+from .store import Store
+
+if TYPE_CHECKING:  # the simulator is imported only when a virtual device is configured
+    from taprig.firmware_protocol.virtual.control import ControlServer
+    from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
+
+
+@dataclass
+class RunningRig:
+    """The capture parts of a running daemon; `close()` stops them in reverse (idempotent)."""
+
+    config: Config
+    store: Store
+    rig: Rig
+    instrument: VirtualInstrument | None = None
+    control: ControlServer | None = None
+    _stack: contextlib.ExitStack = field(default_factory=contextlib.ExitStack, repr=False)
+
+    def close(self) -> None:
+        self._stack.close()  # an ExitStack runs its callbacks once

@@ -1,0 +1,95 @@
+"""The capture stages built from the configuration and the device's own description.
+
+Pure construction, no state: the rig (daemon/rig.py) calls these when the device identifies
+itself (decoder, acquirer), at start (checks) and when a test is selected (session).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+from taprig.firmware_protocol import Decoder, DeviceInfo, make_decoder
+
+from . import __version__
+from .capture.acquire import Acquirer, TriggerSettings
+from .capture.hits import CheckSettings
+from .capture.session import Plan, Session
+from .capture.spectra import WindowSettings
+from .config import Config
+from .errors import TaprigError
+from .records import Role, RovingMode
+from .store import TestPlan
+
+
+def decoder(config: Config) -> Decoder:
+    """The input format's decoder, as device.format names it."""
+    d = config.device
+    if d.format == "text":
+        return make_decoder("text", rate_hz=d.text_rate_hz or None,
+                            full_scale_v=d.text_full_scale_v)  # fmt: skip
+    return make_decoder("binary")
+
+
+def check_settings(config: Config) -> CheckSettings:
+    """The hit checks' settings (the configuration never changes while the rig runs)."""
+    cap = config.capture
+    chans = sorted(config.channels, key=lambda c: c.index)
+    force = next(i for i, c in enumerate(chans) if c.role is Role.FORCE)
+    return CheckSettings(
+        force_channel=force,
+        response_channels=tuple(i for i, c in enumerate(chans) if c.role is Role.RESPONSE),
+        trigger_level_n=cap.trigger_level_n,
+        force_floor_n=cap.force_floor_n,
+        double_hit_fraction=cap.double_hit_fraction,
+        decay_warning_fraction=cap.decay_warning_fraction,
+        exponential_window=config.windows.exponential_end is not None,
+        sign=1.0 if cap.trigger_slope == "rising" else -1.0,
+    )
+
+
+def acquirer(config: Config, info: DeviceInfo) -> Acquirer:
+    """An acquirer for the device as it described itself; TaprigError (a sentence for the
+    operator) when its rate or its channels do not fit the configuration."""
+    config.check_rate(info.rate_hz)
+    needed = max(c.index for c in config.channels) + 1
+    if info.channel_count < needed:
+        raise TaprigError(f"the device has {info.channel_count} channels; "
+                          f"the configuration uses {needed}")  # fmt: skip
+    cap = config.capture
+    trig = TriggerSettings(cap.trigger_level_n, cap.hysteresis_n, cap.trigger_slope,
+                           cap.pretrigger, cap.block)  # fmt: skip
+    return Acquirer(
+        config.channels, trig, info.rate_hz, [c.full_scale_v for c in info.channels],
+        ring_seconds=cap.ring_seconds, full_scale_margin=cap.full_scale_margin,
+    )  # fmt: skip
+
+
+def session(config: Config, plan: TestPlan, info: DeviceInfo, done: Sequence[str]) -> Session:
+    """A session on the stored test `plan` for the identified device; `done`: points measured."""
+    w = config.windows
+    return Session(
+        Plan(plan.name, tuple(plan.grid), RovingMode(plan.roving_mode), plan.reference,
+             plan.averages, dict(plan.meta.get("sensor_points", {}))),
+        config.channels, info.rate_hz, config.capture.block,
+        WindowSettings(w.force_margin_s, w.force_taper_s, w.exponential_end),
+        auto_accept=config.capture.accept == "auto", meta=meta(config, info), done=done,
+    )  # fmt: skip
+
+
+def meta(config: Config, info: DeviceInfo) -> dict[str, Any]:
+    """What every point set records of the rig and the device it was measured with."""
+    cap = config.capture
+    return {
+        "rig": config.rig.name,
+        "daemon_version": __version__,
+        "pretrigger": cap.pretrigger,
+        "trigger_level_n": cap.trigger_level_n,
+        "device": {
+            "id": info.device_id, "firmware": info.firmware,
+            "protocol_version": info.protocol_version,
+            "sample_format": info.sample_format.name.lower(), "rate_hz": info.rate_hz,
+            "full_scale_v": [c.full_scale_v for c in info.channels],
+            "adc_bits": [c.adc_bits for c in info.channels],
+        },
+    }  # fmt: skip

@@ -1,0 +1,93 @@
+"""A guard for tests: notes every asyncio callback that blocks its event loop too long.
+
+Every callback an asyncio loop runs (a task step, a call_soon, a timer) goes through
+`asyncio.Handle._run`; `install()` wraps it to time each one. What counts is what the
+callback itself did, not what a loaded machine did to it:
+
+- computing: its thread's CPU time over LIMIT_S (not stretched by other processes);
+- blocking: wall time minus run-queue wait (descheduled, waiting for a CPU) over LIMIT_S,
+  spent in at most BLOCKING_SLICES scheduling slices, i.e. in one or two long waits (a sleep,
+  a join, a blocking read or lock). Waiting for the GIL while this process's other threads
+  run also keeps a thread off the CPU, but in many short waits (the interpreter hands the
+  GIL over every 5 ms), so a callback merely slowed by its neighbours is not counted.
+
+CPU time, run-queue wait and the number of slices come from Linux's per-thread scheduler
+statistics, ``/proc/thread-self/schedstat`` (Documentation/scheduler/sched-stats.rst in the
+kernel sources: time on the cpu and time waiting on a runqueue, in ns; timeslices run).
+"""
+
+from __future__ import annotations
+
+import asyncio
+import os
+import threading
+import time
+from typing import Any, Final
+
+LIMIT_S: Final = 0.100  # a callback that holds its loop longer than this fails the test
+BLOCKING_SLICES: Final = 4  # at most this many times scheduled: the time went in a few waits
+_SCHEDSTAT: Final = "/proc/thread-self/schedstat"
+
+slow: list[str] = []
+"""Callbacks that held their loop longer than LIMIT_S since the last `slow.clear()`."""
+_lock = threading.Lock()
+_local = threading.local()
+_original_run = asyncio.events.Handle._run
+
+
+class _StatFile:
+    """This thread's schedstat file, kept open (a pread costs about 2 µs); closed with the
+    thread's local storage."""
+
+    def __init__(self) -> None:
+        self.fd = os.open(_SCHEDSTAT, os.O_RDONLY)
+
+    def read(self) -> tuple[float, float, int]:
+        """(s on a CPU, s waiting on a run queue, slices run) since this thread started."""
+        on_cpu, queued, slices = os.pread(self.fd, 128, 0).split()[:3]
+        return int(on_cpu) / 1e9, int(queued) / 1e9, int(slices)
+
+    def __del__(self) -> None:
+        os.close(self.fd)
+
+
+def _stat() -> _StatFile:
+    stat: _StatFile | None = getattr(_local, "stat", None)
+    if stat is None:
+        stat = _local.stat = _StatFile()
+    return stat
+
+
+def _timed_run(self: asyncio.Handle) -> None:
+    stat = _stat()
+    before, t0 = stat.read(), time.perf_counter()
+    try:
+        _original_run(self)
+    finally:
+        wall = time.perf_counter() - t0
+        if wall > LIMIT_S:  # only then is the second read worth it
+            verdict = held(wall, before, stat.read())
+            if verdict:
+                with _lock:
+                    slow.append(f"{self!r} {verdict}")
+
+
+def held(wall: float, before: tuple[float, float, int], after: tuple[float, float, int]) -> str:
+    """Why a callback of `wall` seconds held its loop, or "" if it did not (module docstring);
+    `before` and `after` are `_StatFile.read()` around it."""
+    cpu, queued, slices = (a - b for a, b in zip(after, before, strict=True))
+    waited = wall - queued - cpu
+    if cpu > LIMIT_S:
+        return f"computed {cpu * 1e3:.0f} ms (wall {wall * 1e3:.0f} ms)"
+    if cpu + waited > LIMIT_S and slices <= BLOCKING_SLICES:
+        return (f"held its loop {(cpu + waited) * 1e3:.0f} ms in {int(slices)} slices "
+                f"(wall {wall * 1e3:.0f} ms)")  # fmt: skip
+    return ""
+
+
+def install() -> None:
+    """Time every asyncio callback from now on (Linux with scheduler statistics only)."""
+    if not os.path.exists(_SCHEDSTAT):
+        raise RuntimeError(f"{_SCHEDSTAT} is missing: the event-loop guard needs Linux schedstat")
+    handle: Any = asyncio.events.Handle
+    handle._run = _timed_run

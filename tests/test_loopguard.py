@@ -1,0 +1,55 @@
+"""The event-loop guard itself (tests/loopguard.py): it must catch a blocking callback and
+must not count a short one."""
+
+from __future__ import annotations
+
+import asyncio
+import threading
+import time
+
+from tests import loopguard
+
+
+def _run(callback: object) -> list[str]:
+    async def main() -> None:
+        loop = asyncio.get_running_loop()
+        done = loop.create_future()
+        loop.call_soon(lambda: (callback(), done.set_result(None)))  # type: ignore[operator]
+        await done
+
+    loopguard.slow.clear()
+    asyncio.run(main())
+    found = list(loopguard.slow)
+    loopguard.slow.clear()  # the test's own blocking is the point here; the autouse guard passes
+    return found
+
+
+def test_a_callback_waiting_on_a_lock_is_caught() -> None:
+    """Blocked in a wait (no CPU, not on a run queue): the loop is held for the whole wait."""
+    held = threading.Event()
+    found = _run(lambda: held.wait(0.25))
+    assert len(found) == 1 and "held its loop" in found[0], found
+
+
+def test_a_callback_computing_is_caught() -> None:
+    def spin() -> None:  # 250 ms of this thread's own CPU time, however loaded the machine
+        end = time.thread_time() + 0.25
+        while time.thread_time() < end:
+            pass
+
+    found = _run(spin)
+    assert len(found) == 1 and "computed" in found[0], found
+
+
+def test_time_lost_to_the_machine_or_to_neighbour_threads_is_not_counted() -> None:
+    """The verdict on made-up scheduler figures (s on CPU, s queued, slices): 150 ms waiting
+    for a CPU is the machine's load; 150 ms off the CPU in 30 slices is GIL hand-overs."""
+    start = (1.0, 1.0, 100)
+    assert loopguard.held(0.16, start, (1.005, 1.155, 102)) == ""  # descheduled
+    assert loopguard.held(0.16, start, (1.010, 1.0, 130)) == ""  # many short waits
+    assert "held its loop" in loopguard.held(0.16, start, (1.005, 1.0, 102))  # one long wait
+    assert "computed" in loopguard.held(0.16, start, (1.150, 1.0, 140))
+
+
+def test_a_short_callback_passes() -> None:
+    assert _run(lambda: threading.Event().wait(0.01)) == []
