@@ -27,8 +27,10 @@ The token file
 Failed attempts
 ---------------
 Failures are counted per peer address; after `max_failures` (5) within `window_s` (60 s) the
-peer is refused for `lockout_s` (60 s), its right token too, with `AuthResult.LOCKED` (HTTP 429,
-`retry_after` for the Retry-After header). A missing header is not an attempt and does not
+peer's wrong or missing tokens are refused for `lockout_s` (60 s) with `AuthResult.LOCKED` (HTTP
+429, `retry_after` for the Retry-After header). A request carrying the right token is never
+locked out: several users may share one address (a shop behind NAT), and one misconfigured
+client must not shut out the rest. A missing header is not an attempt and does not
 count; neither does a success, which also does not wipe earlier failures (on a shared address
 it would let one client clear another's record). With 256-bit tokens guessing is hopeless
 anyway; the limit keeps a misconfigured or hostile client from filling logs and CPU. Times
@@ -87,7 +89,7 @@ class AuthResult(enum.Enum):
     MISSING = "missing"  # no Authorization header (not counted as a failure)
     MALFORMED = "malformed"  # not "Bearer <token>" (counted)
     WRONG = "wrong"  # a well-formed but wrong token (counted)
-    LOCKED = "locked"  # too many failures from this peer: refused whatever it sends
+    LOCKED = "locked"  # too many failures from this peer: refused unless the token is right
     UNAVAILABLE = "unavailable"  # the token file went missing or unsafe since start
 
     def __bool__(self) -> bool:
@@ -324,22 +326,22 @@ class Auth:
         """
         t = time.monotonic() if now is None else now
         key = _peer_key(peer)
-        if self._locked(key, t):
-            return AuthResult.LOCKED
         token = self._current()
         if token is None:
             return AuthResult.UNAVAILABLE
+        presented = _parse_bearer(authorization) if authorization else None
+        if presented is not None and hmac.compare_digest(
+            presented.encode("ascii"), token.encode("ascii")
+        ):
+            # The right token always gets in: a lockout is for the peer address, and several
+            # users (a shop behind one NAT address) may share it with a misconfigured client.
+            return AuthResult.OK
+        if self._locked(key, t):
+            return AuthResult.LOCKED
         if not authorization:
             return AuthResult.MISSING
-        presented = _parse_bearer(authorization)
-        if presented is None:
-            result = AuthResult.MALFORMED
-        elif hmac.compare_digest(presented.encode("ascii"), token.encode("ascii")):
-            return AuthResult.OK
-        else:
-            result = AuthResult.WRONG
         self._fail(key, t)
-        return result
+        return AuthResult.MALFORMED if presented is None else AuthResult.WRONG
 
     def retry_after(self, peer: str, now: float | None = None) -> float:
         """Seconds until `peer` may try again (0.0 if it is not locked out)."""

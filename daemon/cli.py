@@ -266,7 +266,7 @@ def pair(
     set_: SetOption = None,
     host: Annotated[
         str | None,
-        typer.Option(help="address workstations reach the rig at (default: its LAN address)"),
+        typer.Option(help="address workstations reach the rig at (default: where it listens)"),
     ] = None,
     rotate: Annotated[
         bool, typer.Option("--rotate", help="make a new token; paired workstations must pair again")
@@ -275,13 +275,12 @@ def pair(
     """Print the pairing address and a QR code for a phone camera."""
     from .config import load_config
     from .errors import TaprigError
-    from .pairing import pair_command_output
+    from .pairing import pair_command_output, reach
 
     try:
         cfg = load_config(config, set_ or [])
-        text = pair_command_output(
-            cfg.store.data_dir, host or _lan_address(), cfg.service.port or 8470, rotate
-        )
+        where = reach(cfg.store.data_dir, cfg.service.bind, cfg.service.port, _lan_address, host)
+        text = pair_command_output(cfg.store.data_dir, where.host, where.port, rotate, where.notes)
     except (TaprigError, ValueError) as exc:
         typer.echo(f"taprigd: {exc}", err=True)
         raise typer.Exit(code=getattr(exc, "exit_code", 2)) from None

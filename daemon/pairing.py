@@ -5,13 +5,17 @@ what ``taprigd pair`` prints. The token itself is daemon/auth.py's.
 from __future__ import annotations
 
 import ipaddress
+import os
 import re
+from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Final
 
 import numpy as np
 import segno
 
+from . import identity
 from .auth import Auth, replace_token_file
 
 QUIET_ZONE: Final = 4
@@ -71,7 +75,70 @@ def _url_host(host: str) -> str:
     return f"[{str(addr).replace('%', '%25')}]" if addr.version == 6 else str(addr)
 
 
-def pair_command_output(state_dir: Path, host: str, port: int, rotate: bool) -> str:
+DEFAULT_PORT: Final = 8470  # the service's port when the configuration leaves it to the OS
+
+
+@dataclass(frozen=True, slots=True)
+class Reach:
+    """Where a phone or workstation reaches this rig's service, and anything to tell about it."""
+
+    host: str
+    port: int
+    notes: tuple[str, ...] = ()
+
+
+def reach(
+    state_dir: Path, bind: str, port: int, lan_address: Callable[[], str], host: str | None = None
+) -> Reach:
+    """The address `taprigd pair` prints: where the running daemon really listens.
+
+    The run file (daemon/identity.py) of a live daemon gives its bind address and port; without
+    one, the configuration's `bind` and `port` (0: `DEFAULT_PORT`) are all there is, and the
+    notes say so. A daemon bound to loopback is reached at loopback (only from this machine);
+    one bound to every address (0.0.0.0, ::) at `lan_address()`. `host` overrides the host.
+    """
+    notes: list[str] = []
+    record = identity.read_run_file(state_dir)
+    if record is not None and _alive(record.get("pid")):
+        bind, port = str(record.get("bind", bind)), int(record.get("port", port))
+    else:
+        port = port or DEFAULT_PORT
+        notes.append(f"taprigd is not running with this state folder ({state_dir}): the address "
+                     f"uses the configured port {port}; start taprigd before pairing a phone.")  # fmt: skip
+    if host is not None:
+        return Reach(host, port, tuple(notes))
+    if bind in ("", "0.0.0.0", "::"):
+        return Reach(lan_address(), port, tuple(notes))
+    if bind == "localhost" or _is_loopback(bind):
+        notes.append("taprigd listens on loopback only: only this machine can reach it. For a "
+                     "phone, set service.bind to a LAN address or 0.0.0.0 and restart it.")  # fmt: skip
+        return Reach("127.0.0.1" if bind == "localhost" else bind, port, tuple(notes))
+    return Reach(bind, port, tuple(notes))
+
+
+def _is_loopback(host: str) -> bool:
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
+def _alive(pid: object) -> bool:
+    """Whether process `pid` runs (a stale run file names one that does not)."""
+    if not isinstance(pid, int) or pid <= 0:
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # it runs, as another user (the service's own)
+    return True
+
+
+def pair_command_output(
+    state_dir: Path, host: str, port: int, rotate: bool, notes: tuple[str, ...] = ()
+) -> str:
     """What ``taprigd pair`` prints: the pairing URL as a QR code and as text.
 
     rotate: first replace the token (without reading the old file, so this also mends an
@@ -98,5 +165,6 @@ def pair_command_output(state_dir: Path, host: str, port: int, rotate: bool) -> 
         "The address holds the rig's access token: whoever has it can read everything",
         "this rig stores. Keep it private; `taprigd pair --rotate` makes a new token and",
         "shuts out every workstation paired before.",
+        *(["", *notes] if notes else []),
     ]
     return "\n".join(lines) + "\n"

@@ -25,6 +25,12 @@ Outcome = tuple[int, dict[str, Any], dict[str, str]]
 """A handler's answer before it becomes a response: (status, JSON body, headers)."""
 
 
+UNAUTHORIZED: Final = (
+    "this rig does not know that token (missing, mistyped or replaced): "
+    "pair again with `taprigd pair`"
+)
+
+
 class ApiError(Exception):
     """A request the service refuses: status, a short machine code, a sentence."""
 
@@ -74,7 +80,10 @@ def error_of(exc: BaseException) -> Outcome:
             log.error("request failed", exc_info=exc)
             text = "internal error; see the daemon's log"
     if status == 401:
-        return status, {"error": "unauthorized"}, {"WWW-Authenticate": "Bearer", **headers}
+        # One answer for a missing, malformed or wrong token: it tells a guesser nothing, and
+        # tells an operator whose token was replaced what to do.
+        body = {"error": "unauthorized", "message": UNAUTHORIZED}
+        return status, body, {"WWW-Authenticate": "Bearer", **headers}
     return status, {"error": code, "message": text}, headers
 
 

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import datetime as dt
 from collections.abc import Sequence
-from dataclasses import dataclass, field
-from typing import Any
+from dataclasses import dataclass, field, replace
+from typing import Any, Final
 
 import numpy as np
 
@@ -27,7 +27,15 @@ from ..records import (
     RovingMode,
     StoredHit,
 )
-from .spectra import SpectralAverager, WindowSettings, hit_spectra, single_average_warning
+from .spectra import (
+    HitSpectra,
+    SpectralAverager,
+    WindowSettings,
+    hit_spectra,
+    single_average_warning,
+)
+
+UNDONE: Final = "undone by the operator"
 
 
 def utc_now() -> str:
@@ -91,13 +99,31 @@ class Session:
         self.cursor = next((p for p in self.labels if p not in self.done), self.labels[0])
         self._new_point()
 
+    @property
+    def complete(self) -> bool:
+        """Every grid point has a stored point set: the test is done."""
+        return self.done.issuperset(self.labels)
+
+    @property
+    def again(self) -> bool:
+        """The cursor's point was measured before and the operator chose to measure it again."""
+        return self._again
+
     # --- cursor ---------------------------------------------------------------
 
     def goto(self, label: str) -> None:
+        """Move the cursor. A point already measured takes no taps until `measure_again`."""
         if label not in self.labels:
             raise NotFound(f"point {label!r} is not on the grid of test {self.plan.name!r}")
         self.cursor = label
         self._new_point()
+
+    def measure_again(self, label: str) -> None:
+        """Open a measured point for a new version, deliberately (the old one stays stored)."""
+        self.goto(label)
+        if label not in self.done:
+            raise SessionError(f"point {label} has not been measured yet: just tap it")
+        self._again = True
 
     def step(self, delta: int) -> None:
         """Next (+1) or previous (-1) point on the grid, wrapping round."""
@@ -106,7 +132,36 @@ class Session:
 
     def redo(self) -> None:
         """Start the current point again; a completed version stays in the store."""
+        again = self._again
         self._new_point()
+        self._again = again
+
+    def undo(self) -> int:
+        """Take back the last counted tap of the current point (a wrong Accept): it stays among
+        the point's hits as rejected by the operator. Returns the averages left.
+
+        A point's averages are summed again from the taps still counted, so the result is
+        exactly that of a point that never had the undone tap. SessionError when there is
+        nothing to take back (no tap counted here yet, or the point is complete and stored).
+        """
+        if not self._counted:
+            raise SessionError(
+                f"no counted tap to undo at {self.cursor}: a completed point is stored; "
+                "measure it again instead"
+            )
+        index, _ = self._counted.pop()
+        old = self._hits[index]
+        self._hits[index] = replace(old, accepted=False,
+                                    findings=(Finding("operator", UNDONE), *old.findings))  # fmt: skip
+        self._avg = SpectralAverager(len(self.responses), self.block, self.rate_hz)
+        for _, spectra in self._counted:
+            self._avg.add(spectra)
+        return self._avg.count
+
+    @property
+    def point_is_closed(self) -> bool:
+        """The cursor's point is measured and not opened again: a tap here is not stored."""
+        return self.cursor in self.done and not self._again
 
     @property
     def averages(self) -> int:
@@ -125,6 +180,12 @@ class Session:
     # --- hits -----------------------------------------------------------------
 
     def on_hit(self, record: HitRecord, verdict: HitVerdict) -> HitOutcome:
+        if self.point_is_closed:
+            # A stray tap after the point (or the whole test) was done: never a new version.
+            why = Finding("point_done", f"{self.cursor} is already measured; choose "
+                          "'measure again' to replace it")  # fmt: skip
+            closed = replace(verdict, accepted=False, rejections=(why, *verdict.rejections))
+            return self._outcome(closed, counted=False)
         if not verdict.accepted:
             self._keep(record, verdict, accepted=False)
             return self._outcome(verdict, counted=False)
@@ -163,6 +224,7 @@ class Session:
         )  # fmt: skip
         self._avg.add(spectra)
         self._tau_s = spectra.tau_s
+        self._counted.append((len(self._hits), spectra))
         self._keep(record, verdict, accepted=True)
         completed = None
         if self._avg.count >= self.plan.averages:
@@ -208,7 +270,9 @@ class Session:
     def _new_point(self) -> None:
         self._avg = SpectralAverager(len(self.responses), self.block, self.rate_hz)
         self._hits: list[StoredHit] = []
+        self._counted: list[tuple[int, HitSpectra]] = []  # (index in _hits, its spectra)
         self._waiting = None
+        self._again = False
         self._tau_s = float("inf")
 
     # --- the completed point set ---------------------------------------------

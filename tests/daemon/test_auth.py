@@ -220,12 +220,28 @@ def test_five_failures_lock_the_peer_out_for_the_window(state: Path) -> None:
         assert a.check(bearer("nope"), PEER, now=10.0 + i) is AuthResult.WRONG
     assert a.check(good, PEER, now=14.0) is AuthResult.OK  # 4 failures: still let in
     assert a.check("Basic x", PEER, now=14.5) is AuthResult.MALFORMED  # the 5th failure
-    locked = a.check(good, PEER, now=15.0)
+    locked = a.check(bearer("nope"), PEER, now=15.0)
     assert locked is AuthResult.LOCKED and locked.http_status == 429
+    assert a.check(None, PEER, now=15.0) is AuthResult.LOCKED
     assert a.retry_after(PEER, now=15.0) == pytest.approx(59.5)
-    assert a.check(good, PEER, now=74.49) is AuthResult.LOCKED
-    assert a.check(good, OTHER, now=15.0) is AuthResult.OK  # other peers are not affected
-    assert a.check(good, PEER, now=74.5) is AuthResult.OK  # 60 s after the 5th failure
+    assert a.check(bearer("nope"), PEER, now=74.49) is AuthResult.LOCKED
+    assert a.check(bearer("nope"), OTHER, now=15.0) is AuthResult.WRONG  # others unaffected
+    assert a.check(bearer("nope"), PEER, now=74.5) is AuthResult.WRONG  # 60 s after the 5th
+    assert a.retry_after(PEER, now=74.5) == 0.0
+
+
+def test_the_right_token_is_never_locked_out(state: Path) -> None:
+    """Several users behind one NAT address: one client's wrong token must not shut out
+    another's right one (the lockout refuses only what is not the token)."""
+    a = Auth(state)
+    good = bearer(a.token)
+    for i in range(5):
+        a.check(bearer("nope"), PEER, now=float(i))
+    assert a.check(bearer("nope"), PEER, now=5.0) is AuthResult.LOCKED
+    for t in (5.0, 30.0, 60.0):
+        assert a.check(good, PEER, now=t) is AuthResult.OK
+    assert a.check(bearer("nope"), PEER, now=60.5) is AuthResult.LOCKED  # still locked
+    assert a.check(bearer("nope"), PEER, now=64.5) is AuthResult.WRONG  # 60 s after the 5th
     assert a.retry_after(PEER, now=74.5) == 0.0
 
 
@@ -256,7 +272,7 @@ def test_failures_spread_beyond_the_window_do_not_lock(state: Path) -> None:
         assert a.check(bearer("nope"), PEER, now=t) is AuthResult.WRONG
     assert a.check(bearer(a.token), PEER, now=61.0) is AuthResult.OK
     assert a.check(bearer("nope"), PEER, now=62.0) is AuthResult.WRONG  # 5th within 60 s
-    assert a.check(bearer(a.token), PEER, now=63.0) is AuthResult.LOCKED
+    assert a.check(bearer("nope"), PEER, now=63.0) is AuthResult.LOCKED
 
 
 def test_missing_header_and_successes_do_not_count(state: Path) -> None:
@@ -277,12 +293,12 @@ def test_one_address_in_two_spellings_is_one_peer(state: Path) -> None:
     ]
     for i, peer in enumerate(spellings):
         a.check(bearer("nope"), peer, now=float(i))
-    assert a.check(bearer(a.token), "192.0.2.10", now=6.0) is AuthResult.LOCKED
+    assert a.check(bearer("nope"), "192.0.2.10", now=6.0) is AuthResult.LOCKED
     for i, peer in enumerate(
         ["2001:db8::1", "2001:DB8:0::1", "2001:db8::1", "2001:db8::1", "2001:0db8::1"]
     ):
         a.check(bearer("nope"), peer, now=float(i))
-    assert a.check(bearer(a.token), "2001:db8:0:0::1", now=6.0) is AuthResult.LOCKED
+    assert a.check(bearer("nope"), "2001:db8:0:0::1", now=6.0) is AuthResult.LOCKED
 
 
 def test_the_peer_table_is_bounded(state: Path) -> None:
@@ -312,10 +328,10 @@ def test_uses_the_monotonic_clock(state: Path, monkeypatch: pytest.MonkeyPatch) 
     monkeypatch.setattr(auth_mod, "time", FakeTime(clock))
     for _ in range(5):
         a.check(bearer("nope"), PEER)
-    assert a.check(bearer(a.token), PEER) is AuthResult.LOCKED
+    assert a.check(bearer("nope"), PEER) is AuthResult.LOCKED
     assert a.retry_after(PEER) == pytest.approx(60.0)
     clock[0] += 60.0
-    assert a.check(bearer(a.token), PEER) is AuthResult.OK
+    assert a.check(bearer("nope"), PEER) is AuthResult.WRONG
 
 
 # ---------------------------------------------------------------- rotation

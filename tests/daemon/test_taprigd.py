@@ -87,3 +87,51 @@ def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None
         code = proc.wait(timeout=15)
     assert code == 0
     assert not run_file.exists()
+
+
+def pair_output(data_dir: Path, *args: str) -> str:
+    done = subprocess.run(
+        [sys.executable, "-m", "taprig.daemon", "pair", "--set", f"store.data_dir={data_dir}",
+         *args],
+        capture_output=True, text=True, timeout=60,
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    assert "Traceback" not in done.stderr
+    return done.stdout
+
+
+def test_pair_prints_where_the_running_daemon_listens(tmp_path: Path) -> None:
+    """`taprigd pair` reads the run file: the port the daemon really bound (not the configured
+    8470) and, for a daemon bound to loopback, the loopback address, with a word on why."""
+    log = tmp_path / "taprigd.log"
+    with log.open("w") as err:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "taprig.daemon", "run", "--set", f"store.data_dir={tmp_path}",
+             "--set", "store.min_free_mb=1", "--set", "service.bind=127.0.0.1",
+             "--set", "service.port=0", "--set", "service.advertise=false"],
+            stdout=subprocess.DEVNULL, stderr=err,
+        )  # fmt: skip
+    run_file = tmp_path / "run.json"
+    try:
+        deadline = time.monotonic() + 30
+        while not run_file.exists():
+            assert proc.poll() is None, log.read_text()
+            assert time.monotonic() < deadline, "run.json never appeared"
+            time.sleep(0.05)
+        port = json.loads(run_file.read_text())["port"]
+        assert port != 8470
+        # The configuration pair reads says 8470 and every address; the run file wins.
+        out = pair_output(tmp_path, "--set", "service.port=8470", "--set", "service.bind=0.0.0.0")
+        token = (tmp_path / "token").read_text().strip()
+        assert f"  http://127.0.0.1:{port}/pair#token={token}\n" in out
+        assert "loopback only" in out
+        # The printed address works: the page is served there.
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/pair", timeout=5) as resp:
+            assert resp.status == 200
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(timeout=15)
+    assert code == 0, log.read_text()
+    # Without a running daemon: the configured port, and a note that it is not running.
+    out = pair_output(tmp_path, "--set", "service.port=8471", "--set", "service.bind=127.0.0.1")
+    assert ":8471/pair#token=" in out and "not running" in out
