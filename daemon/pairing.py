@@ -103,15 +103,19 @@ def reach(
         bind, port = str(record.get("bind", bind)), int(record.get("port", port))
     else:
         port = port or DEFAULT_PORT
-        notes.append(f"taprigd is not running with this state folder ({state_dir}): the address "
-                     f"uses the configured port {port}; start taprigd before pairing a phone.")  # fmt: skip
+        notes.append(
+            f"taprigd is not running with this state folder ({state_dir}): the "
+            f"address uses the configured port {port}; start taprigd before pairing."
+        )
     if host is not None:
         return Reach(host, port, tuple(notes))
     if bind in ("", "0.0.0.0", "::"):
         return Reach(lan_address(), port, tuple(notes))
     if bind == "localhost" or _is_loopback(bind):
-        notes.append("taprigd listens on loopback only: only this machine can reach it. For a "
-                     "phone, set service.bind to a LAN address or 0.0.0.0 and restart it.")  # fmt: skip
+        notes.append(
+            "taprigd listens on loopback only: only this machine can reach it. For "
+            "a phone, set service.bind to a LAN address or 0.0.0.0 and restart it."
+        )
         return Reach("127.0.0.1" if bind == "localhost" else bind, port, tuple(notes))
     return Reach(bind, port, tuple(notes))
 

@@ -33,7 +33,7 @@ from taprig.firmware_protocol import (
     StatusReceived,
 )
 
-from . import resume, stages
+from . import resume, stages, tally
 from .capture.acquire import Acquirer
 from .capture.hits import check_hit
 from .capture.link import LinkChange, LinkState, SerialLink
@@ -63,6 +63,7 @@ class Rig:
         self.stats = RigStats()
         self.info: DeviceInfo | None = None
         self.link_state = LinkState.CONNECTING
+        self.link_detail = "opening the device"
         self.armed = False
         self.session: Session | None = None
         self._decoder = stages.decoder(config)
@@ -89,6 +90,7 @@ class Rig:
         self._next_disk_check = 0.0
         self._room = Room(store.path.parent, config.store.min_free_mb)
         self._resume: dict[str, Any] | None = None
+        self._tally: dict[str, Any] | None = None  # the selected test's, once it is complete
         self._latencies: tuple[float, ...] = ()
         self._view_lock = threading.Lock()
         self._view = self._make_view()
@@ -116,6 +118,13 @@ class Rig:
         record = resume.read(self.store.path.parent)
         if record is None:
             return False
+        self.open_when_ready(record["test"], bool(record.get("armed")), resumed=True)
+        return True
+
+    def open_when_ready(self, test: str, arm: bool, *, resumed: bool = False) -> None:
+        """Select `test` (and arm) now if the device has identified itself, else as soon as it
+        does; the service runs meanwhile and the state says what the rig waits for."""
+        record = {"test": test, "armed": arm, "resumed": resumed}
 
         def now_or_when_identified() -> None:
             if self._acq is not None:
@@ -124,7 +133,6 @@ class Rig:
                 self._resume = record
 
         self.call(now_or_when_identified)
-        return True
 
     def subscribe(self, observer: Callable[[RigEvent], None]) -> None:
         """`observer` is called on the processing thread: it must return quickly."""
@@ -171,6 +179,14 @@ class Rig:
 
     def redo(self) -> None:
         self.call(lambda: self._cursor(lambda s: s.redo()))
+
+    def undo(self) -> None:
+        """Take back the last counted tap of the current point (SessionError if none)."""
+        self.call(lambda: self._cursor(lambda s: s.undo()))
+
+    def measure_again(self, label: str) -> None:
+        """Open a measured point for a new version: the only way a done point takes taps."""
+        self.call(lambda: self._cursor(lambda s: s.measure_again(label)))
 
     def goto(self, label: str) -> None:
         self.call(lambda: self._cursor(lambda s: s.goto(label)))
@@ -236,7 +252,7 @@ class Rig:
                 fut.set_exception(exc)
 
     def _link_change(self, change: LinkChange) -> None:
-        self.link_state = change.state
+        self.link_state, self.link_detail = change.state, change.detail
         self._emit("device", {"state": change.state.value, "detail": change.detail})
         if change.state is LinkState.CONNECTED and change.detail.startswith("opened"):
             self._decoder.reset_link()
@@ -285,14 +301,15 @@ class Rig:
     def _carry_on(self, record: dict[str, Any]) -> None:
         """Select and arm as the previous run left it; a failure is reported, not raised."""
         self._resume = None
-        name = record["test"]
+        name, resumed = record["test"], record.get("resumed", True)
         try:
             self._select(name)
-            if record.get("armed"):
+            if record.get("armed") and not self._need_session().complete:
                 self._arm()
-            text = f"carried on with test {name} as the previous run left it"
+            text = (f"carried on with test {name} as the previous run left it" if resumed
+                    else f"device ready: test {name} opened")  # fmt: skip
         except TaprigError as exc:  # the test was deleted, the disk is low, ...
-            text = f"could not carry on with test {name}: {exc}"
+            text = f"could not {'carry on with' if resumed else 'open'} test {name}: {exc}"
         log.info("%s", text)
         self._emit("message", {"text": text})
 
@@ -311,7 +328,18 @@ class Rig:
         self._emit("hit", hit_fields(outcome, as_pairs=True))
         if outcome.completed is not None:
             self._commit(outcome.completed)
+            if self.session is not None and self.session.complete:
+                self._finish(self.session)
         return outcome
+
+    def _finish(self, session: Session) -> None:
+        """The last point is in: disarm (a stray tap must not make a new version) and say so."""
+        self.armed = self.waiting_for_room = False
+        self._keep_session()
+        self._tally = tally.test_tally(self.store, session.plan.name, len(session.labels))
+        log.info("test %s complete: %s", session.plan.name, self._tally)
+        self._emit("test_complete", self._tally)
+        self._emit("cursor", self._snapshot())
 
     def _remember(self, outcome: HitOutcome) -> None:
         """Keep a display-sized view of the last hit (and the point's FRF so far)."""
@@ -349,6 +377,8 @@ class Rig:
             raise SessionError("the device has not identified itself yet; check the link")
         done = [s.point for s in self.store.list_point_sets(test=name, latest_only=True)]
         self.session = stages.session(self.config, plan, self.info, done)
+        complete = self.session.complete
+        self._tally = tally.test_tally(self.store, name, len(plan.grid)) if complete else None
         warning = single_average_warning(plan.averages)
         if warning:
             log.warning("test %s: %s", name, warning)
@@ -364,7 +394,11 @@ class Rig:
                     self.armed or self.waiting_for_room)  # fmt: skip
 
     def _arm(self) -> None:
-        self._need_session()
+        session = self._need_session()
+        if session.point_is_closed and session.complete:
+            raise SessionError(f"test {session.plan.name} is complete: pull it from a "
+                               "workstation, start a new test, or choose a point and "
+                               "measure it again")  # fmt: skip
         if self._room.low():
             # Refused, but the wish is kept: an unattended rig carries on once room returns.
             self.waiting_for_room = True
@@ -407,18 +441,23 @@ class Rig:
     def _cursor(self, move: Callable[[Session], None]) -> None:
         session = self._need_session()
         move(session)
+        if not session.complete:
+            self._tally = None
         self._emit("cursor", self._snapshot())
 
     def _snapshot(self) -> dict[str, Any]:
         s, free = self.session, self._room.free_mb
         st = self._decoder.stats
         return {
-            "device": self.url, "state": self.link_state.value, "armed": self.armed,
+            "device": self.url, "state": self.link_state.value, "detail": self.link_detail,
+            "identified": self.info is not None, "armed": self.armed,
             "rate_hz": self.info.rate_hz if self.info else None,
             "test": s.plan.name if s else None, "point": s.cursor if s else None,
             "averages": s.averages if s else 0,
             "required": s.plan.averages if s else 0, "waiting": s.waiting if s else False,
-            "done": sorted(s.done) if s else [],
+            "done": sorted(s.done) if s else [], "complete": s.complete if s else False,
+            "again": s.again if s else False, "can_undo": s.can_undo if s else False,
+            "tally": self._tally,
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
                      "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},

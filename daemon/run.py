@@ -16,8 +16,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
+from .capture.link import LinkState
 from .config import Config
-from .errors import DiskLowError, SessionError
 from .grid import import_grid_csv
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
@@ -27,7 +27,7 @@ from .running import RunningRig
 
 log = logging.getLogger("taprig.daemon")
 
-DEVICE_WAIT_S = 30.0  # how long `--test` waits for the device to identify itself, seconds
+SETTLE_S = 3.0  # longest the service waits for `--test` to open on a device that is there, s
 
 
 @dataclass(frozen=True)
@@ -105,8 +105,8 @@ async def _until_stopped(running: RunningRig, opt: RunOptions, stop: asyncio.Eve
 
 
 def open_test(running: RunningRig, opt: RunOptions) -> None:
-    """Create the test if asked (from `--grid` or the virtual device's model), select it
-    once the device has identified itself, and arm (a low disk only defers arming)."""
+    """Create the test if asked (from `--grid` or the virtual device's model); select it and
+    arm once the device has identified itself."""
     rig, vi, name = running.rig, running.instrument, opt.test
     assert name is not None
     known = {t.name for t in running.store.list_tests()}
@@ -122,12 +122,10 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
         sensor_points = dict(vi.model.sensors) if vi is not None else None
         rig.create_test(name, points, opt.roving, opt.reference,
                         sensor_points=sensor_points)  # fmt: skip
-    wait_for_device(rig)
-    rig.select_test(name)
-    try:
-        rig.arm()
-    except DiskLowError as exc:  # serve what is stored; the rig arms itself when room returns
-        log.warning("%s", exc)
+    # Opened and armed once the device identifies itself: the service and the page run
+    # meanwhile and say what the rig waits for (a low disk only defers arming).
+    rig.open_when_ready(name, arm=True)
+    settle(rig, name)
 
 
 def simulated_tap(running: RunningRig) -> None:
@@ -141,14 +139,16 @@ def simulated_tap(running: RunningRig) -> None:
     vi.tap(point)
 
 
-def wait_for_device(rig: Rig, timeout_s: float = DEVICE_WAIT_S) -> None:
-    """Return once the device has identified itself; SessionError after `timeout_s`."""
+def settle(rig: Rig, test: str, timeout_s: float = SETTLE_S) -> None:
+    """Give a device that is there a moment to identify itself, so the service opens with
+    `test` selected; return at once when the device cannot be opened (the state says why)."""
     import time
 
     deadline = time.monotonic() + timeout_s
-    while rig.view().info is None:
-        if time.monotonic() > deadline:
-            raise SessionError(
-                f"the device at {rig.url} did not identify itself in {timeout_s:g} s"
-            )
+    while time.monotonic() < deadline:
+        view = rig.view()
+        if (view.plan is not None and view.plan.name == test) or (
+            view.link_state is LinkState.DISCONNECTED
+        ):
+            return
         time.sleep(0.05)  # polling a thread's published state; there is nothing to wait on

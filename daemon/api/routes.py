@@ -100,6 +100,15 @@ ACTIONS: Final[dict[str, tuple[str, Payload]]] = {
     "accept": _control("accept the hit waiting for a decision"),
     "reject": _control("reject the hit waiting for a decision"),
     "redo": _control("discard the averages of the current point and measure it again"),
+    "undo": _control(
+        "take back the last counted tap of the current point (a wrong accept); "
+        "409 when none is left or the point is complete"
+    ),
+    "remeasure": _control(
+        "open a point already measured for a new version, deliberately; the "
+        "cursor goes there and the old version stays stored",
+        point=LABEL,
+    ),
     "next": _control("move the cursor to the next point"),
     "previous": _control("move the cursor to the previous point"),
     "goto": _control("move the cursor to a point of the selected test", point=LABEL),

@@ -322,6 +322,8 @@ class Service:
             "next": functools.partial(rig.step, 1), "previous": functools.partial(rig.step, -1),
             "select": functools.partial(rig.select_test, body.get("test", "")),
             "goto": functools.partial(rig.goto, body.get("point", "")),
+            "undo": rig.undo,
+            "remeasure": functools.partial(rig.measure_again, body.get("point", "")),
         }  # fmt: skip
         out: Payload = {"action": action, "request_id": body["request_id"]}
         if action in ("accept", "reject"):

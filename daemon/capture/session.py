@@ -151,12 +151,17 @@ class Session:
             )
         index, _ = self._counted.pop()
         old = self._hits[index]
-        self._hits[index] = replace(old, accepted=False,
-                                    findings=(Finding("operator", UNDONE), *old.findings))  # fmt: skip
+        undone = (Finding("operator", UNDONE), *old.findings)
+        self._hits[index] = replace(old, accepted=False, findings=undone)
         self._avg = SpectralAverager(len(self.responses), self.block, self.rate_hz)
         for _, spectra in self._counted:
             self._avg.add(spectra)
         return self._avg.count
+
+    @property
+    def can_undo(self) -> bool:
+        """A tap counted at the current point can be taken back."""
+        return bool(self._counted)
 
     @property
     def point_is_closed(self) -> bool:

@@ -136,8 +136,11 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     # coherence: clean taps on a noiseless-ish panel are coherent at the first mode
     f1 = int(np.argmin(np.abs(b3.freq_hz - vi.model.freqs_hz[0])))
     assert b3.coherence[0, f1] > 0.99
-    # measure B3 again: a new version, the old one kept
-    r.rig.goto("B3")
+    # The last point in: the test is complete and the rig disarmed itself.
+    assert ev.next("test_complete").data["points"] == 3 and not r.rig.view().armed
+    # measure B3 again, deliberately: a new version, the old one kept
+    r.rig.measure_again("B3")
+    r.rig.arm()
     for _ in range(3):
         tap_and_wait(r, ev, "B3", force_n=30.0)
     again = ev.next("completed")
@@ -162,11 +165,15 @@ def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
     assert r.store.list_point_sets() == []
 
 
-def test_operator_accept_policy(tmp_path: Path) -> None:
+def small_rig(tmp_path: Path, *settings: str) -> RunningRig:
+    """A rig on the damped panel: 4096-sample blocks, two averages, `settings` added."""
     cfg = load_config(None, [f"store.data_dir={tmp_path}", "capture.block=4096",
-                             "capture.averages=2", "capture.accept=operator",
-                             "store.min_free_mb=1"])  # fmt: skip
-    r = start_rig(cfg, model=DAMPED)
+                             "capture.averages=2", "store.min_free_mb=1", *settings])  # fmt: skip
+    return start_rig(cfg, model=DAMPED)
+
+
+def test_operator_accept_policy(tmp_path: Path) -> None:
+    r = small_rig(tmp_path, "capture.accept=operator")
     try:
         assert r.instrument is not None
         ev = Events(r)

@@ -38,12 +38,12 @@ GRID = tuple(GridPoint(label, 0.1 * i, 0.0, 0.0) for i, label in enumerate(["A1"
 WINDOWS = WindowSettings(force_margin_s=0.005, force_taper_s=0.001, exp_end_value=None)
 
 
-def hit(peak_n: float, first_index: int = 0) -> tuple[HitRecord, HitVerdict]:
+def hit(peak_n: float, first_index: int = 0, gain: float = GAIN) -> tuple[HitRecord, HitVerdict]:
     """One hit of the gain-and-delay system, with an accepting verdict."""
     k = np.arange(BLOCK)
     force = np.where((k >= PRE) & (k < PRE + WIDTH), np.sin(np.pi * (k - PRE + 0.5) / WIDTH), 0.0)
     force *= peak_n
-    response = GAIN * np.roll(force, DELAY)  # the pulse ends far from the block's end: no wrap
+    response = gain * np.roll(force, DELAY)  # the pulse ends far from the block's end: no wrap
     data = np.vstack([force, response])
     record = HitRecord(first_index, first_index + PRE, RATE_HZ, data, (False, False),
                        (False, False), gap=False)  # fmt: skip
@@ -176,3 +176,90 @@ def test_roving_sensor_mode_drives_at_the_reference() -> None:
 def test_an_empty_grid_is_refused() -> None:
     with pytest.raises(SessionError, match="empty grid"):
         Session(Plan("empty", (), RovingMode.HAMMER, "A1", 1), CHANNELS, RATE_HZ, BLOCK, WINDOWS)
+
+
+def test_the_last_point_completes_the_test_and_a_stray_tap_is_not_stored() -> None:
+    """Once every point is in, a tap makes no new version: it is refused with a reason."""
+    s = session(averages=1)
+    assert not s.complete
+    for _ in GRID:
+        assert s.on_hit(*hit(100.0)).completed is not None
+    assert s.complete and s.done == {"A1", "A2", "A3"} and s.cursor == "A3"
+    stray = s.on_hit(*hit(100.0))
+    assert stray.completed is None and not stray.counted and not stray.verdict.accepted
+    assert stray.verdict.rejections[0].code == "point_done"
+    assert "measure again" in stray.verdict.rejections[0].message
+    assert s.averages == 0 and s.point_is_closed
+    # Going to another measured point does not open it either.
+    s.goto("A1")
+    assert s.on_hit(*hit(100.0)).verdict.rejections[0].code == "point_done"
+
+
+def test_measuring_again_is_deliberate_and_makes_one_new_version() -> None:
+    s = session(averages=2, done=("A1", "A2", "A3"))
+    assert s.complete and s.point_is_closed
+    with pytest.raises(NotFound):
+        s.measure_again("Z9")
+    s.measure_again("A2")
+    assert s.cursor == "A2" and s.again and not s.point_is_closed
+    s.redo()  # starting the point over keeps it open
+    assert s.again
+    assert s.on_hit(*hit(100.0)).counted
+    ps = s.on_hit(*hit(100.0)).completed
+    assert ps is not None and ps.point == "A2" and ps.n_averages == 2
+    # Done again: closed to taps, the test still complete.
+    assert s.complete and not s.again and s.point_is_closed
+    assert s.on_hit(*hit(100.0)).verdict.rejections[0].code == "point_done"
+
+
+def test_measure_again_of_an_open_point_says_to_just_tap_it() -> None:
+    s = session()
+    with pytest.raises(SessionError, match="not been measured yet"):
+        s.measure_again("A2")
+
+
+def test_undo_takes_back_a_wrong_accept_exactly() -> None:
+    """Operator accept: a tap with a wrong response (gain 5, as if the sensor had come loose)
+    is accepted by mistake and undone. The point's H1 is then that of the gain-and-delay
+    system exactly, g·exp(−2πi k d / N) (the DFT's shift theorem), as if the tap had never been
+    counted; the undone tap stays among the point's hits, rejected by the operator."""
+    s = session(averages=2, auto=False)
+    with pytest.raises(SessionError, match="no counted tap to undo"):
+        s.undo()
+    s.on_hit(*hit(100.0))
+    s.accept()
+    s.on_hit(*hit(100.0, gain=5.0))
+    s.accept()
+    # Two averages were asked for: that accept completed the point, which undo cannot reach.
+    assert s.done == {"A1"} and not s.can_undo
+    with pytest.raises(SessionError, match="completed point is stored"):
+        s.undo()
+
+    s = session(averages=3, auto=False)
+    s.on_hit(*hit(100.0))
+    s.accept()
+    s.on_hit(*hit(120.0, gain=5.0))
+    s.accept()
+    assert s.averages == 2 and s.can_undo
+    assert s.undo() == 1 and s.averages == 1
+    s.on_hit(*hit(80.0))
+    s.accept()
+    s.on_hit(*hit(90.0))
+    ps = s.accept().completed
+    assert ps is not None and ps.n_averages == 3
+    k = np.arange(BLOCK // 2 + 1)
+    want = GAIN * np.exp(-2j * np.pi * k * DELAY / BLOCK)
+    live = ps.gff > 1e-9 * ps.gff.max()
+    np.testing.assert_allclose(ps.h1[0, live], want[live], rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(ps.coherence[0, live], 1.0, atol=1e-9)
+    assert [h.accepted for h in ps.hits] == [True, False, True, True]
+    assert [f.code for f in ps.hits[1].findings] == ["operator"]
+    assert ps.hits[1].peak_force_n == 120.0
+
+
+def test_undo_twice_goes_back_to_no_average() -> None:
+    s = session(averages=3)
+    s.on_hit(*hit(100.0))
+    s.on_hit(*hit(100.0))
+    assert s.undo() == 1 and s.undo() == 0
+    assert s.running_frf() is None and not s.can_undo
