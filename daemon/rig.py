@@ -347,10 +347,11 @@ class Rig:
         if record is None or session is None:
             return
         c = outcome.completed
-        frf = (c.freq_hz, c.h1, c.coherence) if c is not None else session.running_frf()
+        frf = (c.freq_hz, c.h1, c.coherence, c.gff) if c is not None else session.running_frf()
         labels = tuple(ch.label for ch in session.channels)
         view = last_hit_view(record.data, record.rate_hz, record.first_index, labels,
-                             *(frf if frf is not None else (None, None, None)))  # fmt: skip
+                             *(frf if frf is not None else (None, None, None, None)),
+                             force=session.force)  # fmt: skip
         view.update(hit_fields(outcome, as_pairs=False))
         self.last_hit = view
 

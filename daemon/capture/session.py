@@ -172,11 +172,12 @@ class Session:
     def averages(self) -> int:
         return self._avg.count
 
-    def running_frf(self) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-        """(freq Hz, H1 (n_resp, n_freq), γ²) of the current point so far; None before one."""
+    def running_frf(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+        """(freq Hz, H1 (n_resp, n_freq), γ², Gff (n_freq,) N²/Hz) of the current point so
+        far; None before one."""
         if self._avg.count == 0:
             return None
-        return self._avg.freq_hz, self._avg.h1(), self._avg.coherence()
+        return self._avg.freq_hz, self._avg.h1(), self._avg.coherence(), self._avg.gff
 
     @property
     def waiting(self) -> bool:
