@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-
 from scipy.optimize import brentq
 
 from taprig.daemon.display import bucket_spectrum, envelope, force_zoom, last_hit_view
