@@ -21,7 +21,9 @@ PREFIX: Final = "/v1"
 JSON: Final = "application/json"
 EVENT_STREAM: Final = "text/event-stream"
 MAX_WAIT_S: Final = 30.0  # longest long-poll of /v1/changes, seconds
-HEARTBEAT_S: Final = 15.0  # comment line on an idle event stream, seconds
+# A comment line on an idle event stream, seconds: often enough that a phone notices lost
+# Wi-Fi within 5 s (daemon/web/link.js gives up after 4 s of silence); a few bytes each.
+HEARTBEAT_S: Final = 1.5
 Payload = dict[str, Any]
 
 # ---------------------------------------------------------------- schemas (JSON Schema 2020-12)

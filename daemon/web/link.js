@@ -5,7 +5,9 @@
 
 const TOKEN_KEY = "taprig.token";
 const TOKEN_RE = /^[A-Za-z0-9_-]{32,128}$/;
-const SILENCE_MS = 40000; // the rig sends a heartbeat every 15 s: past this the stream is dead
+// The rig sends a heartbeat every 1.5 s (daemon/api/routes.py): past this the stream is dead,
+// so lost Wi-Fi shows within 5 s, and a heartbeat may come a whole beat late first.
+const SILENCE_MS = 4000;
 const COMMAND_TRIES_MS = 15000; // how long a command is retried over a failing network
 
 /** The token from `text`: a pairing address (…#token=…) or the bare token; null if neither. */
@@ -105,7 +107,7 @@ export class EventStream {
     document.addEventListener("visibilitychange", () => {
       if (document.visibilityState !== "visible") return;
       // A phone that slept may hold a connection that died meanwhile: start a fresh one.
-      if (this.controller && Date.now() - this.heard > 20000) this.controller.abort();
+      if (this.controller && Date.now() - this.heard > SILENCE_MS) this.controller.abort();
       this.now();
     });
   }

@@ -17,6 +17,7 @@ const REASON = {
   gap: "Samples lost",
   too_soft: "Too soft",
   operator: "Rejected by you",
+  point_done: "Already measured",
 };
 
 const model = {
@@ -91,6 +92,43 @@ function linkStatus(state, detail) {
 async function catchUp() {
   // After every (re)connection: whatever happened while the stream was down.
   await Promise.allSettled([refreshState(), refreshLastHit()]);
+  const s = model.session;
+  const last = model.last;
+  // A tap still waiting for a decision (the page was reloaded, or the phone was away):
+  // show its verdict and the choice again.
+  if (s && s.waiting && last && last.waiting && last.point === s.point) {
+    model.verdict = { ...verdictOf(asEvent(last)), point: last.point };
+  } else if (s && s.complete && !s.again && s.tally) {
+    model.verdict = finishedVerdict(s.tally);
+  }
+  render();
+}
+
+/** The last-hit view's findings ({code, message}) as a hit event's ([code, message]). */
+function asEvent(view) {
+  const pairs = (fs) => (fs || []).map((f) => [f.code, f.message]);
+  return { ...view, rejections: pairs(view.rejections), warnings: pairs(view.warnings) };
+}
+
+function finishedVerdict(t) {
+  return { kind: "complete", title: "Test done", point: null,
+           detail: `${t.points} of ${t.grid_points} points measured. The rig stopped counting taps.` };
+}
+
+/** The test's tally in words: points, averages, rejected taps, time. */
+function tallyText(t) {
+  const plural = (n, one, many) => `${n} ${n === 1 ? one : many}`;
+  const parts = [`${t.points} of ${t.grid_points} points`, plural(t.averages, "average", "averages"),
+                 plural(t.rejected, "rejected tap", "rejected taps")];
+  if (Number.isFinite(t.duration_s)) parts.push(`${duration(t.duration_s)}`);
+  return parts.join(" · ");
+}
+
+function duration(s) {
+  const m = Math.floor(s / 60);
+  const h = Math.floor(m / 60);
+  if (h) return `${h} h ${m % 60} min`;
+  return m ? `${m} min ${Math.round(s - 60 * m)} s` : `${Math.round(s)} s`;
 }
 
 async function refreshState() {
@@ -142,8 +180,17 @@ function onEvent(kind, data) {
     } else {
       refreshState().catch(() => {});
     }
+  } else if (kind === "test_complete") {
+    if (model.session) Object.assign(model.session, { complete: true, again: false, armed: false, tally: data });
+    model.verdict = finishedVerdict(data);
+    chime("complete");
+    render();
+    refreshState().catch(() => {});
   } else if (kind === "device") {
     model.device = data;
+    // Shown at once, in words; the rest of the state follows.
+    if (model.session) Object.assign(model.session, { state: data.state, detail: data.detail });
+    render();
     refreshState().catch(() => {});
   } else if (kind === "message") {
     notice(data.text);
@@ -200,7 +247,11 @@ function render() {
 
   // A verdict belongs to its point: once the cursor moves on, say what to do at the new one.
   let shown = model.verdict;
-  if (s && s.point && shown.point && shown.point !== s.point && shown.kind !== "complete") {
+  const closed = s && s.point && s.done.includes(s.point) && !s.again;
+  if (closed && shown.kind !== "complete") {
+    shown = { kind: "idle", title: `${s.point} is measured`,
+              detail: "Taps here are not stored. Measure it again to replace it; the stored one stays." };
+  } else if (s && s.point && shown.point && shown.point !== s.point && shown.kind !== "complete") {
     shown = { kind: "idle", title: `Ready at ${s.point}`,
               detail: s.armed ? "Tap when you are ready." : "Arm the rig to count taps." };
   }
@@ -210,8 +261,19 @@ function render() {
   $("verdict-detail").textContent = shown.detail;
 
   const operator = model.state ? model.state.accept === "operator" : false;
-  $("decide").hidden = !operator;
-  for (const id of ["accept", "reject"]) $(id).disabled = !(s && s.waiting);
+  const undo = Boolean(s && s.can_undo);
+  $("decide").hidden = !operator && !undo;
+  for (const id of ["accept", "reject"]) {
+    $(id).hidden = !operator;
+    $(id).disabled = !(s && s.waiting);
+  }
+  $("undo").hidden = !undo;
+  const finished = Boolean(s && s.complete && !s.again && s.tally);
+  $("finished").hidden = !finished;
+  if (finished) $("finished-summary").textContent = tallyText(s.tally);
+  $("remeasure").hidden = !(s && s.point && s.done.includes(s.point) && !s.again);
+  $("remeasure").textContent = s && s.point ? `Measure ${s.point} again` : "Measure again";
+  renderDevice();
 
   renderGrid();
   renderHealth();
@@ -234,6 +296,29 @@ function renderGrid() {
   $("progress-part").style.width = total ? `${(100 * part) / total}%` : "0";
   $("progress-text").textContent = total ? `${done} of ${total} done` : "";
   $("map").dataset.done = String(done);
+}
+
+/** The device's state at the top of the page, in words, beside the armed state. */
+function renderDevice() {
+  const s = model.session;
+  const box = $("device-alert");
+  if (!s || (s.state === "connected" && s.identified !== false)) { box.hidden = true; return; }
+  const armed = s.armed ? "Armed" : "Not armed";
+  const where = s.device ? ` (${s.device})` : "";
+  let kind = "lost";
+  let words;
+  if (s.state === "connected") {
+    kind = "waiting";
+    words = `waiting for the device${where} to identify itself.`;
+  } else if (!s.identified) {
+    kind = "waiting";
+    words = `waiting for the device${where}: ${s.detail || s.state}.`;
+  } else {
+    words = `device lost: ${s.detail || s.state}. Taps are not counted until it is back.`;
+  }
+  box.dataset.kind = kind;
+  box.textContent = `${armed} · ${words}`;
+  box.hidden = false;
 }
 
 function renderHealth() {
@@ -271,9 +356,15 @@ function drawPlots() {
     const n = t.min.length;
     return { x: t.min.map((_, i) => (i * ms) / n), lo: t.min, hi: t.max, colour };
   };
-  const fs = [trace(force, FORCE_COLOUR)];
+  // The force is drawn around its pulses only, so a double hit is plainly two pulses.
+  const z = v.force_zoom;
+  const fs = z ? [{ x: z.min.map((_, i) => 1000 * (z.start_s + (i * (z.end_s - z.start_s)) / z.min.length)),
+                    lo: z.min, hi: z.max, colour: FORCE_COLOUR }]
+    : [trace(force, FORCE_COLOUR)];
   const [f0, f1] = extent([fs[0].lo, fs[0].hi]);
-  plot($("plot-force"), { x0: 0, x1: ms, y0: f0, y1: f1, xunit: "ms", series: fs });
+  const [t0, t1] = z ? [1000 * z.start_s, 1000 * z.end_s] : [0, ms];
+  plot($("plot-force"), { x0: t0, x1: t1, y0: f0, y1: f1, xunit: "ms", series: fs });
+  $("plot-force").dataset.span = `${t0} ${t1}`;
   $("force-note").textContent = `peak ${num(v.peak_force_n)} N · ${num(v.pulse_width_s * 1000)} ms`;
   const rs = responses.map((l, i) => trace(l, COLOURS[i % COLOURS.length]));
   const [r0, r1] = extent(rs.flatMap((s) => [s.lo, s.hi]));
@@ -288,12 +379,14 @@ function drawPlots() {
   const sp = v.spectra;
   if (sp) {
     const f = sp.freq_hz;
-    const top = f[f.length - 1] || 1;
+    // The analysis band: where the hammer put energy in (the rig cuts the spectra to it).
+    const [low, top] = v.band_hz || [0, f[f.length - 1] || 1];
     const mags = sp.h1_abs.map((y, i) => ({ x: f, y, colour: COLOURS[i % COLOURS.length] }));
     const [m0, m1] = extent(sp.h1_abs, { positive: true });
-    plot($("plot-frf"), { x0: 0, x1: top, y0: m0, y1: m1, log: true, xunit: "Hz", series: mags });
+    plot($("plot-frf"), { x0: low, x1: top, y0: m0, y1: m1, log: true, xunit: "Hz", series: mags });
     const cohs = sp.coherence.map((y, i) => ({ x: f, y, colour: COLOURS[i % COLOURS.length] }));
-    plot($("plot-coherence"), { x0: 0, x1: top, y0: 0, y1: 1.05, xunit: "Hz", series: cohs });
+    plot($("plot-coherence"), { x0: low, x1: top, y0: 0, y1: 1.05, xunit: "Hz", series: cohs });
+    $("plot-frf").dataset.band = `${low} ${top}`;
     $("frf-note").textContent = `${v.point} · ${v.averages} average${v.averages === 1 ? "" : "s"}`;
   } else {
     blank($("plot-frf"), "no average counted yet at this point");
@@ -321,6 +414,19 @@ async function act(action, fields = {}, button = null) {
     if (!r.ok) notice(cap(r.body.message || `${action} failed (HTTP ${r.status})`));
     else if (r.body.state) {
       model.session = r.body.state;
+      const st = r.body.state;
+      if (["goto", "next", "previous", "select"].includes(action)) {
+        // The operator moved: what was said of the last point is no longer the news.
+        model.verdict = { kind: "idle", point: st.point, title: `Ready at ${st.point}`,
+                          detail: st.armed ? "Tap when you are ready." : "Arm the rig to count taps." };
+      } else if (action === "undo") {
+        model.verdict = { kind: "idle", point: st.point, title: "Tap taken back",
+                          detail: `${st.averages} of ${st.required} averages at ${st.point}.` };
+        refreshLastHit().catch(() => {});
+      } else if (action === "remeasure") {
+        model.verdict = { kind: "idle", point: st.point, title: `Measuring ${st.point} again`,
+                          detail: `${st.armed ? "Tap" : "Arm the rig, then tap"}; the stored version stays until this one is complete.` };
+      }
       if (model.session.test !== model.test) await loadTest(model.session.test);
       render();
     }
@@ -380,6 +486,12 @@ function wireControls() {
     paired(t);
   });
   $("accept").addEventListener("click", (e) => act("accept", {}, e.currentTarget));
+  $("undo").addEventListener("click", (e) => act("undo", {}, e.currentTarget));
+  $("remeasure").addEventListener("click", (e) => {
+    const s = model.session;
+    if (s && s.point) act("remeasure", { point: s.point }, e.currentTarget);
+  });
+  $("finished-tests").addEventListener("click", chooseTest);
   $("reject").addEventListener("click", (e) => act("reject", {}, e.currentTarget));
   $("arm").addEventListener("click", (e) => {
     const s = model.session;

@@ -42,7 +42,7 @@ class Taprigd:
     data_dir: Path
     log: Path
     port: int
-    control_port: int
+    control_port: int | None
 
     @property
     def token(self) -> str:
@@ -54,6 +54,7 @@ class Taprigd:
 
     def control(self, **request: Any) -> dict[str, Any]:
         """One request to the virtual instrument's control port; its reply must be ok."""
+        assert self.control_port is not None, "a virtual device has a control port; this has none"
         with ControlClient(self.control_port, timeout_s=5) as control:
             reply = control.request(**request)
         assert reply.get("ok") is True, reply
@@ -64,19 +65,31 @@ class Taprigd:
 
 
 @contextlib.contextmanager
-def taprigd(tmp: Path, *settings: str, test: str = "shop-panel") -> Iterator[Taprigd]:
-    """`taprigd run` on the virtual panel with `settings` (section.key=value) added."""
+def taprigd(
+    tmp: Path,
+    *settings: str,
+    test: str = "shop-panel",
+    args: tuple[str, ...] = (),
+    prefix: tuple[str, ...] = (),
+    bind: str = "127.0.0.1",
+    device: str = "virtual",
+) -> Iterator[Taprigd]:
+    """`taprigd run` on `device` (default the virtual panel, with its control port) with
+    `settings` (section.key=value) and `args` added, run under `prefix` (e.g. ``ip netns exec
+    NS``), serving on `bind`."""
     data = tmp / "rig"
     data.mkdir()
     log = tmp / "taprigd.log"
-    args = [sys.executable, "-m", "taprig.daemon", "run", "--test", test, "--virtual-control",
-            "0", "--set", "device.url=virtual", "--set", f"store.data_dir={data}",
-            "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
-            "--set", "service.advertise=false", "--set", "store.min_free_mb=1"]  # fmt: skip
+    virtual = ("--virtual-control", "0") if device.startswith("virtual") else ()
+    cmd = [*prefix, sys.executable, "-m", "taprig.daemon", "run", "--test", test, *virtual,
+           "--set", f"device.url={device}",
+           "--set", f"store.data_dir={data}", "--set", f"service.bind={bind}",
+           "--set", "service.port=0", "--set", "service.advertise=false",
+           "--set", "store.min_free_mb=1", *args]  # fmt: skip
     for s in settings:
-        args += ["--set", s]
+        cmd += ["--set", s]
     with log.open("w") as err:
-        proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=err)
+        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=err)
     try:
         run_file = data / "run.json"
         deadline = time.monotonic() + 30
