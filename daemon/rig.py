@@ -348,10 +348,10 @@ class Rig:
             return
         c = outcome.completed
         frf = (c.freq_hz, c.h1, c.coherence, c.gff) if c is not None else session.running_frf()
+        freq, h1, coherence, gff = frf if frf is not None else (None, None, None, None)
         labels = tuple(ch.label for ch in session.channels)
         view = last_hit_view(record.data, record.rate_hz, record.first_index, labels,
-                             *(frf if frf is not None else (None, None, None, None)),
-                             force=session.force)  # fmt: skip
+                             freq, h1, coherence, gff, force=session.force)  # fmt: skip
         view.update(hit_fields(outcome, as_pairs=False))
         self.last_hit = view
 
@@ -439,7 +439,7 @@ class Rig:
             raise SessionError("no test is selected")
         return self.session
 
-    def _cursor(self, move: Callable[[Session], None]) -> None:
+    def _cursor(self, move: Callable[[Session], object]) -> None:
         session = self._need_session()
         move(session)
         if not session.complete:
