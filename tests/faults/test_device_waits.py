@@ -19,22 +19,8 @@ from typing import Any
 
 from taprig.firmware_protocol import FrameEncoder
 from taprig.firmware_protocol.frames import ChannelInfo, DeviceInfo, SampleFormat
+from tests.daemon.test_config import CHANNELS_3
 
-CHANNELS = """
-[[channels]]
-index = 0
-role = "force"
-label = "hammer"
-sensitivity = 2.25
-unit = "mV/N"
-
-[[channels]]
-index = 1
-role = "response"
-label = "acc1"
-sensitivity = 1.02
-unit = "mV/(m/s^2)"
-"""
 LIMIT_S = 20.0
 
 
@@ -60,7 +46,7 @@ def silent_pty() -> Iterator[tuple[int, str]]:
 
 def test_the_service_waits_with_the_rig_for_its_device(tmp_path: Path) -> None:
     config = tmp_path / "taprigd.toml"
-    config.write_text(CHANNELS, encoding="utf-8")
+    config.write_text(CHANNELS_3, encoding="utf-8")
     grid = tmp_path / "grid.csv"
     grid.write_text("label,x,y,z\nP1,0,0,0\nP2,0.1,0,0\n", encoding="utf-8")
     data = tmp_path / "rig"
@@ -93,7 +79,7 @@ def test_the_service_waits_with_the_rig_for_its_device(tmp_path: Path) -> None:
             assert s["device"] == device
             # The device answers at last: the test opens and arms at once.
             info = DeviceInfo(1, SampleFormat.INT16, 10_000_000, "BENCH-PTY", "0.1",
-                              (ChannelInfo(5.0, 16), ChannelInfo(5.0, 16)))  # fmt: skip
+                              (ChannelInfo(5.0, 16),) * 3)  # fmt: skip
             os.write(master, FrameEncoder().info(info))
             s = until("the test opened", lambda: (s := session())["test"] == "bench" and s)
             assert s["identified"] and s["armed"] and s["point"] == "P1"

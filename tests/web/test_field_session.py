@@ -21,6 +21,8 @@ import pytest
 from selenium.webdriver.common.by import By
 from selenium.webdriver.remote.webdriver import WebDriver
 
+from tests.daemon.test_config import CHANNELS_3
+
 from .harness import Taprigd, phone, taprigd, wait
 from .test_phone_page import click, data, last_hit, pair, shot, state, text, verdict
 
@@ -179,12 +181,7 @@ def test_the_page_waits_for_a_device_that_is_not_there(tmp_path: Path) -> None:
     waits for, with the OS's reason the path cannot be opened."""
     missing = tmp_path / "no-such-tty"
     config = tmp_path / "taprigd.toml"
-    config.write_text(
-        '[[channels]]\nindex = 0\nrole = "force"\nlabel = "hammer"\nsensitivity = 2.25\n'
-        'unit = "mV/N"\n\n[[channels]]\nindex = 1\nrole = "response"\nlabel = "acc1"\n'
-        'sensitivity = 1.02\nunit = "mV/(m/s^2)"\n',
-        encoding="utf-8",
-    )
+    config.write_text(CHANNELS_3, encoding="utf-8")
     with (
         taprigd(
             tmp_path, device=str(missing), test="waiting", args=("--config", str(config))
