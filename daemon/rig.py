@@ -295,6 +295,8 @@ class Rig:
         log.info(
             "device %s: %d channels at %g Hz", info.device_id, info.channel_count, info.rate_hz
         )
+        self._emit("device", {"state": self.link_state.value, "identified": True,
+                              "detail": f"{info.device_id} identified itself"})  # fmt: skip
         if self._resume is not None:
             self._carry_on(self._resume)
 

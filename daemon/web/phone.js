@@ -189,7 +189,10 @@ function onEvent(kind, data) {
   } else if (kind === "device") {
     model.device = data;
     // Shown at once, in words; the rest of the state follows.
-    if (model.session) Object.assign(model.session, { state: data.state, detail: data.detail });
+    if (model.session) {
+      Object.assign(model.session, { state: data.state, detail: data.detail });
+      if ("identified" in data) model.session.identified = data.identified;
+    }
     render();
     refreshState().catch(() => {});
   } else if (kind === "message") {

@@ -24,7 +24,17 @@ from selenium.webdriver.remote.webdriver import WebDriver
 from tests.daemon.test_config import CHANNELS_3
 
 from .harness import Taprigd, phone, taprigd, wait
-from .test_phone_page import click, data, last_hit, pair, shot, state, text, verdict
+from .test_phone_page import (
+    check_legible_and_thumb_sized,
+    click,
+    data,
+    last_hit,
+    pair,
+    shot,
+    state,
+    text,
+    verdict,
+)
 
 IP = shutil.which("ip", path=os.pathsep.join([os.environ.get("PATH", ""), "/usr/sbin", "/sbin"]))
 
@@ -79,6 +89,7 @@ def test_the_last_point_ends_the_test_and_measuring_again_is_deliberate(tmp_path
         st = state(rig)["session"]
         assert st["complete"] and not st["armed"] and st["tally"]["points"] == 2
         shot(d, tmp_path / "1-test-done.png")
+        check_legible_and_thumb_sized(d)
 
         # A stray tap after the end: seen, not stored.
         seen = state(rig)["hits_seen"]
@@ -90,6 +101,7 @@ def test_the_last_point_ends_the_test_and_measuring_again_is_deliberate(tmp_path
         d.find_element(By.CSS_SELECTOR, '#grid [data-label="A1"]').click()
         wait(d, "A1 chosen", lambda d: text(d, "point") == "A1")
         assert verdict(d) == "A1 is measured" and shown(d, "remeasure")
+        check_legible_and_thumb_sized(d)
         press(d, "remeasure")
         wait(d, "A1 open again", lambda d: verdict(d) == "Measuring A1 again")
         assert not shown(d, "finished") and not shown(d, "remeasure")
@@ -132,6 +144,7 @@ def test_undo_a_wrong_accept_and_a_reload_keeps_the_waiting_tap(tmp_path: Path) 
         assert [float(v) for v in span] == pytest.approx([1000 * z["start_s"], 1000 * z["end_s"]])
         assert z["end_s"] - z["start_s"] < 0.1 * served["duration_s"]
         shot(d, tmp_path / "1-counted.png")
+        check_legible_and_thumb_sized(d)
 
         click(d, "undo")
         wait(d, "the tap taken back", lambda d: verdict(d) == "Tap taken back")
@@ -172,6 +185,7 @@ def test_an_unplugged_device_shows_at_the_top_within_a_second(tmp_path: Path) ->
         # At the top: the banner's top edge within the first 130 px of the page.
         assert d.find_element(By.ID, "device-alert").rect["y"] < 130
         shot(d, tmp_path / "device-lost.png")
+        check_legible_and_thumb_sized(d)
         rig.control(op="replug")
         wait(d, "the device back", lambda d: not shown(d, "device-alert"))
 

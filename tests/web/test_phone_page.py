@@ -62,7 +62,10 @@ return [...document.querySelectorAll(arguments[0])]
   .filter((e) => e.getClientRects().length && !e.disabled && e.textContent.trim())
   .map((e) => [e.id || e.textContent.trim(), getComputedStyle(e).color, ground(e)]);
 """
-WORDS = "#point, #avg-text, #verdict-title, #verdict-detail, figcaption, button, .chip, #h-stream"
+WORDS = (
+    "#point, #avg-text, #verdict-title, #verdict-detail, figcaption, button, .chip, "
+    "#h-stream, #device-alert, #finished h2, #finished p"
+)
 
 
 def luminance(css: str) -> float:
