@@ -7,7 +7,8 @@ has drawn that tap (the force plot's stamp changes once all four plots are drawn
 clocks are this machine's, in ms. Printed beside the goal of one second, and beside the
 floor no page can beat: the record length, since the rig can only judge a tap once its
 whole record has arrived. Also the page's weight (every file it loads) beside a ceiling,
-and the time from opening the page to its live event stream.
+the time from opening the page to its live event stream, and from the device's cable pulled
+(the instrument's unplug) to the page's banner saying so, beside the goal of one second.
 
 Run: python tests/bench/bench_phone.py [--taps 10]
 """
@@ -36,13 +37,34 @@ from taprig.daemon import page
 GOAL_MS = 1000.0  # a tap drawn within a second
 CEILING_BYTES = 80_000  # the page's files, all together
 GOAL_OPEN_MS = 2000.0
+GOAL_UNPLUG_MS = 1000.0  # a lost device said at the top of the page within a second
+UNPLUGS = 5
 
 WATCH = """
 window.drawnAt = [];
 const force = document.getElementById("plot-force");
 new MutationObserver(() => window.drawnAt.push([force.dataset.stamp, Date.now()]))
   .observe(force, {attributes: true, attributeFilter: ["data-stamp"]});
+window.alertAt = [];
+const alert = document.getElementById("device-alert");
+new MutationObserver(() => { if (!alert.hidden) window.alertAt.push(Date.now()); })
+  .observe(alert, {attributes: true, attributeFilter: ["hidden"]});
 """
+
+
+def unplugged_to_banner(rig: harness.Taprigd, d: Any) -> list[float]:
+    """ms from each unplug to the page's device banner shown (the cable is put back after)."""
+    out = []
+    for i in range(UNPLUGS):
+        at_ms = time.time() * 1000
+        rig.control(op="unplug")
+        shown = harness.wait(d, f"banner {i + 1}", lambda d, n=i: d.execute_script(
+            "return window.alertAt.length > arguments[0] && window.alertAt.at(-1)", n))  # fmt: skip
+        out.append(float(shown) - at_ms)
+        rig.control(op="replug")
+        harness.wait(d, "the banner gone", lambda d: not d.find_element("id", "device-alert")
+                     .is_displayed())  # fmt: skip
+    return out
 
 
 def last_hit(rig: harness.Taprigd) -> dict[str, Any]:
@@ -76,6 +98,7 @@ def run(taps: int = 10) -> list[Row]:
                 )  # fmt: skip
                 latencies.append(float(drawn[1]) - tap_ms)
             record_ms = 1000 * float(last_hit(rig)["duration_s"])
+            unplugs = unplugged_to_banner(rig, d)
     weight = sum(len(f.body) for f in page.load().values())
     return [
         ("tap to plots drawn, median", statistics.median(latencies), "ms",
@@ -84,6 +107,8 @@ def run(taps: int = 10) -> list[Row]:
          f"goal <= {GOAL_MS:g} ms"),
         ("page opened to live event stream", opened_ms, "ms", f"goal <= {GOAL_OPEN_MS:g} ms"),
         ("page weight, every file", weight / 1000, "kB", f"ceiling {CEILING_BYTES / 1000:g} kB"),
+        (f"device unplugged to banner, worst of {UNPLUGS}", max(unplugs), "ms",
+         f"goal <= {GOAL_UNPLUG_MS:g} ms"),
     ]  # fmt: skip
 
 
@@ -93,6 +118,8 @@ def headline(rows: list[Row]) -> list[Figure]:
                "ms", "<=", GOAL_MS, math.nan, ""),
         Figure("phone: page weight", pick(rows, "page weight"), "kB", "<=",
                CEILING_BYTES / 1000, math.nan, ""),
+        Figure("phone: device lost to banner", pick(rows, "device unplugged to banner"), "ms",
+               "<=", GOAL_UNPLUG_MS, math.nan, ""),
     ]  # fmt: skip
 
 
