@@ -120,9 +120,9 @@ class Session:
 
     def measure_again(self, label: str) -> None:
         """Open a measured point for a new version, deliberately (the old one stays stored)."""
-        self.goto(label)
-        if label not in self.done:
+        if label in self.labels and label not in self.done:
             raise SessionError(f"point {label} has not been measured yet: just tap it")
+        self.goto(label)  # NotFound for a label not on the grid
         self._again = True
 
     def step(self, delta: int) -> None:
@@ -146,8 +146,8 @@ class Session:
         """
         if not self._counted:
             raise SessionError(
-                f"no counted tap to undo at {self.cursor}: a completed point is stored; "
-                "measure it again instead"
+                f"no counted tap to undo at {self.cursor} (a completed point is stored: "
+                "measure it again to replace it)"
             )
         index, _ = self._counted.pop()
         old = self._hits[index]

@@ -51,7 +51,7 @@ function paired(token) {
   rig = new Rig(token, () => {
     forgetToken();
     unpaired("The rig refused this phone's token (it may have been renewed with "
-             + "taprigd pair --rotate). Pair again.");
+             + "taprigd pair --rotate): pair again with taprigd pair on the rig.");
   });
   $("unpaired").hidden = true;
   $("app").hidden = false;

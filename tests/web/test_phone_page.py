@@ -338,6 +338,7 @@ def test_unpaired_page_asks_for_pairing_and_a_wrong_token_is_refused(tmp_path: P
         d.find_element(By.ID, "pair-input").send_keys(f"{rig.base}/pair#token={'x' * 43}")
         d.find_element(By.CSS_SELECTOR, "#pair-form button").click()
         wait(d, "the refusal", lambda d: "refused" in text(d, "pair-error"))
+        assert "pair again with taprigd pair" in text(d, "pair-error")
         assert d.execute_script("return localStorage.getItem('taprig.token')") is None
         d.find_element(By.ID, "pair-input").clear()
         d.find_element(By.ID, "pair-input").send_keys(f"{rig.base}/pair#token={rig.token}")
