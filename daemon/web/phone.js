@@ -361,8 +361,10 @@ function drawPlots() {
   };
   // The force is drawn around its pulses only, so a double hit is plainly two pulses.
   const z = v.force_zoom;
-  const fs = z ? [{ x: z.min.map((_, i) => 1000 * (z.start_s + (i * (z.end_s - z.start_s)) / z.min.length)),
-                    lo: z.min, hi: z.max, colour: FORCE_COLOUR }]
+  const zx = z ? z.min.map((_, i) => 1000 * (z.start_s + (i * (z.end_s - z.start_s)) / z.min.length)) : [];
+  // Zoomed in, a bucket holds a sample or two: a line through the buckets shows the shape.
+  const fs = z ? [{ x: zx, lo: z.min, hi: z.max, colour: FORCE_COLOUR },
+                  { x: zx, y: z.min.map((lo, i) => (lo + z.max[i]) / 2), colour: FORCE_COLOUR }]
     : [trace(force, FORCE_COLOUR)];
   const [f0, f1] = extent([fs[0].lo, fs[0].hi]);
   const [t0, t1] = z ? [1000 * z.start_s, 1000 * z.end_s] : [0, ms];
