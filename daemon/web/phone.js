@@ -110,9 +110,10 @@ function asEvent(view) {
   return { ...view, rejections: pairs(view.rejections), warnings: pairs(view.warnings) };
 }
 
+/** The test's end: the finished panel stands in for the verdict until the operator moves. */
 function finishedVerdict(t) {
-  return { kind: "complete", title: "Test done", point: null,
-           detail: `${t.points} of ${t.grid_points} points measured. The rig stopped counting taps.` };
+  return { kind: "finished", title: "Test done", point: null,
+           detail: `${t.points} of ${t.grid_points} points measured.` };
 }
 
 /** The test's tally in words: points, averages, rejected taps, time. */
@@ -251,7 +252,7 @@ function render() {
   // A verdict belongs to its point: once the cursor moves on, say what to do at the new one.
   let shown = model.verdict;
   const closed = s && s.point && s.done.includes(s.point) && !s.again;
-  if (closed && shown.kind !== "complete") {
+  if (closed && shown.kind !== "complete" && shown.kind !== "finished") {
     shown = { kind: "idle", title: `${s.point} is measured`,
               detail: "Taps here are not stored. Measure it again to replace it; the stored one stays." };
   } else if (s && s.point && shown.point && shown.point !== s.point && shown.kind !== "complete") {
@@ -274,6 +275,7 @@ function render() {
   const finished = Boolean(s && s.complete && !s.again && s.tally);
   $("finished").hidden = !finished;
   if (finished) $("finished-summary").textContent = tallyText(s.tally);
+  $("verdict").hidden = finished && model.verdict.kind === "finished";
   $("remeasure").hidden = !(s && s.point && s.done.includes(s.point) && !s.again);
   $("remeasure").textContent = s && s.point ? `Measure ${s.point} again` : "Measure again";
   renderDevice();
