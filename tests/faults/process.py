@@ -29,6 +29,7 @@ class Taprigd:
 
     Its log (stderr) goes to `<log_dir>/<data_dir name>.log` (default: beside data_dir).
     test: selected and armed at start (`--test`); None starts as systemd does, without one.
+    args: more command-line arguments (e.g. ``--grid FILE``).
     """
 
     def __init__(
@@ -38,6 +39,7 @@ class Taprigd:
         test: str | None = "shop",
         env: dict[str, str] | None = None,
         log_dir: Path | None = None,
+        args: tuple[str, ...] = (),
     ) -> None:
         self.data_dir = data_dir
         self.log_path = (log_dir or data_dir.parent) / f"{data_dir.name}.log"
@@ -47,6 +49,7 @@ class Taprigd:
         argv = [sys.executable, "-m", "taprig.daemon", "run", "--virtual-control", "0"]
         if test is not None:
             argv += ["--test", test]
+        argv += args
         for item in (*base, *settings):
             argv += ["--set", item]
         self.argv = argv

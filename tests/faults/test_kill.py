@@ -21,6 +21,9 @@ from .process import Taprigd, check_store, tap_until_accepted, wait_until
 
 ROUNDS = 30
 TAP_EVERY_S = 0.12  # longer than one 4096-sample record at 51.2 kHz (80 ms)
+# Points enough that the rounds never finish the test (a finished test stores no more taps):
+# the roving hammer's cursor names each tap's point, wherever on the panel it lands.
+GRID_POINTS = 200
 
 
 @pytest.mark.slow
@@ -30,8 +33,12 @@ def test_kill9_at_random_moments_keeps_every_point_set_seen(tmp_path: Path) -> N
     data.mkdir()
     seen: set[int] = set()
     since = 0
-    for _ in range(ROUNDS):
-        daemon = Taprigd(data).start().wait_ready()
+    grid = tmp_path / "grid.csv"
+    grid.write_text("label,x,y,z\n" + "".join(f"P{i},{i / 1000},0,0\n"
+                                               for i in range(GRID_POINTS)))  # fmt: skip
+    for k in range(ROUNDS):
+        # The first round creates the test from the grid file; later ones open it again.
+        daemon = Taprigd(data, args=("--grid", str(grid)) if k == 0 else ()).start().wait_ready()
         killer = threading.Timer(rng.uniform(0.05, 1.2), daemon.kill9)
         killer.start()
         try:
