@@ -17,8 +17,7 @@ import queue
 import threading
 import time
 from collections.abc import Callable
-from concurrent.futures import Future
-from typing import Any, TypeVar
+from typing import Any
 
 from taprig.firmware_protocol import (
     Command,
@@ -37,26 +36,27 @@ from . import resume, stages, tally
 from .capture.acquire import Acquirer
 from .capture.hits import check_hit
 from .capture.link import LinkChange, LinkState, SerialLink
-from .capture.session import HitOutcome, Session
+from .capture.session import HitOutcome, Session, no_session
 from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
+from .owner import Owner
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .room import Room
 from .store import Store
 
 log = logging.getLogger(__name__)
-T = TypeVar("T")
 
 DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
 
 
-class Rig:
+class Rig(Owner[RigEvent]):
     """Start with `start()`, stop with `close()`; drive with the methods below."""
 
     def __init__(self, config: Config, store: Store, url: str | None = None) -> None:
+        super().__init__("rig")
         self.config = config
         self.store = store
         self.url = url or config.device.url
@@ -72,12 +72,6 @@ class Rig:
         self._enc = FrameEncoder()
         self._link = SerialLink(self.url, baudrate=config.device.baudrate,
                                 stall_after_s=config.device.stall_s)  # fmt: skip
-        self._commands: queue.SimpleQueue[tuple[Callable[[], Any], Future[Any]]] = (
-            queue.SimpleQueue()
-        )
-        self._observers: list[Callable[[RigEvent], None]] = []
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, name="rig", daemon=True)
         self._closed = False
         self._item_time = 0.0
         self._last_record: HitRecord | None = None
@@ -107,9 +101,7 @@ class Rig:
         if self._closed:
             return
         self._closed = True
-        self._stop.set()
-        if self._thread.is_alive():
-            self._thread.join(timeout=5.0)
+        self._end_thread()
         self._link.close()
 
     def resume_later(self) -> bool:
@@ -134,17 +126,7 @@ class Rig:
 
         self.call(now_or_when_identified)
 
-    def subscribe(self, observer: Callable[[RigEvent], None]) -> None:
-        """`observer` is called on the processing thread: it must return quickly."""
-        self._observers.append(observer)
-
-    # --- commands (any thread) ----------------------------------------------
-
-    def call(self, fn: Callable[[], T], timeout: float = 10.0) -> T:
-        """Run `fn` on the processing thread and return its result (or raise its error)."""
-        fut: Future[T] = Future()
-        self._commands.put((fn, fut))
-        return fut.result(timeout=timeout)
+    # --- commands (any thread; `call` and `subscribe` come from daemon/owner.py) ----
 
     def create_test(
         self,
@@ -155,12 +137,9 @@ class Rig:
         averages: int | None = None,
         sensor_points: dict[str, str] | None = None,
     ) -> None:
-        ref = reference if reference is not None else grid[0].label
-        if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
-            raise SessionError(f"reference {ref!r} is not a point of the grid")
-        meta = {"sensor_points": sensor_points or {}}
-        avg = averages if averages is not None else self.config.capture.averages
-        self.store.save_test(name, grid, roving_mode, ref, avg, meta)
+        """Store a new test (daemon/stages.py's `save_test`; any thread)."""
+        stages.save_test(self.config, self.store, name, grid, roving_mode, reference, averages,
+                         sensor_points)  # fmt: skip
 
     def select_test(self, name: str) -> None:
         self.call(lambda: self._select(name))
@@ -239,17 +218,6 @@ class Rig:
         view = self._make_view()
         with self._view_lock:
             self._view = view
-
-    def _serve_commands(self) -> None:
-        while True:
-            try:
-                fn, fut = self._commands.get_nowait()
-            except queue.Empty:
-                return
-            try:
-                fut.set_result(fn())
-            except Exception as exc:
-                fut.set_exception(exc)
 
     def _link_change(self, change: LinkChange) -> None:
         self.link_state, self.link_detail = change.state, change.detail
@@ -455,12 +423,7 @@ class Rig:
             "device": self.url, "state": self.link_state.value, "detail": self.link_detail,
             "identified": self.info is not None, "armed": self.armed,
             "rate_hz": self.info.rate_hz if self.info else None,
-            "test": s.plan.name if s else None, "point": s.cursor if s else None,
-            "averages": s.averages if s else 0,
-            "required": s.plan.averages if s else 0, "waiting": s.waiting if s else False,
-            "done": sorted(s.done) if s else [], "complete": s.complete if s else False,
-            "again": s.again if s else False, "can_undo": s.can_undo if s else False,
-            "tally": self._tally,
+            **(s.snapshot() if s else no_session()), "tally": self._tally,
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
                      "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
@@ -472,9 +435,4 @@ class Rig:
     def _emit(self, kind: str, data: dict[str, Any]) -> None:
         # Published first: an observer told of a change finds it in `view()`.
         self._publish()
-        event = RigEvent(kind, data)
-        for observer in self._observers:
-            try:
-                observer(event)
-            except Exception:
-                log.exception("an observer failed on %s", kind)
+        self._tell(RigEvent(kind, data))

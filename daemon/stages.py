@@ -17,9 +17,9 @@ from .capture.hits import CheckSettings
 from .capture.session import Plan, Session
 from .capture.spectra import WindowSettings
 from .config import Config
-from .errors import TaprigError
-from .records import Role, RovingMode
-from .store import TestPlan
+from .errors import SessionError, TaprigError
+from .records import GridPoint, Role, RovingMode
+from .store import Store, TestPlan
 
 
 def decoder(config: Config) -> Decoder:
@@ -75,6 +75,25 @@ def session(config: Config, plan: TestPlan, info: DeviceInfo, done: Sequence[str
         WindowSettings(w.force_margin_s, w.force_taper_s, w.exponential_end),
         auto_accept=config.capture.accept == "auto", meta=meta(config, info), done=done,
     )  # fmt: skip
+
+
+def save_test(
+    config: Config,
+    store: Store,
+    name: str,
+    grid: list[GridPoint],
+    roving_mode: RovingMode,
+    reference: str | None,
+    averages: int | None,
+    sensor_points: dict[str, str] | None,
+) -> None:
+    """Store a new test: reference default the first grid point (it must be on the grid in
+    roving-sensor mode), averages default the configuration's."""
+    ref = reference if reference is not None else grid[0].label
+    if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
+        raise SessionError(f"reference {ref!r} is not a point of the grid")
+    avg = averages if averages is not None else config.capture.averages
+    store.save_test(name, grid, roving_mode, ref, avg, {"sensor_points": sensor_points or {}})
 
 
 def meta(config: Config, info: DeviceInfo) -> dict[str, Any]:

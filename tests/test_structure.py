@@ -34,8 +34,6 @@ LONG_MODULES = {
     "firmware_protocol/text.py": "the text decoder; not split yet",
     "firmware_protocol/virtual/instrument.py": "the virtual device; not split yet",
     "firmware_protocol/virtual/synth.py": "the synthesiser; not split yet",
-    "daemon/rig.py": "grew by the test's end, undo and measuring again; its command bodies "
-    "(session, disk watch, carrying on) part from the processing loop next",
 }
 # Runtime dependencies no installed module imports yet, each with its reason.
 NOT_YET_IMPORTED = {}
@@ -45,7 +43,7 @@ EXTRA_HOMES = {"psycopg": "taprig.client.archive"}
 DISTRIBUTIONS = {"serial": "pyserial"}
 
 BASE = ["__init__", "errors", "records", "wirebody", "grid", "identity", "display", "notify",
-        "txt", "redact", "room", "resume", "config.__init__", "config.setting",
+        "owner", "txt", "redact", "room", "resume", "config.__init__", "config.setting",
         "config.table", "config.channels"]  # fmt: skip
 API = ["__init__", "__main__", "routes", "errors", "bodies", "validate", "openapi", "once", "feed",
        "service"]  # fmt: skip

@@ -38,6 +38,12 @@ from .spectra import (
 UNDONE: Final = "undone by the operator"
 
 
+def no_session() -> dict[str, Any]:
+    """What `Session.snapshot` says when no test is selected."""
+    return {"test": None, "point": None, "averages": 0, "required": 0, "waiting": False,
+            "done": [], "complete": False, "again": False, "can_undo": False}  # fmt: skip
+
+
 def utc_now() -> str:
     return dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
@@ -171,6 +177,13 @@ class Session:
     @property
     def averages(self) -> int:
         return self._avg.count
+
+    def snapshot(self) -> dict[str, Any]:
+        """The session for the operator's display (`no_session` without a test)."""
+        return {"test": self.plan.name, "point": self.cursor, "averages": self.averages,
+                "required": self.plan.averages, "waiting": self.waiting,
+                "done": sorted(self.done), "complete": self.complete, "again": self._again,
+                "can_undo": self.can_undo}  # fmt: skip
 
     def running_frf(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
         """(freq Hz, H1 (n_resp, n_freq), γ², Gff (n_freq,) N²/Hz) of the current point so
