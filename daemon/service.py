@@ -42,7 +42,7 @@ from typing import TYPE_CHECKING, Any, Final
 import numpy as np
 from aiohttp import web
 
-from taprig.schema import API_VERSION, wire
+from taprig.schema import API_VERSION, codec, http, objects, records
 
 from . import __version__, page
 from .advertise import rig_id as _rig_id
@@ -226,7 +226,7 @@ ROUTES: Final[tuple[Route, ...]] = (
           "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept",
           params=(_POINT_ID, Param("hits", "query", {"type": "integer", "enum": [0, 1]},
                                    "1: include every hit's raw record")),
-          media=(JSON, wire.MSGPACK), errors=(404, 503)),
+          media=(JSON, http.MSGPACK), errors=(404, 503)),
     Route("GET", "/v1/changes", "getChanges", "changes",
           "the change feed after `since`; waits up to `wait` s for a change",
           params=(Param("since", "query", SEQ, "last seq the client has seen (default 0)"),
@@ -381,7 +381,7 @@ def error_of(exc: BaseException) -> Outcome:
         text = re.sub(r"^\d{3}: ", "", exc.text or "") or phrase(status)
         if "Allow" in exc.headers:
             headers["Allow"] = exc.headers["Allow"]
-    elif isinstance(exc, wire.SchemaError):
+    elif isinstance(exc, records.SchemaError):
         status, code, text = 400, "invalid", str(exc)
     elif isinstance(exc, SessionError):
         status, code, text = 409, "session", str(exc)
@@ -751,7 +751,7 @@ class Service:
     async def _on_info(self, call: Call) -> web.StreamResponse:
         return json_response({
             "rig": self.rig_name, "rig_id": self.rig_id, "api_version": API_VERSION,
-            "schema_version": wire.SCHEMA_VERSION, "daemon_version": __version__,
+            "schema_version": records.SCHEMA_VERSION, "daemon_version": __version__,
         })  # fmt: skip
 
     async def _on_health(self, call: Call) -> web.StreamResponse:
@@ -799,11 +799,11 @@ class Service:
         if test is not None:
             await self._plan(test)  # 404 for a test that does not exist
         rows = await asyncio.to_thread(self.store.list_point_sets, test, call.args.get("since", 0))
-        return _reply(call, {"points": [wire.point_set_summary_json(s) for s in rows]})
+        return _reply(call, {"points": [objects.point_set_summary_json(s) for s in rows]})
 
     async def _on_point(self, call: Call) -> web.StreamResponse:
         pid, with_hits = call.args["id"], bool(call.args.get("hits", 0))
-        key = (pid, with_hits, wire.wants_msgpack(call.request.headers.get("Accept")))
+        key = (pid, with_hits, http.wants_msgpack(call.request.headers.get("Accept")))
         encoded = self._bodies.get(key)
         if encoded is None:
             try:
@@ -835,7 +835,7 @@ class Service:
                 self.polls_waiting -= 1
             if self._closed:
                 break  # answer now, with nothing new, so that the close need not wait
-        objs = [wire.change_to_obj(wire.change_from_record(c)) for c in changes]
+        objs = [objects.change_to_obj(records.change_from_record(c)) for c in changes]
         last = changes[-1].seq if changes else since
         return _reply(call, {"changes": objs, "last_seq": last,
                              "more": len(changes) == CHANGES_LIMIT})  # fmt: skip
@@ -1000,31 +1000,31 @@ def _grid(body: Payload) -> list[GridPoint]:
 
 
 def _test_obj(plan: TestPlan) -> Payload:
-    return wire.test_to_obj(wire.test_from_record(plan))
+    return objects.test_to_obj(records.test_from_record(plan))
 
 
 def _reply(call: Call, obj: Payload) -> web.Response:
     """`obj` as msgpack when the client prefers it, else as JSON."""
-    if wire.wants_msgpack(call.request.headers.get("Accept")):
-        return web.Response(body=wire.pack(obj), content_type=wire.MSGPACK)
+    if http.wants_msgpack(call.request.headers.get("Accept")):
+        return web.Response(body=codec.pack(obj), content_type=http.MSGPACK)
     return json_response(obj)
 
 
 def encode_point_set(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded:
-    """(body, content type, Content-Digest value) of a stored point set, per schema.wire.
+    """(body, content type, Content-Digest value) of a stored point set, per the wire schema.
 
     One worker-thread call. The msgpack body without raw hits was written at commit and is
     served as stored; anything else is read, encoded and checksummed here.
     """
     if as_msgpack and not with_hits:
-        stored = store.get_wire_body(pid, wire.SCHEMA_VERSION)
+        stored = store.get_wire_body(pid, records.SCHEMA_VERSION)
         if stored is not None:
             digest, body = stored
-            return body, wire.MSGPACK, digest
+            return body, http.MSGPACK, digest
     ps = store.get_point_set(pid, with_hits)
-    obj = wire.point_set_to_obj(wire.point_set_from_record(pid, ps), with_hits)
-    body, media = (wire.pack(obj), wire.MSGPACK) if as_msgpack else (_point_json(obj), JSON)
-    return body, media, wire.content_digest(body)
+    obj = objects.point_set_to_obj(records.point_set_from_record(pid, ps), with_hits)
+    body, media = (codec.pack(obj), http.MSGPACK) if as_msgpack else (_point_json(obj), JSON)
+    return body, media, http.content_digest(body)
 
 
 class BodyCache:
@@ -1058,7 +1058,7 @@ class BodyCache:
 
 
 def _point_json(obj: Payload) -> bytes:
-    """JSON of a `wire.point_set_to_obj` object: each array's bytes become nested lists.
+    """JSON of a `objects.point_set_to_obj` object: each array's bytes become nested lists.
 
     A real array is ``{"dtype", "shape", "values"}``, a complex one ``{"dtype", "shape",
     "real", "imag"}``; a non-finite value is null. Finite values round-trip exactly (Python

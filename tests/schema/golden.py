@@ -1,9 +1,9 @@
 """Fixed point sets and their encodings as made by the wire code of December 2026.
 
-The files in `golden/` were written by this module (``python tests/schema/golden.py``) from
-the code *before* the wire module was split; `test_golden.py` checks that today's code makes
-the same bytes, because the store keeps bodies encoded by older code and clients verify their
-digests. Do not rewrite them unless the wire format is changed on purpose (a new
+The files in `golden/` were written by this module (``python tests/schema/golden.py --write``)
+from the code *before* the wire module was split; `test_golden.py` checks that today's code
+makes the same bytes, because the store keeps bodies encoded by older code and clients verify
+their digests. Do not rewrite them unless the wire format is changed on purpose (a new
 SCHEMA_VERSION).
 
 The arrays are built from exact IEEE arithmetic only (integers, halves and quarters, no
@@ -18,23 +18,22 @@ import hashlib
 import json
 import struct
 import sys
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 
 from taprig.daemon.records import Finding, PointSet, RovingMode, StoredHit
 from taprig.daemon.wirebody import encode_body
-from taprig.schema.wire import (
-    WireChange,
-    WireHit,
-    WirePointSet,
-    WireTest,
+from taprig.schema.codec import pack
+from taprig.schema.objects import (
     change_to_obj,
-    pack,
     point_set_summary_json,
     point_set_to_obj,
     test_to_obj,
 )
+from taprig.schema.pointset import field_values
+from taprig.schema.records import WireChange, WireHit, WirePointSet, WireTest
 
 FOLDER = Path(__file__).with_name("golden")
 DIGESTS = FOLDER / "digests.json"
@@ -55,8 +54,19 @@ def _cplx(*shape: int, offset: int = 0) -> np.ndarray:
     return c
 
 
-def wire_point_set(n_resp: int = 2, n_freq: int = 9, n_hits: int = 2) -> WirePointSet:
-    """A fixed `WirePointSet` (hits with data)."""
+Values = Callable[..., np.ndarray]
+"""(*shape, offset=k) -> array of that shape; k tells arrays of one point set apart."""
+
+
+def wire_point_set(
+    n_resp: int = 2,
+    n_freq: int = 9,
+    n_hits: int = 2,
+    real: Values = _real,
+    cplx: Values = _cplx,
+    block: int = 16,
+) -> WirePointSet:
+    """A fixed `WirePointSet` (hits with data); `real` and `cplx` make its arrays."""
     hits = tuple(
         WireHit(
             trigger_index=4096 * i + 17,
@@ -65,7 +75,7 @@ def wire_point_set(n_resp: int = 2, n_freq: int = 9, n_hits: int = 2) -> WirePoi
             peak_force_n=150.5 + i if i else float("nan"),
             pulse_width_s=0.000375 * (i + 1),
             findings=(("double_hit", "a second pulse 3 ms after the first"),) if i else (),
-            data=_real(1 + n_resp, 16, offset=i).astype("<f4"),
+            data=real(1 + n_resp, block, offset=i).astype("<f4"),
         )
         for i in range(n_hits)
     )
@@ -82,12 +92,12 @@ def wire_point_set(n_resp: int = 2, n_freq: int = 9, n_hits: int = 2) -> WirePoi
         response_points=tuple(f"A{i + 1}" for i in range(n_resp)),
         n_averages=n_hits,
         freq_hz=np.arange(n_freq, dtype="<f8") * 0.5,
-        h1=_cplx(n_resp, n_freq, offset=1),
-        h2=_cplx(n_resp, n_freq, offset=2),
-        coherence=_real(n_resp, n_freq, offset=5),
-        gff=_real(n_freq, offset=6),
-        gxx=_real(n_resp, n_freq, offset=7),
-        gfx=_cplx(n_resp, n_freq, offset=8),
+        h1=cplx(n_resp, n_freq, offset=1),
+        h2=cplx(n_resp, n_freq, offset=2),
+        coherence=real(n_resp, n_freq, offset=5),
+        gff=real(n_freq, offset=6),
+        gxx=real(n_resp, n_freq, offset=7),
+        gfx=cplx(n_resp, n_freq, offset=8),
         hits=hits,
         meta={"operator": "mt", "window": {"force_s": 0.002, "tau_s": 0.25}, "tags": [1, "x"]},
     )
@@ -101,27 +111,8 @@ def daemon_point_set(n_resp: int = 2, n_freq: int = 9) -> PointSet:
                   tuple(Finding(c, m) for c, m in h.findings), None)
         for h in w.hits
     )  # fmt: skip
-    return PointSet(
-        test=w.test,
-        point=w.point,
-        version=w.version,
-        roving_mode=RovingMode.HAMMER,
-        drive_point=w.drive_point,
-        response_labels=w.response_labels,
-        response_points=w.response_points,
-        n_averages=w.n_averages,
-        freq_hz=w.freq_hz,
-        h1=w.h1,
-        h2=w.h2,
-        coherence=w.coherence,
-        gff=w.gff,
-        gxx=w.gxx,
-        gfx=w.gfx,
-        hits=hits,
-        meta=w.meta,
-        completed_utc=w.completed_utc,
-        seq=w.seq,
-    )
+    values = {**field_values(w), "roving_mode": RovingMode.HAMMER}
+    return PointSet(**values, hits=hits)
 
 
 def encodings() -> dict[str, bytes]:
@@ -159,5 +150,6 @@ def write() -> None:
 
 
 if __name__ == "__main__":
+    if sys.argv[1:] != ["--write"]:
+        sys.exit("usage: python tests/schema/golden.py --write  (rewrites the golden files)")
     write()
-    sys.exit(0)
