@@ -174,11 +174,14 @@ def _hit_to_obj(h: WireHit, where: str, with_data: bool) -> dict[str, Any]:
 
 def _hit_from_obj(obj: Any, where: str) -> WireHit:
     f = exact(obj, where, _HIT_FIELDS)
-    data, data_at = f[HIT_DATA.name], at(where, HIT_DATA.name)
+    d = HIT_DATA
+    data = f[d.name]
+    if data is not None or not d.optional:
+        data = array_from_obj(data, d.dtype, d.ndim, at(where, d.name))
     return WireHit(
         **_checked(f.__getitem__, HIT_SCALARS, where),
         findings=_findings(f["findings"], at(where, "findings")),
-        data=None if data is None else array_from_obj(data, HIT_DATA.dtype, HIT_DATA.ndim, data_at),
+        data=data,
     )
 
 
