@@ -630,8 +630,7 @@ class Store:
     ) -> list[WirePointSetSummary]:
         """Point sets with seq > since_seq, in seq order; latest_only: highest version only."""
         sql = (
-            "SELECT p.id, t.name AS test, p.point, p.version, p.seq, p.completed_utc, "
-            "p.n_averages FROM point_sets p JOIN tests t ON t.id = p.test_id "
+            f"SELECT {_SUMMARY_COLUMNS} FROM point_sets p JOIN tests t ON t.id = p.test_id "
             "WHERE p.seq > ? AND (? IS NULL OR t.name = ?)"
         )
         if latest_only:
@@ -748,6 +747,10 @@ _PS_COLUMNS = (
     *(a.column for a in ARRAYS),
 )
 _HIT_COLUMNS = ("point_set_id", "ordinal", *HIT_SCALARS, "findings", HIT_DATA.column)
+_SUMMARY_COLUMNS = ", ".join(
+    "t.name AS test" if f.name == "test" else f"p.{f.name}"
+    for f in dataclasses.fields(WirePointSetSummary)
+)
 
 
 def _insert_sql(table: str, columns: Sequence[str]) -> str:
