@@ -144,7 +144,8 @@ def _checked(get: Callable[[str], Any], names: tuple[str, ...], where: str) -> d
     return {name: _RULES[name](get(name), at(where, name)) for name in names}
 
 
-def _check_shapes(scalars: dict[str, Any], shapes: dict[str, tuple[int, ...]]) -> None:
+def _shapes_must_agree(scalars: dict[str, Any], shapes: dict[str, tuple[int, ...]]) -> None:
+    """SchemaError naming the array whose shape disagrees (`schema.pointset.check_shapes`)."""
     n_labels, n_points = len(scalars["response_labels"]), len(scalars["response_points"])
     problem = check_shapes(n_labels, n_points, shapes)
     if problem is not None:
@@ -194,7 +195,7 @@ def point_set_to_obj(ps: WirePointSet, with_hits: bool) -> dict[str, Any]:
     """
     scalars = _checked(lambda k: getattr(ps, k), _PS_SCALARS, "")
     encoded = {a.name: array_to_obj(getattr(ps, a.name), a.dtype, a.ndim, a.name) for a in ARRAYS}
-    _check_shapes(scalars, {name: tuple(a["shape"]) for name, a in encoded.items()})
+    _shapes_must_agree(scalars, {name: tuple(a["shape"]) for name, a in encoded.items()})
     hits = sequence(ps.hits, "hits")
     out: dict[str, Any] = {"schema": SCHEMA_VERSION}
     out.update(scalars)
@@ -217,7 +218,7 @@ def point_set_from_obj(obj: Any) -> WirePointSet:
     arrays: dict[str, Any] = {
         a.name: array_from_obj(f[a.name], a.dtype, a.ndim, a.name) for a in ARRAYS
     }
-    _check_shapes(scalars, {name: a.shape for name, a in arrays.items()})
+    _shapes_must_agree(scalars, {name: a.shape for name, a in arrays.items()})
     hits = tuple(_hit_from_obj(h, f"hits[{i}]") for i, h in enumerate(sequence(f["hits"], "hits")))
     return WirePointSet(**scalars, **arrays, hits=hits, meta=meta_map(f["meta"], "meta"))
 
