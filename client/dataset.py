@@ -2,7 +2,7 @@
 
 `TestData` is the client's plain record of a test: one row per grid point that has a
 completed point set (the latest version of each point), stacked into numpy arrays of one
-shape, with the metadata a fitter needs. It is built from `taprig.schema.wire` records by
+shape, with the metadata a fitter needs. It is built from `taprig.schema.records` records by
 `assemble` and knows nothing of HTTP or SQLite.
 """
 
@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 
 from taprig.schema import WARNING_CODES
-from taprig.schema.wire import WirePointSet, WireTest
+from taprig.schema.records import WirePointSet, WireTest
 
 
 @dataclass(frozen=True, slots=True, eq=False)

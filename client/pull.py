@@ -18,7 +18,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Final
 
-from taprig.schema import wire
+from taprig.schema import codec, objects, records
 
 from .errors import ClientError
 from .mirror import MAX_BODY, Mirror, MirroredPointSet
@@ -45,16 +45,16 @@ class PullReport:
     bytes: int = 0
     seconds: float = 0.0
     cursor: int = 0
-    new: list[wire.WirePointSetSummary] = field(default_factory=list)
+    new: list[records.WirePointSetSummary] = field(default_factory=list)
 
     @property
     def mb_per_s(self) -> float:
         return self.bytes / 1e6 / self.seconds if self.seconds > 0 else 0.0
 
 
-def feed(client: RigClient, since: int) -> list[wire.WireChange]:
+def feed(client: RigClient, since: int) -> list[records.WireChange]:
     """Every change after `since`, in order (all pages)."""
-    out: list[wire.WireChange] = []
+    out: list[records.WireChange] = []
     while True:
         changes, last, more = client.changes(since)
         out.extend(changes)
@@ -83,11 +83,11 @@ def pull(
     if progress is not None:
         progress(0, len(wanted))
     tests = {t.name: t for t in client.tests()}
-    batch: list[tuple[wire.WireChange, MirroredPointSet | wire.WireTest | None]] = []
+    batch: list[tuple[records.WireChange, MirroredPointSet | records.WireTest | None]] = []
     batch_bytes, batch_start = 0, time.perf_counter()
     with Prefetch(client, wanted) as bodies:
         for change in changes:
-            item: MirroredPointSet | wire.WireTest | None = None
+            item: MirroredPointSet | records.WireTest | None = None
             if change.kind == "test":
                 item = tests.get(change.test) or client.test(change.test)
             elif change.point_set_id is not None:
@@ -172,10 +172,10 @@ def _fetch(client: RigClient, point_set_id: int) -> MirroredPointSet:
     # Decoded once, strictly: a body that passes the checksum but not the schema is refused
     # here, before it reaches the mirror.
     try:
-        ps = wire.point_set_from_obj(wire.unpack(body.data, max_bytes=MAX_BODY))
-    except wire.SchemaError as exc:
+        ps = objects.point_set_from_obj(codec.unpack(body.data, max_bytes=MAX_BODY))
+    except records.SchemaError as exc:
         raise ClientError(f"point set {point_set_id} from the rig is not readable: {exc}") from None
-    summary = wire.WirePointSetSummary(
+    summary = records.WirePointSetSummary(
         ps.id, ps.test, ps.point, ps.version, ps.seq, ps.completed_utc, ps.n_averages
     )
     if ps.id != point_set_id:
@@ -185,7 +185,7 @@ def _fetch(client: RigClient, point_set_id: int) -> MirroredPointSet:
 
 def _store(
     mirror: Mirror,
-    batch: list[tuple[wire.WireChange, MirroredPointSet | wire.WireTest | None]],
+    batch: list[tuple[records.WireChange, MirroredPointSet | records.WireTest | None]],
     report: PullReport,
     advance: bool,
 ) -> None:
@@ -193,7 +193,7 @@ def _store(
         return
     with mirror.transaction():
         for change, item in batch:
-            if isinstance(item, wire.WireTest):
+            if isinstance(item, records.WireTest):
                 mirror.put_test(item)
                 report.tests += 1
             elif isinstance(item, MirroredPointSet):

@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
-import datetime as dt
 import json
 import math
 import queue
@@ -34,6 +33,17 @@ from pathlib import Path
 from typing import Any, ClassVar, TypeVar
 
 import numpy as np
+
+from taprig.schema.pointset import (
+    ARRAY_DTYPES,
+    ARRAYS,
+    HIT_DATA,
+    HIT_SCALARS,
+    SCALARS,
+    check_shapes,
+    utc_now,
+)
+from taprig.schema.records import WirePointSetSummary
 
 from .errors import AlreadyExists, DiskFullError, NotFound, StoreError
 from .records import Finding, GridPoint, PointSet, RovingMode, StoredHit
@@ -148,19 +158,6 @@ class TestPlan:
 
 
 @dataclass(frozen=True, slots=True)
-class PointSetSummary:
-    """One stored point set without its arrays."""
-
-    id: int
-    test: str
-    point: str
-    version: int
-    seq: int
-    completed_utc: str
-    n_averages: int
-
-
-@dataclass(frozen=True, slots=True)
 class Change:
     """One entry of the change feed: a new test (point_set_id None) or a new point set."""
 
@@ -184,13 +181,8 @@ class StoreStats:
     schema_version: int
 
 
-def utc_now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
-
-
 # ---------------------------------------------------------------- arrays as BLOBs
 
-_F4, _F8, _C16 = np.dtype("<f4"), np.dtype("<f8"), np.dtype("<c16")
 _HEAD = struct.Struct("<4sB")
 
 
@@ -216,25 +208,17 @@ def decode_array(blob: bytes) -> np.ndarray:
     except (struct.error, TypeError, ValueError) as exc:
         raise StoreError(f"corrupt array BLOB header ({len(blob)} bytes): {exc}") from exc
     offset = _HEAD.size + 8 * ndim
-    if dtype not in (_F4, _F8, _C16) or len(blob) - offset != dtype.itemsize * math.prod(shape):
+    if dtype.str not in ARRAY_DTYPES or len(blob) - offset != dtype.itemsize * math.prod(shape):
         raise StoreError(f"corrupt array BLOB ({dtype}, shape {shape}, {len(blob)} bytes)")
     return np.frombuffer(blob, dtype, offset=offset).reshape(shape)
 
 
 def _check_shapes(ps: PointSet) -> None:
-    n_resp, n_freq = len(ps.response_labels), int(np.shape(ps.freq_hz)[0])
-    if len(ps.response_points) != n_resp:
-        raise StoreError(
-            f"point set {ps.point}: {n_resp} response labels, "
-            f"{len(ps.response_points)} response points"
-        )
-    for name in ("h1", "h2", "coherence", "gxx", "gfx", "gff"):
-        want = (n_freq,) if name == "gff" else (n_resp, n_freq)
-        if np.shape(getattr(ps, name)) != want:
-            raise StoreError(
-                f"point set {ps.point}: {name} has shape "
-                f"{np.shape(getattr(ps, name))}, expected {want}"
-            )
+    """StoreError when the arrays of `ps` do not agree (`schema.pointset.check_shapes`)."""
+    shapes = {a.name: np.shape(getattr(ps, a.name)) for a in ARRAYS}
+    problem = check_shapes(len(ps.response_labels), len(ps.response_points), shapes)
+    if problem is not None:
+        raise StoreError(f"point set {ps.point!r}: {problem[0]}: {problem[1]}")
 
 
 # ---------------------------------------------------------------- the store
@@ -578,11 +562,10 @@ class Store:
 
     def list_point_sets(
         self, test: str | None = None, since_seq: int = 0, latest_only: bool = False
-    ) -> list[PointSetSummary]:
+    ) -> list[WirePointSetSummary]:
         """Point sets with seq > since_seq, in seq order; latest_only: highest version only."""
         sql = (
-            "SELECT p.id, t.name AS test, p.point, p.version, p.seq, p.completed_utc, "
-            "p.n_averages FROM point_sets p JOIN tests t ON t.id = p.test_id "
+            f"SELECT {_SUMMARY_COLUMNS} FROM point_sets p JOIN tests t ON t.id = p.test_id "
             "WHERE p.seq > ? AND (? IS NULL OR t.name = ?)"
         )
         if latest_only:
@@ -591,7 +574,7 @@ class Store:
                 "WHERE q.test_id = p.test_id AND q.point = p.point)"
             )
         rows = self._query(sql + " ORDER BY p.seq", (since_seq, test, test))
-        return [PointSetSummary(**dict(r)) for r in rows]
+        return [WirePointSetSummary(**dict(r)) for r in rows]
 
     def get_point_set(self, point_set_id: int, with_hits: bool = False) -> PointSet:
         """The stored point set; its hits carry data=None unless with_hits."""
@@ -666,7 +649,7 @@ def _stats(conn: sqlite3.Connection, path: Path) -> StoreStats:
 # ---------------------------------------------------------------- rows ↔ records
 
 
-_HIT_FIELDS = "trigger_index, utc, accepted, peak_force_n, pulse_width_s, findings"
+_HIT_FIELDS = ", ".join((*HIT_SCALARS, "findings"))
 
 
 def _next_seq(conn: sqlite3.Connection) -> int:
@@ -690,60 +673,61 @@ def _next_version(conn: sqlite3.Connection, test_id: int, point: str) -> int:
     return 1 + int(conn.execute(sql, (test_id, point)).fetchone()[0])
 
 
-# Named columns, so that a later migration may add columns to these tables.
+# Named columns, so that a later migration may add columns to these tables. A point set's
+# scalars keep their names (its test is test_id), each array has the column of its ArraySpec.
 _PS_COLUMNS = (
-    "test_id, point, version, seq, completed_utc, n_averages, roving_mode, drive_point, "
-    "response_labels, response_points, meta, freq, h1, h2, coherence, gff, gxx, gfx"
+    "test_id",
+    *(name for name in SCALARS if name != "test"),
+    "meta",
+    *(a.column for a in ARRAYS),
 )
-_HIT_COLUMNS = (
-    "point_set_id, ordinal, trigger_index, utc, accepted, peak_force_n, pulse_width_s, "
-    "findings, data"
+_HIT_COLUMNS = ("point_set_id", "ordinal", *HIT_SCALARS, "findings", HIT_DATA.column)
+_SUMMARY_COLUMNS = ", ".join(
+    "t.name AS test" if f.name == "test" else f"p.{f.name}"
+    for f in dataclasses.fields(WirePointSetSummary)
 )
 
 
-def _insert_sql(table: str, columns: str) -> str:
-    marks = ", ".join("?" * len(columns.split(",")))
-    return f"INSERT INTO {table} ({columns}) VALUES ({marks})"
+def _insert_sql(table: str, columns: Sequence[str]) -> str:
+    marks = ", ".join("?" * len(columns))
+    return f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({marks})"
 
 
 def _point_set_row(test_id: int, ps: PointSet) -> tuple[Any, ...]:
-    labels = _to_json(list(ps.response_labels), "response labels")
-    points = _to_json(list(ps.response_points), "response points")
-    meta = _to_json(ps.meta, f"meta of point set {ps.point!r}")
-    head = (test_id, ps.point, ps.version, ps.seq, ps.completed_utc, int(ps.n_averages))
-    mode = RovingMode(ps.roving_mode).value
-    return (*head, mode, ps.drive_point, labels, points, meta, *_array_blobs(ps))
-
-
-def _array_blobs(ps: PointSet) -> list[bytes]:
-    spec = [
-        ("freq_hz", _F8, 1),
-        ("h1", _C16, 2),
-        ("h2", _C16, 2),
-        ("coherence", _F8, 2),
-        ("gff", _F8, 1),
-        ("gxx", _F8, 2),
-        ("gfx", _C16, 2),
-    ]
-    return [encode_array(getattr(ps, f), d, n, f"point set {ps.point!r}: {f}") for f, d, n in spec]
+    """The values of `_PS_COLUMNS` for `ps`."""
+    values = {name: getattr(ps, name) for name in SCALARS}
+    values["test_id"] = test_id
+    values["n_averages"] = int(ps.n_averages)
+    values["roving_mode"] = RovingMode(ps.roving_mode).value
+    values["response_labels"] = _to_json(list(ps.response_labels), "response labels")
+    values["response_points"] = _to_json(list(ps.response_points), "response points")
+    values["meta"] = _to_json(ps.meta, f"meta of point set {ps.point!r}")
+    for a in ARRAYS:
+        values[a.column] = encode_array(
+            getattr(ps, a.name), a.dtype, a.ndim, f"point set {ps.point!r}: {a.name}"
+        )
+    return tuple(values[column] for column in _PS_COLUMNS)
 
 
 def _hit_rows(point_set_id: int, hits: Iterable[StoredHit]) -> Iterator[tuple[Any, ...]]:
+    """The values of `_HIT_COLUMNS` for each hit."""
     # A generator: each hit is encoded as it is inserted, so a bad hit fails mid-transaction.
+    d = HIT_DATA
     for i, h in enumerate(hits):
-        data = None if h.data is None else encode_array(h.data, _F4, 2, f"hit {i} data")
+        data = None if h.data is None else encode_array(h.data, d.dtype, d.ndim, f"hit {i} data")
         findings = _to_json([[f.code, f.message] for f in h.findings], f"hit {i} findings")
-        yield (
-            point_set_id,
-            i,
-            int(h.trigger_index),
-            h.utc,
-            int(bool(h.accepted)),
-            float(h.peak_force_n),
-            float(h.pulse_width_s),
-            findings,
-            data,
+        values = {name: getattr(h, name) for name in HIT_SCALARS}
+        values.update(
+            point_set_id=point_set_id,
+            ordinal=i,
+            trigger_index=int(h.trigger_index),
+            accepted=int(bool(h.accepted)),
+            peak_force_n=float(h.peak_force_n),
+            pulse_width_s=float(h.pulse_width_s),
+            findings=findings,
+            data=data,
         )
+        yield tuple(values[column] for column in _HIT_COLUMNS)
 
 
 def _test_plan(conn: sqlite3.Connection, row: sqlite3.Row) -> TestPlan:
@@ -767,39 +751,22 @@ def _test_plan(conn: sqlite3.Connection, row: sqlite3.Row) -> TestPlan:
 
 
 def _point_set(row: sqlite3.Row, hits: Sequence[sqlite3.Row]) -> PointSet:
-    def arr(column: str) -> np.ndarray:
-        return decode_array(row[column])
-
-    return PointSet(
-        test=row["test"],
-        point=row["point"],
-        version=row["version"],
-        roving_mode=RovingMode(row["roving_mode"]),
-        drive_point=row["drive_point"],
-        response_labels=tuple(json.loads(row["response_labels"])),
-        response_points=tuple(json.loads(row["response_points"])),
-        n_averages=row["n_averages"],
-        freq_hz=arr("freq"),
-        h1=arr("h1"),
-        h2=arr("h2"),
-        coherence=arr("coherence"),
-        gff=arr("gff"),
-        gxx=arr("gxx"),
-        gfx=arr("gfx"),
-        hits=tuple(_stored_hit(h) for h in hits),
-        meta=json.loads(row["meta"]),
-        completed_utc=row["completed_utc"],
-        seq=row["seq"],
-    )
+    """The `PointSet` of a point_sets row (with its test's name as ``test``) and its hits."""
+    values = {name: row[name] for name in SCALARS}
+    values["roving_mode"] = RovingMode(row["roving_mode"])
+    values["response_labels"] = tuple(json.loads(row["response_labels"]))
+    values["response_points"] = tuple(json.loads(row["response_points"]))
+    arrays: dict[str, Any] = {a.name: decode_array(row[a.column]) for a in ARRAYS}
+    stored = tuple(_stored_hit(h) for h in hits)
+    return PointSet(**values, **arrays, hits=stored, meta=json.loads(row["meta"]))
 
 
 def _stored_hit(h: sqlite3.Row) -> StoredHit:
-    return StoredHit(
-        h["trigger_index"],
-        h["utc"],
-        bool(h["accepted"]),
-        math.nan if h["peak_force_n"] is None else h["peak_force_n"],
-        math.nan if h["pulse_width_s"] is None else h["pulse_width_s"],
-        tuple(Finding(c, m) for c, m in json.loads(h["findings"])),
-        None if h["data"] is None else decode_array(h["data"]),
-    )
+    """The `StoredHit` of a hits row; SQLite's NULL for a NaN measure reads back as NaN."""
+    values = {name: h[name] for name in HIT_SCALARS}
+    values["accepted"] = bool(h["accepted"])
+    for name in ("peak_force_n", "pulse_width_s"):
+        values[name] = math.nan if h[name] is None else h[name]
+    findings = tuple(Finding(c, m) for c, m in json.loads(h["findings"]))
+    data = None if h[HIT_DATA.column] is None else decode_array(h[HIT_DATA.column])
+    return StoredHit(**values, findings=findings, data=data)

@@ -13,7 +13,7 @@ from typing import Any, Final
 
 from aiohttp import web
 
-from taprig.schema import wire
+from taprig.schema import http
 
 from ..records import RovingMode
 
@@ -170,7 +170,7 @@ ROUTES: Final[tuple[Route, ...]] = (
           "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept",
           params=(_POINT_ID, Param("hits", "query", {"type": "integer", "enum": [0, 1]},
                                    "1: include every hit's raw record")),
-          media=(JSON, wire.MSGPACK), errors=(404, 503)),
+          media=(JSON, http.MSGPACK), errors=(404, 503)),
     Route("GET", "/v1/changes", "getChanges", "changes",
           "the change feed after `since`; waits up to `wait` s for a change",
           params=(Param("since", "query", SEQ, "last seq the client has seen (default 0)"),

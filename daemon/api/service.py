@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING, Final
 
 from aiohttp import web
 
-from taprig.schema import API_VERSION, wire
+from taprig.schema import API_VERSION, http, objects, records
 
 from .. import __version__, identity, page
 from ..errors import TaprigError
@@ -209,7 +209,7 @@ class Service:
     async def _on_info(self, call: Call) -> web.StreamResponse:
         return json_response({
             "rig": self.rig_name, "rig_id": self.rig_id, "api_version": API_VERSION,
-            "schema_version": wire.SCHEMA_VERSION, "daemon_version": __version__,
+            "schema_version": records.SCHEMA_VERSION, "daemon_version": __version__,
         })  # fmt: skip
 
     async def _on_health(self, call: Call) -> web.StreamResponse:
@@ -258,11 +258,11 @@ class Service:
         if test is not None:
             await asyncio.to_thread(self.store.get_test, test)  # NotFound: 404
         rows = await asyncio.to_thread(self.store.list_point_sets, test, call.args.get("since", 0))
-        return reply(call, {"points": [wire.point_set_summary_json(s) for s in rows]})
+        return reply(call, {"points": [objects.point_set_summary_json(s) for s in rows]})
 
     async def _on_point(self, call: Call) -> web.StreamResponse:
         pid, with_hits = call.args["id"], bool(call.args.get("hits", 0))
-        key = (pid, with_hits, wire.wants_msgpack(call.request.headers.get("Accept")))
+        key = (pid, with_hits, http.wants_msgpack(call.request.headers.get("Accept")))
         encoded = self._bodies.get(key)
         if encoded is None:  # NotFound for an id never stored: 404
             encoded = await asyncio.to_thread(encode_point_set, self.store, *key)
@@ -276,7 +276,7 @@ class Service:
             lambda: asyncio.to_thread(self.store.changes, since, CHANGES_LIMIT),
             call.args.get("wait", 0.0),
         )
-        objs = [wire.change_to_obj(wire.change_from_record(c)) for c in changes]
+        objs = [objects.change_to_obj(records.change_from_record(c)) for c in changes]
         last = changes[-1].seq if changes else since
         return reply(call, {"changes": objs, "last_seq": last,
                             "more": len(changes) == CHANGES_LIMIT})  # fmt: skip

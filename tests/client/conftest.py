@@ -43,7 +43,7 @@ from taprig.firmware_protocol.virtual import (
     write_truth,
 )
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
-from taprig.schema import wire
+from taprig.schema import records
 
 N_RESP = 2
 N_FREQ = 4097
@@ -228,10 +228,10 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
             assert _next(events, "completed").data["point"] == label
         store = r.store
         sets = [
-            wire.point_set_from_record(s.id, store.get_point_set(s.id, True))
+            records.point_set_from_record(s.id, store.get_point_set(s.id, True))
             for s in store.list_point_sets(test="panel-check")
         ]
-        test = wire.test_from_record(store.get_test("panel-check"))
+        test = records.test_from_record(store.get_test("panel-check"))
     finally:
         r.close()
     data = assemble(test, sets, rig="virtual", rig_id="virtual-1")

@@ -24,7 +24,7 @@ from taprig.client.mirror import Mirror
 from taprig.client.pull import pull
 from taprig.client.remote import RigClient, RigError, TransferError
 from taprig.client.rigs import Places, RigBook, parse_pairing_url
-from taprig.schema import wire
+from taprig.schema import records
 
 from .conftest import ServedRig, commit_synthetic, pair
 
@@ -37,7 +37,7 @@ def assert_mirror_is_rig(mirror: Mirror, served: ServedRig) -> None:
     ids = [s.id for s in store.list_point_sets()]
     assert [i for i, _ in mirror.digests()] == sorted(ids)
     for pid in ids:
-        stored = store.get_wire_body(pid, wire.SCHEMA_VERSION)
+        stored = store.get_wire_body(pid, records.SCHEMA_VERSION)
         assert stored is not None
         assert mirror.body(pid) == (stored[0], bytes(stored[1]))
         ps, ours = store.get_point_set(pid), mirror.point_set(pid)

@@ -17,7 +17,7 @@ import pytest
 from taprig.client.archive import Archive, ArchiveError, Archiver, get_model, put_model, trend
 from taprig.client.archive.db import SCHEMA_VERSION, migrate, migrations
 from taprig.client.archive.store import part_of
-from taprig.schema import wire
+from taprig.schema import http, records
 
 from ..conftest import ServedRig
 from .conftest import commit_panel, commit_sets, config, follow_once, rig_bodies, stiffer, until
@@ -38,7 +38,7 @@ def assert_archive_is_rigs(dsn: str, served: list[ServedRig]) -> None:
     assert held.keys() == want.keys()
     for key, (digest, body) in held.items():
         assert (digest, body) == want[key], key
-        assert wire.digest_matches(digest, body)
+        assert http.digest_matches(digest, body)
     with psycopg.connect(dsn) as conn:
         cursors = dict(conn.execute("SELECT rig_id, cursor FROM rigs").fetchall())
     for r in served:
@@ -117,8 +117,8 @@ def test_reader_has_the_mirrors_interface_and_queries_across_rigs(
 
 
 def test_part_type_is_meta_part_else_the_name_without_its_serial() -> None:
-    def named(name: str, meta: dict[str, object]) -> wire.WireTest:
-        return wire.WireTest(name, "hammer", "P0", 3, "2026-12-03T00:00:00Z", 1, (), meta)
+    def named(name: str, meta: dict[str, object]) -> records.WireTest:
+        return records.WireTest(name, "hammer", "P0", 3, "2026-12-03T00:00:00Z", 1, (), meta)
 
     assert part_of(named("bracket-A7-2026-12-03", {})) == "bracket-A7"
     assert part_of(named("housing_0017", {})) == "housing"
