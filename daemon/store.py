@@ -41,6 +41,7 @@ from taprig.schema.pointset import (
     HIT_SCALARS,
     SCALARS,
     check_shapes,
+    in_dtype,
     utc_now,
 )
 from taprig.schema.records import WirePointSetSummary
@@ -278,7 +279,7 @@ class Store:
         self.timeout_s = timeout_s
         self._body_encoder = body_encoder
         self._conn = self._open_writer()
-        self._jobs: queue.SimpleQueue[tuple[Job, Future[Any]] | None] = queue.SimpleQueue()
+        self._jobs: queue.SimpleQueue[tuple[Job, Future[Any], bool] | None] = queue.SimpleQueue()
         self._lock = threading.Lock()
         self._local = threading.local()
         self._readers: list[sqlite3.Connection] = []
@@ -349,12 +350,15 @@ class Store:
 
     def _run(self) -> None:
         while (item := self._jobs.get()) is not None:
-            job, future = item
+            job, future, own = item
             if not future.set_running_or_notify_cancel():
                 continue
             try:
-                with self._transaction(self._conn):
+                if own:  # the job opens its own transaction (work to do before it)
                     result = job(self._conn)
+                else:
+                    with self._transaction(self._conn):
+                        result = job(self._conn)
             except Exception as exc:
                 future.set_exception(self._as_store_error(exc))
             else:
@@ -376,13 +380,19 @@ class Store:
         new.__cause__ = exc
         return new
 
-    def submit(self, job: Callable[[sqlite3.Connection], T]) -> Future[T]:
-        """Queue `job(write_connection)` to run in its own transaction on the writer thread."""
+    def submit(
+        self, job: Callable[[sqlite3.Connection], T], own_transaction: bool = False
+    ) -> Future[T]:
+        """Queue `job(write_connection)` to run in its own transaction on the writer thread.
+
+        own_transaction: the job opens and ends its transaction itself (`_transaction`), so
+        that it can do slow work first without holding the write lock.
+        """
         future: Future[T] = Future()
         with self._lock:
             if self._closed:
                 raise StoreError(f"store {self.path} is closed")
-            self._jobs.put((job, future))
+            self._jobs.put((job, future, own_transaction))
         return future
 
     def _call(self, job: Callable[[sqlite3.Connection], T]) -> T:
@@ -470,7 +480,7 @@ class Store:
     def submit_point_set(self, ps: PointSet) -> Future[PointSet]:
         """Queue a commit of `ps`; the future gives it back with version, seq, completed_utc."""
         _check_shapes(ps)
-        return self.submit(lambda conn: self._insert_point_set(conn, ps))
+        return self.submit(lambda conn: self._commit_point_set(conn, ps), own_transaction=True)
 
     def commit_point_set(self, ps: PointSet) -> PointSet:
         """Commit `ps` and all its hits in one transaction (blocking, `timeout_s` at most).
@@ -481,22 +491,42 @@ class Store:
         """
         return self._wait(self.submit_point_set(ps))
 
-    def _insert_point_set(self, conn: sqlite3.Connection, ps: PointSet) -> PointSet:
-        test_id = _test_id(conn, ps.test, ps.point)
-        done = dataclasses.replace(
-            ps,
-            version=_next_version(conn, test_id, ps.point),
-            seq=_next_seq(conn),
-            completed_utc=ps.completed_utc or utc_now(),
-        )
-        cur = conn.execute(_insert_sql("point_sets", _PS_COLUMNS), _point_set_row(test_id, done))
-        pid = int(cur.lastrowid or 0)
-        conn.executemany(_insert_sql("hits", _HIT_COLUMNS), _hit_rows(pid, done.hits))
-        if self._body_encoder is not None:
-            # Encoded from what was just written, read back, so it is what a reader gets.
-            schema, digest, body = self._body_encoder(pid, _fetch_point_set(conn, pid, False))
-            conn.execute("INSERT INTO wire_bodies VALUES (?, ?, ?, ?)", (pid, schema, digest, body))
+    def _commit_point_set(self, conn: sqlite3.Connection, ps: PointSet) -> PointSet:
+        """On the writer thread: number `ps`, encode its wire body, then one short transaction.
+
+        The body (megabytes to cast, pack and hash) is made before the transaction, so the
+        write lock is held only to copy bytes in. Sound because this thread is the store's
+        only writer: the id, version and seq read here cannot change before it writes them,
+        and the transaction checks that they did not.
+        """
+        test_id, pid, done = self._numbered(conn, ps)
+        body = None if self._body_encoder is None else self._body_encoder(pid, done)
+        with self._transaction(conn):
+            _, pid_now, now = self._numbered(conn, ps)
+            if (pid_now, now.version, now.seq) != (pid, done.version, done.seq):
+                raise StoreError(f"point set {ps.point!r}: the store changed under its writer")
+            _next_seq(conn)
+            row = _point_set_row(test_id, done)
+            conn.execute(_insert_sql("point_sets", ("id", *_PS_COLUMNS)), (pid, *row))
+            conn.executemany(_insert_sql("hits", _HIT_COLUMNS), _hit_rows(pid, done.hits))
+            if body is not None:
+                conn.execute("INSERT INTO wire_bodies VALUES (?, ?, ?, ?)", (pid, *body))
         return done
+
+    @staticmethod
+    def _numbered(conn: sqlite3.Connection, ps: PointSet) -> tuple[int, int, PointSet]:
+        """(its test's id, the id `ps` gets, `ps` with the version, seq and completed_utc it
+        gets); StoreError if its test or point is not stored."""
+        test_id = _test_id(conn, ps.test, ps.point)
+        pid = 1 + int(conn.execute("SELECT COALESCE(MAX(id), 0) FROM point_sets").fetchone()[0])
+        seq = 1 + int(
+            conn.execute("SELECT value FROM store_meta WHERE key = 'last_seq'").fetchone()[0]
+        )
+        version = _next_version(conn, test_id, ps.point)
+        done = dataclasses.replace(
+            ps, version=version, seq=seq, completed_utc=ps.completed_utc or utc_now()
+        )
+        return test_id, pid, done
 
     # -- reading
 
@@ -581,12 +611,17 @@ class Store:
         with self._reading() as conn:
             return _fetch_point_set(conn, point_set_id, with_hits)
 
-    def get_wire_body(self, point_set_id: int, schema: int) -> tuple[str, bytes] | None:
-        """(digest, body) written at commit for wire schema `schema`, or None if there is none."""
+    def get_wire_body(self, point_set_id: int, *schemas: int) -> tuple[str, bytes] | None:
+        """(digest, body) written at commit for one of the wire schemas `schemas`, or None.
+
+        A body stays as its commit wrote it, also after the schema moved on: a rig serves the
+        bytes every mirror of it already holds, and clients read every older schema.
+        """
+        marks = ", ".join("?" * len(schemas))
         with self._reading() as conn:
             row = conn.execute(
-                "SELECT digest FROM wire_bodies WHERE point_set_id = ? AND schema = ?",
-                (point_set_id, schema),
+                f"SELECT digest FROM wire_bodies WHERE point_set_id = ? AND schema IN ({marks})",
+                (point_set_id, *schemas),
             ).fetchone()
             if row is None:
                 return None
@@ -756,7 +791,10 @@ def _point_set(row: sqlite3.Row, hits: Sequence[sqlite3.Row]) -> PointSet:
     values["roving_mode"] = RovingMode(row["roving_mode"])
     values["response_labels"] = tuple(json.loads(row["response_labels"]))
     values["response_points"] = tuple(json.loads(row["response_points"]))
-    arrays: dict[str, Any] = {a.name: decode_array(row[a.column]) for a in ARRAYS}
+    # Rows of schema 1 hold float64 spectra: read in today's dtypes (schema.pointset).
+    arrays: dict[str, Any] = {
+        a.name: in_dtype(decode_array(row[a.column]), a.dtype) for a in ARRAYS
+    }
     stored = tuple(_stored_hit(h) for h in hits)
     return PointSet(**values, **arrays, hits=stored, meta=json.loads(row["meta"]))
 

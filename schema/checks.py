@@ -14,7 +14,7 @@ from typing import Any, Final, NoReturn
 
 import numpy as np
 
-from .records import SCHEMA_VERSION, SchemaError
+from .records import READ_VERSIONS, SCHEMA_VERSION, SchemaError
 
 MAX_NESTING: Final = 32
 """Deepest nesting of lists and maps accepted in `meta`."""
@@ -125,11 +125,12 @@ def exact(obj: Any, where: str, names: tuple[str, ...], top: bool = False) -> di
     for key in names:
         if key not in obj:
             fail(f"{prefix}{key}", "missing field")
-    if top and integer(obj["schema"], f"{prefix}schema") != SCHEMA_VERSION:
+    if top and integer(obj["schema"], f"{prefix}schema") not in READ_VERSIONS:
         fail(
             f"{prefix}schema",
-            f"schema version {obj['schema']} is not {SCHEMA_VERSION}, the one this side "
-            "speaks; update the older of client and rig",
+            f"schema version {obj['schema']} is not one this side reads (it writes "
+            f"{SCHEMA_VERSION}, reads {', '.join(map(str, sorted(READ_VERSIONS)))}); update "
+            "the older of client and rig",
         )
     return obj
 

@@ -10,7 +10,7 @@ field (``hits[2].data.shape``). Adding a field is a new `SCHEMA_VERSION`.
 The point set's fields, dtypes and dimensions come from `schema.pointset`; this module adds
 only what each scalar may hold (`_RULES`).
 
-Arrays travel as ``{"dtype": "<f8" | "<f4" | "<c16", "shape": [d0, d1, ...], "data": <bin>}``:
+Arrays travel as ``{"dtype": "<f8" | "<f4" | "<c8", "shape": [d0, d1, ...], "data": <bin>}``:
 the raw little-endian C-order bytes of the array, so a round trip is bit for bit (NaN payloads
 included). Each array field has one fixed dtype; the encoder casts to it when the cast stays
 within the kind (float → float, real → complex is refused for real fields) and the decoder
@@ -41,7 +41,16 @@ from .checks import (
     texts,
     top_fields,
 )
-from .pointset import ARRAY_DTYPES, ARRAYS, HIT_DATA, HIT_SCALARS, SCALARS, check_shapes
+from .pointset import (
+    ARRAY_DTYPES,
+    ARRAYS,
+    HIT_DATA,
+    HIT_SCALARS,
+    SCALARS,
+    SCHEMA_DTYPES,
+    check_shapes,
+    in_dtype,
+)
 from .records import (
     CHANGE_KINDS,
     ROVING_MODES,
@@ -210,13 +219,17 @@ def point_set_to_obj(ps: WirePointSet, with_hits: bool) -> dict[str, Any]:
 def point_set_from_obj(obj: Any) -> WirePointSet:
     """The `WirePointSet` of a `point_set_to_obj` object (as `unpack` gives it back).
 
+    Reads every schema of `READ_VERSIONS`: arrays an older schema stored in other dtypes
+    (`SCHEMA_DTYPES`) come back in today's, rounded as a cast rounds (to nearest).
     Strict: SchemaError naming the field for a missing or extra field, a wrong type, a dtype
     other than the field's, a shape that does not match its bytes or the other arrays.
     """
     f = top_fields(obj, "", _PS_FIELDS)
     scalars = _checked(f.__getitem__, _PS_SCALARS, "")
+    dtypes = SCHEMA_DTYPES[f["schema"]]
     arrays: dict[str, Any] = {
-        a.name: array_from_obj(f[a.name], a.dtype, a.ndim, a.name) for a in ARRAYS
+        a.name: in_dtype(array_from_obj(f[a.name], dtypes[a.name], a.ndim, a.name), a.dtype)
+        for a in ARRAYS
     }
     _shapes_must_agree(scalars, {name: a.shape for name, a in arrays.items()})
     hits = tuple(_hit_from_obj(h, f"hits[{i}]") for i, h in enumerate(sequence(f["hits"], "hits")))

@@ -16,11 +16,11 @@ shape checks are derived from the table. Adding an array is one line here.
 field      dtype      dimensions  unit                   meaning
 =========  =========  ==========  =====================  ======================================
 freq_hz    <f8        (F,)        Hz                     frequency lines
-h1, h2     <c16       (R, F)      (m/s²)/N               H1 and H2 estimates of the accelerance
-coherence  <f8        (R, F)      1                      ordinary coherence γ²
-gff        <f8        (F,)        N²/Hz                  one-sided force auto spectrum
-gxx        <f8        (R, F)      (m/s²)²/Hz             one-sided response auto spectra
-gfx        <c16       (R, F)      (m/s²)·N/Hz            one-sided force-response cross spectra
+h1, h2     <c8        (R, F)      (m/s²)/N               H1 and H2 estimates of the accelerance
+coherence  <f4        (R, F)      1                      ordinary coherence γ²
+gff        <f4        (F,)        N²/Hz                  one-sided force auto spectrum
+gxx        <f4        (R, F)      (m/s²)²/Hz             one-sided response auto spectra
+gfx        <c8        (R, F)      (m/s²)·N/Hz            one-sided force-response cross spectra
 hit data   <f4        (C, N)      N, m/s²                a hit's record, optional (None)
 =========  =========  ==========  =====================  ======================================
 
@@ -31,6 +31,17 @@ and one F.
 
 Times (`completed_utc`, a hit's `utc`) are ISO 8601 UTC with milliseconds and a ``Z``, as
 `utc_now` writes them.
+
+Precision (schema 2): the spectra are IEEE 754-2008 binary32 (float32; complex64 is two of
+them): a 24-bit significand, so about 7 significant decimal digits, a relative rounding error
+of at most 2⁻²⁴ ≈ 6.0e-8 per stored value (machine epsilon 2⁻²³ ≈ 1.2e-7), and a range of
+about 1.2e-38 to 3.4e38 (smaller magnitudes down to 1.4e-45 as subnormals, with fewer
+digits). The spectra are computed in float64 and rounded once, when stored. That is far
+finer than an impact test measures: ADCs give 16 to 24 bits, and averaged FRFs of a few taps
+carry relative errors of 1e-3 and more. Frequencies stay float64: the modal fit takes line
+spacings from them. Schema 1 stored the spectra as float64 / complex128 (`ArraySpec.v1`):
+bodies, stores and mirrors written then are read and their spectra rounded to the dtypes
+above (`SCHEMA_DTYPES`).
 """
 
 from __future__ import annotations
@@ -45,8 +56,9 @@ import numpy as np
 
 F4: Final = np.dtype("<f4")
 F8: Final = np.dtype("<f8")
+C8: Final = np.dtype("<c8")
 C16: Final = np.dtype("<c16")
-ARRAY_DTYPES: Final[Mapping[str, np.dtype[Any]]] = {d.str: d for d in (F4, F8, C16)}
+ARRAY_DTYPES: Final[Mapping[str, np.dtype[Any]]] = {d.str: d for d in (F4, F8, C8, C16)}
 """The only dtypes an array of a point set may have, by their numpy code."""
 
 DIMS: Final[Mapping[str, str]] = {
@@ -64,7 +76,8 @@ class ArraySpec:
 
     name: the field's name in every record and on the wire. dtype: its one dtype. dims:
     symbolic dimensions, keys of `DIMS`. unit: SI unit of its values. column: the store's
-    column for it. optional: None is allowed (a hit fetched without its record).
+    column for it. optional: None is allowed (a hit fetched without its record). v1: its
+    dtype in schema 1 where that differs (None: the same).
     """
 
     dtype: np.dtype[Any]
@@ -73,6 +86,7 @@ class ArraySpec:
     column: str = ""
     optional: bool = False
     name: str = ""
+    v1: np.dtype[Any] | None = None
 
     @property
     def ndim(self) -> int:
@@ -80,10 +94,15 @@ class ArraySpec:
 
 
 def _array(
-    dtype: np.dtype[Any], dims: str, unit: str, column: str = "", optional: bool = False
+    dtype: np.dtype[Any],
+    dims: str,
+    unit: str,
+    column: str = "",
+    optional: bool = False,
+    v1: np.dtype[Any] | None = None,
 ) -> dict[str, ArraySpec]:
     """Field metadata of an array: `dims` as letters ("RF" for (R, F))."""
-    return {"array": ArraySpec(dtype, tuple(dims), unit, column, optional)}
+    return {"array": ArraySpec(dtype, tuple(dims), unit, column, optional, v1=v1)}
 
 
 FindingT = TypeVar("FindingT", covariant=True)
@@ -134,12 +153,12 @@ class PointSetFields(Generic[HitT]):
     response_points: tuple[str, ...]
     n_averages: int
     freq_hz: np.ndarray = field(metadata=_array(F8, "F", "Hz", "freq"))
-    h1: np.ndarray = field(metadata=_array(C16, "RF", "(m/s²)/N", "h1"))
-    h2: np.ndarray = field(metadata=_array(C16, "RF", "(m/s²)/N", "h2"))
-    coherence: np.ndarray = field(metadata=_array(F8, "RF", "1", "coherence"))
-    gff: np.ndarray = field(metadata=_array(F8, "F", "N²/Hz", "gff"))
-    gxx: np.ndarray = field(metadata=_array(F8, "RF", "(m/s²)²/Hz", "gxx"))
-    gfx: np.ndarray = field(metadata=_array(C16, "RF", "(m/s²)·N/Hz", "gfx"))
+    h1: np.ndarray = field(metadata=_array(C8, "RF", "(m/s²)/N", "h1", v1=C16))
+    h2: np.ndarray = field(metadata=_array(C8, "RF", "(m/s²)/N", "h2", v1=C16))
+    coherence: np.ndarray = field(metadata=_array(F4, "RF", "1", "coherence", v1=F8))
+    gff: np.ndarray = field(metadata=_array(F4, "F", "N²/Hz", "gff", v1=F8))
+    gxx: np.ndarray = field(metadata=_array(F4, "RF", "(m/s²)²/Hz", "gxx", v1=F8))
+    gfx: np.ndarray = field(metadata=_array(C8, "RF", "(m/s²)·N/Hz", "gfx", v1=C16))
     hits: tuple[HitT, ...]
     meta: dict[str, Any] = field(default_factory=dict)
 
@@ -156,6 +175,12 @@ ARRAYS: Final = _specs(PointSetFields)
 """The table: the point set's arrays in their order on the wire and in the store."""
 (HIT_DATA,) = _specs(HitFields)
 """The one array of a hit: its record."""
+
+SCHEMA_DTYPES: Final[Mapping[int, Mapping[str, np.dtype[Any]]]] = {
+    1: {a.name: a.v1 or a.dtype for a in (*ARRAYS, HIT_DATA)},
+    2: {a.name: a.dtype for a in (*ARRAYS, HIT_DATA)},
+}
+"""Each array's dtype on the wire and in the store, by schema version (the versions read)."""
 
 SCALARS: Final = tuple(
     f.name
@@ -209,6 +234,16 @@ def check_shapes(
             got = list(shapes[spec.name])
             return f"{spec.name}.shape", f"{got} does not fit {fits} (expected {list(want)})"
     return None
+
+
+def in_dtype(arr: np.ndarray, dtype: np.dtype[Any]) -> np.ndarray:
+    """`arr` (read as an older schema stored it) in today's `dtype`, read-only; `arr` itself
+    when it has that dtype already. A cast rounds to nearest (float64 → float32)."""
+    if arr.dtype == dtype:
+        return arr
+    out = arr.astype(dtype)
+    out.flags.writeable = False
+    return out
 
 
 def utc_now() -> str:

@@ -19,8 +19,14 @@ from typing import Any, Final, Protocol
 
 from .pointset import HIT_SCALARS, HitFields, PointSetFields, field_values
 
-SCHEMA_VERSION: Final = 1
-"""Version of the objects below; raised on any change to their fields or meaning."""
+SCHEMA_VERSION: Final = 2
+"""Version of the objects below; raised on any change to their fields or meaning.
+
+1: the first. 2: spectra as float32 / complex64 (were float64 / complex128); every other
+field as in 1 (`schema.pointset`, "Precision").
+"""
+READ_VERSIONS: Final = frozenset({1, SCHEMA_VERSION})
+"""Versions this side reads: bodies stored by older rigs, mirrors and archives stay readable."""
 
 ROVING_MODES: Final = frozenset({"hammer", "sensor"})
 """Values of `roving_mode`: roving hammer (sensors fixed) or roving sensor (hammer fixed)."""

@@ -85,10 +85,12 @@ def encode_point_set(store: Store, pid: int, with_hits: bool, as_msgpack: bool) 
     """(body, content type, Content-Digest value) of a stored point set, per the wire schema.
 
     One worker-thread call. The msgpack body without raw hits was written at commit and is
-    served as stored; anything else is read, encoded and checksummed here.
+    served as stored, in the schema it was written in (clients read every schema of
+    `READ_VERSIONS`, and a mirror holds the bytes it was first served); anything else is
+    read, encoded and checksummed here.
     """
     if as_msgpack and not with_hits:
-        stored = store.get_wire_body(pid, records.SCHEMA_VERSION)
+        stored = store.get_wire_body(pid, *records.READ_VERSIONS)
         if stored is not None:
             digest, body = stored
             return body, http.MSGPACK, digest

@@ -46,11 +46,15 @@ def make_point_set(
     n_hits: int = 3,
     block: int = 512,
 ) -> PointSet:
-    """A deterministic point set of random numbers; meta records how to rebuild it."""
+    """A deterministic point set of random numbers, each array in its stored dtype (the
+    table of schema.pointset); meta records how to rebuild it."""
     rng = np.random.default_rng(seed)
 
     def cplx(*shape: int) -> np.ndarray:
-        return rng.standard_normal(shape) + 1j * rng.standard_normal(shape)
+        return (rng.standard_normal(shape) + 1j * rng.standard_normal(shape)).astype("<c8")
+
+    def real(*shape: int) -> np.ndarray:
+        return rng.uniform(0, 1, shape).astype("<f4")
 
     hits = tuple(
         StoredHit(
@@ -76,9 +80,9 @@ def make_point_set(
         freq_hz=np.linspace(0.0, 1000.0, n_freq),
         h1=cplx(2, n_freq),
         h2=cplx(2, n_freq),
-        coherence=rng.uniform(0, 1, (2, n_freq)),
-        gff=rng.uniform(0, 1, n_freq),
-        gxx=rng.uniform(0, 1, (2, n_freq)),
+        coherence=real(2, n_freq),
+        gff=real(n_freq),
+        gxx=real(2, n_freq),
         gfx=cplx(2, n_freq),
         hits=hits,
         meta={"seed": seed, "n_freq": n_freq, "n_hits": n_hits, "block": block, "note": "é"},

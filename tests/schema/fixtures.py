@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from taprig.schema import codec, objects
+from taprig.schema import codec, objects, pointset
 from taprig.schema.records import WirePointSet
 
 from .golden import wire_point_set
@@ -37,7 +37,27 @@ def make_point_set(
         c.real, c.imag = real(*shape), real(*shape)[..., ::-1]
         return c
 
-    return wire_point_set(n_resp, n_freq, n_hits, real=real, cplx=cplx, block=64)
+    return in_table_dtypes(wire_point_set(n_resp, n_freq, n_hits, real=real, cplx=cplx, block=64))
+
+
+ODD_F4 = np.array([0.0, -0.0, np.inf, -np.inf, 1e-45, np.nan], dtype="<f4")
+ODD_F4[5] = np.frombuffer(struct.pack("<I", 0x7FC0_BEEF), "<f4")[0]  # NaN with a payload
+"""binary32's awkward values: ±0, ±inf, the smallest subnormal (2⁻¹⁴⁹), a NaN payload."""
+
+
+def in_table_dtypes(ps: WirePointSet) -> WirePointSet:
+    """`ps` with each array in its dtype of `schema.pointset` (as a decoder gives it back),
+    float32 ones starting with binary32's awkward values."""
+    arrays = {}
+    for a in pointset.ARRAYS:
+        arr = np.array(getattr(ps, a.name), dtype=a.dtype)
+        if a.dtype.itemsize // (2 if a.dtype.kind == "c" else 1) == 4:
+            parts = [arr.real, arr.imag] if a.dtype.kind == "c" else [arr]
+            for part in parts:
+                n = min(part.size, ODD_F4.size)
+                part.reshape(-1)[:n] = ODD_F4[:n]
+        arrays[a.name] = arr
+    return WirePointSet(**{**fields_of(ps), **arrays})
 
 
 def through_wire(ps: WirePointSet, with_hits: bool = True) -> WirePointSet:

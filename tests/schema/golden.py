@@ -1,10 +1,12 @@
-"""Fixed point sets and their encodings as made by the wire code of December 2026.
+"""Fixed point sets and their encodings, one folder per wire schema version.
 
-The files in `golden/` were written by this module (``python tests/schema/golden.py --write``)
-from the code *before* the wire module was split; `test_golden.py` checks that today's code
-makes the same bytes, because the store keeps bodies encoded by older code and clients verify
-their digests. Do not rewrite them unless the wire format is changed on purpose (a new
-SCHEMA_VERSION).
+`golden/v2/` (schema 2, float32 spectra) was written by this module (``python
+tests/schema/golden.py --write``); `test_golden.py` checks that today's code makes the same
+bytes, because the store keeps bodies as encoded at commit and clients verify their digests.
+Do not rewrite them unless the wire format is changed on purpose (a new SCHEMA_VERSION, and
+then into a new folder). `golden/v1/` holds what schema 1's code wrote (December 2026, before
+the wire module was split; also a store and a mirror, `old_files.py`): never rewritten, it is
+what newer code must still read.
 
 The arrays are built from exact IEEE arithmetic only (integers, halves and quarters, no
 transcendental functions and no random generator), so they are the same on every platform
@@ -35,8 +37,10 @@ from taprig.schema.objects import (
 from taprig.schema.pointset import field_values
 from taprig.schema.records import WireChange, WireHit, WirePointSet, WireTest
 
-FOLDER = Path(__file__).with_name("golden")
+FOLDER = Path(__file__).with_name("golden") / "v2"
 DIGESTS = FOLDER / "digests.json"
+OLD = FOLDER.with_name("v1")
+"""Schema 1's encodings of the same point sets (its arrays float64), and its store and mirror."""
 
 
 def _real(*shape: int, offset: int = 0) -> np.ndarray:
@@ -53,6 +57,9 @@ def _cplx(*shape: int, offset: int = 0) -> np.ndarray:
     c.real, c.imag = _real(*shape, offset=offset), _real(*shape, offset=offset + 3)[..., ::-1]
     return c
 
+
+LARGE_F = 4200
+"""Lines of the large point set (2100 in schema 1, when a complex value took 16 bytes)."""
 
 Values = Callable[..., np.ndarray]
 """(*shape, offset=k) -> array of that shape; k tells arrays of one point set apart."""
@@ -118,8 +125,8 @@ def daemon_point_set(n_resp: int = 2, n_freq: int = 9) -> PointSet:
 def encodings() -> dict[str, bytes]:
     """Every golden encoding by its file name."""
     small = wire_point_set()
-    # 2 × 2100 complex128 = 67,200 bytes: above the codec's splice threshold (65,536).
-    large = wire_point_set(n_resp=2, n_freq=2100, n_hits=1)
+    # 2 × 4200 complex64 = 67,200 bytes: above the codec's splice threshold (65,536).
+    large = wire_point_set(n_resp=2, n_freq=LARGE_F, n_hits=1)
     test = WireTest(
         "bracket-2026", "sensor", "B1", 4, "2026-11-30T08:00:00.000Z", 3,
         (("A1", 0.0, 0.0, 0.0, "+z"), ("B1", 0.125, -0.25, 0.5, "-x")), {"site": "bay 2"},
@@ -140,7 +147,7 @@ KEPT_WHOLE = 100_000
 
 
 def write() -> None:
-    FOLDER.mkdir(exist_ok=True)
+    FOLDER.mkdir(parents=True, exist_ok=True)
     digests = {}
     for name, data in encodings().items():
         digests[name] = hashlib.sha256(data).hexdigest()

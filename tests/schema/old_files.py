@@ -1,7 +1,7 @@
 """A rig's store and a workstation's mirror as written by schema version 1 (December 2026).
 
 Schema 1 kept spectra as float64 / complex128 and hit records as float32 SI values. The two
-SQLite files in `golden/` were written by this module (``python tests/schema/old_files.py
+SQLite files in `golden/v1/` were written by this module (``python tests/schema/old_files.py
 --write``) with the code of schema 1, *before* the format changed, and are committed: newer
 code must open them and read what they hold (`tests/schema/test_old_files.py`). Never rewrite
 them with newer code; they stand for files already on rigs and workstations.
@@ -21,10 +21,10 @@ from pathlib import Path
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 from taprig.schema.pointset import field_values
 
-from .golden import FOLDER, wire_point_set
+from .golden import OLD, wire_point_set
 
-STORE = FOLDER / "v1-store.sqlite3"
-MIRROR = FOLDER / "v1-mirror.sqlite3"
+STORE = OLD / "store.sqlite3"
+MIRROR = OLD / "mirror.sqlite3"
 TEST = "bracket-2026"
 GRID = (GridPoint("A1", 0.0, 0.0, 0.0), GridPoint("D2", 0.125, -0.25, 0.5, "-x"))
 RIG_ID = "0f3c6a52-1d1e-4d43-9a4e-2b6f8d1e7c01"

@@ -23,15 +23,19 @@ from .fixtures import make_point_set
 
 
 def test_the_table_is_the_published_schema() -> None:
-    """Names in wire order, one little-endian dtype each, symbolic dimensions and SI units."""
+    """Names in wire order, one little-endian dtype each, symbolic dimensions and SI units;
+    schema 2's spectra in float32 / complex64, schema 1's in float64 / complex128."""
     table = {a.name: (a.dtype.str, a.dims, a.unit) for a in ARRAYS}
     assert tuple(table) == PUBLISHED
     assert table["freq_hz"] == ("<f8", ("F",), "Hz")
-    assert table["h1"] == table["h2"] == ("<c16", ("R", "F"), "(m/s²)/N")
-    assert table["coherence"] == ("<f8", ("R", "F"), "1")
-    assert table["gff"] == ("<f8", ("F",), "N²/Hz")
-    assert table["gxx"] == ("<f8", ("R", "F"), "(m/s²)²/Hz")
-    assert table["gfx"] == ("<c16", ("R", "F"), "(m/s²)·N/Hz")
+    assert table["h1"] == table["h2"] == ("<c8", ("R", "F"), "(m/s²)/N")
+    assert table["coherence"] == ("<f4", ("R", "F"), "1")
+    assert table["gff"] == ("<f4", ("F",), "N²/Hz")
+    assert table["gxx"] == ("<f4", ("R", "F"), "(m/s²)²/Hz")
+    assert table["gfx"] == ("<c8", ("R", "F"), "(m/s²)·N/Hz")
+    v1 = {name: dtype.str for name, dtype in pointset.SCHEMA_DTYPES[1].items()}
+    assert v1 == {"freq_hz": "<f8", "h1": "<c16", "h2": "<c16", "coherence": "<f8",
+                  "gff": "<f8", "gxx": "<f8", "gfx": "<c16", "data": "<f4"}  # fmt: skip
     assert (HIT_DATA.name, HIT_DATA.dtype.str, HIT_DATA.dims, HIT_DATA.optional) == (
         "data", "<f4", ("C", "N"), True)  # fmt: skip
     assert all(d in pointset.DIMS for a in (*ARRAYS, HIT_DATA) for d in a.dims)
@@ -106,5 +110,6 @@ def test_utc_now_is_iso_8601_utc_with_milliseconds() -> None:
 
 
 def test_dtypes_are_the_wires_only_ones() -> None:
-    assert {a.dtype for a in (*ARRAYS, HIT_DATA)} == set(pointset.ARRAY_DTYPES.values())
+    every = {d for dtypes in pointset.SCHEMA_DTYPES.values() for d in dtypes.values()}
+    assert every == set(pointset.ARRAY_DTYPES.values())
     assert all(np.dtype(code).byteorder in "<=|" for code in pointset.ARRAY_DTYPES)
