@@ -15,6 +15,7 @@ The rig is stopped before the data is handed out, so no thread outlives the fixt
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import dataclasses
 import math
 import queue
@@ -116,11 +117,12 @@ def commit_synthetic(running: RunningRig, test: str, points: int, seed: int = 5)
         ))  # fmt: skip
 
 
-@pytest.fixture
-def served(tmp_path: Path) -> Iterator[ServedRig]:
-    cfg = load_config(None, [f"store.data_dir={tmp_path / 'rig'}", "store.min_free_mb=1"])
+@contextlib.contextmanager
+def serving(data_dir: Path) -> Iterator[ServedRig]:
+    """The real rig on the virtual instrument with its store in `data_dir`, served."""
+    cfg = load_config(None, [f"store.data_dir={data_dir}", "store.min_free_mb=1"])
     running = start_rig(cfg)
-    auth = Auth(tmp_path / "rig", max_failures=10_000)
+    auth = Auth(data_dir, max_failures=10_000)
     try:
         service = Service(running, auth)
         loop = LoopThread(service)
@@ -130,6 +132,12 @@ def served(tmp_path: Path) -> Iterator[ServedRig]:
             loop.close()
     finally:
         running.close()
+
+
+@pytest.fixture
+def served(tmp_path: Path) -> Iterator[ServedRig]:
+    with serving(tmp_path / "rig") as rig:
+        yield rig
 
 
 @pytest.fixture

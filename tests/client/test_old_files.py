@@ -22,16 +22,12 @@ from schema import golden, old_files  # tests/ is on sys.path (tests/conftest.py
 from taprig.client.mirror import Mirror
 from taprig.client.pull import pull
 from taprig.client.remote import RigClient
-from taprig.daemon.api.service import Service
-from taprig.daemon.auth import Auth
-from taprig.daemon.config import load_config
 from taprig.daemon.identity import RIG_ID_FILE
-from taprig.daemon.lifespan import start_rig
 from taprig.daemon.records import PointSet, RovingMode
 from taprig.daemon.store import FILE_NAME, Store
 from taprig.schema import codec, http, pointset, records
 
-from .conftest import LoopThread, ServedRig
+from .conftest import ServedRig, serving
 
 
 def assert_is_schema_1_point_set(ps: pointset.PointSetFields[object]) -> None:
@@ -51,17 +47,8 @@ def old_rig(tmp_path: Path) -> Iterator[ServedRig]:
     data.mkdir()
     shutil.copyfile(old_files.STORE, data / FILE_NAME)
     (data / RIG_ID_FILE).write_text(old_files.RIG_ID + "\n")
-    running = start_rig(load_config(None, [f"store.data_dir={data}", "store.min_free_mb=1"]))
-    auth = Auth(data)
-    try:
-        service = Service(running, auth)
-        loop = LoopThread(service)
-        try:
-            yield ServedRig(running, service, auth.token, loop)
-        finally:
-            loop.close()
-    finally:
-        running.close()
+    with serving(data) as rig:
+        yield rig
 
 
 def test_the_old_store_opens_and_reads_in_todays_dtypes(tmp_path: Path) -> None:
