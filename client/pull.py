@@ -68,8 +68,14 @@ def pull(
     mirror: Mirror,
     test: str | None = None,
     progress: Progress | None = None,
+    with_hits: bool = False,
 ) -> PullReport:
-    """Bring `mirror` up to date with the rig (only `test`'s point sets when given)."""
+    """Bring `mirror` up to date with the rig (only `test`'s point sets when given).
+
+    with_hits: fetch new point sets with every hit's raw record (several times the bytes);
+    without, as the rig stored them at commit, hits listed without records. A point set
+    already mirrored is not fetched again either way.
+    """
     started = time.perf_counter()
     info = client.info()
     mirror.bind(info.rig_id, info.name, client.url)
@@ -85,7 +91,7 @@ def pull(
     tests = {t.name: t for t in client.tests()}
     batch: list[tuple[records.WireChange, MirroredPointSet | records.WireTest | None]] = []
     batch_bytes, batch_start = 0, time.perf_counter()
-    with Prefetch(client, wanted) as bodies:
+    with Prefetch(client, wanted, with_hits) as bodies:
         for change in changes:
             item: MirroredPointSet | records.WireTest | None = None
             if change.kind == "test":
@@ -119,8 +125,8 @@ class Prefetch:
 
     AHEAD: Final = 4  # bodies held ready, at most
 
-    def __init__(self, client: RigClient, ids: list[int]) -> None:
-        self._ids, self._wanted = ids, set(ids)
+    def __init__(self, client: RigClient, ids: list[int], with_hits: bool = False) -> None:
+        self._ids, self._wanted, self._with_hits = ids, set(ids), with_hits
         self._client = client.clone()
         self._queue: queue.Queue[MirroredPointSet | BaseException] = queue.Queue(self.AHEAD)
         self._stop = threading.Event()
@@ -154,7 +160,7 @@ class Prefetch:
     def _run(self) -> None:
         for pid in self._ids:
             try:
-                item: MirroredPointSet | BaseException = _fetch(self._client, pid)
+                item: MirroredPointSet | BaseException = _fetch(self._client, pid, self._with_hits)
             except Exception as exc:  # handed to the caller, raised in take()
                 item = exc
             while not self._stop.is_set():
@@ -167,8 +173,8 @@ class Prefetch:
                 return
 
 
-def _fetch(client: RigClient, point_set_id: int) -> MirroredPointSet:
-    body = client.point_set_body(point_set_id)
+def _fetch(client: RigClient, point_set_id: int, with_hits: bool) -> MirroredPointSet:
+    body = client.point_set_body(point_set_id, with_hits)
     # Decoded once, strictly: a body that passes the checksum but not the schema is refused
     # here, before it reaches the mirror.
     try:
@@ -214,16 +220,17 @@ def watch(
     on_pull: Callable[[PullReport], None],
     stop: Callable[[], bool],
     wait_s: float = WATCH_WAIT_S,
+    with_hits: bool = False,
 ) -> None:
     """Pull, then wait on the change feed and pull each change as it lands, until `stop()`.
 
     A rig that stops answering is tried again after 0.5, 1, 2, then every 5 s; the mirror
-    keeps what it has meanwhile.
+    keeps what it has meanwhile. with_hits: as for `pull`.
     """
     failures = 0
     while not stop():
         try:
-            report = pull(client, mirror)
+            report = pull(client, mirror, with_hits=with_hits)
             on_pull(report)
             failures = 0
             if stop():

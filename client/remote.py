@@ -232,15 +232,17 @@ class RigClient:
         changes = [objects.change_from_obj(c) for c in obj["changes"]]
         return changes, int(obj["last_seq"]), bool(obj["more"])
 
-    def point_set_body(self, point_set_id: int) -> Body:
-        """The msgpack body of a point set (without raw hits), verified by its Content-Digest.
+    def point_set_body(self, point_set_id: int, with_hits: bool = False) -> Body:
+        """The msgpack body of a point set, verified by its Content-Digest.
 
-        Raises TransferError when the checksum does not match or is missing.
+        with_hits: with every hit's raw record (``?hits=1``); without, the hits are listed
+        without records, the body the rig stored at commit. Raises TransferError when the
+        checksum does not match or is missing.
         """
+        path = f"/v1/points/{point_set_id}" + ("?hits=1" if with_hits else "")
         status, headers, data = self.request(
-            "GET", f"/v1/points/{point_set_id}", accept=MSGPACK,
-            max_bytes=MAX_POINT_SET_BYTES,
-        )  # fmt: skip
+            "GET", path, accept=MSGPACK, max_bytes=MAX_POINT_SET_BYTES
+        )
         if status >= 400:
             self._raise(status, data)
         digest = headers.get("Content-Digest")

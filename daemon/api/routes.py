@@ -167,9 +167,12 @@ ROUTES: Final[tuple[Route, ...]] = (
                   Param("since", "query", SEQ, "only point sets with seq > since")),
           errors=(404, 503)),
     Route("GET", "/v1/points/{id}", "getPoint", "point",
-          "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept",
+          "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept; "
+          "spectra float32/complex64 (schema 2), or as stored by an older schema",
           params=(_POINT_ID, Param("hits", "query", {"type": "integer", "enum": [0, 1]},
-                                   "1: include every hit's raw record")),
+                                   "1: include every hit's raw record (several times the "
+                                   "bytes); 0 (default): hits without records, the msgpack "
+                                   "body stored at commit, sent as stored")),
           media=(JSON, http.MSGPACK), errors=(404, 503)),
     Route("GET", "/v1/changes", "getChanges", "changes",
           "the change feed after `since`; waits up to `wait` s for a change",

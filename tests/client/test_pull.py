@@ -7,6 +7,7 @@ arrays with the store's arrays (numpy `tobytes`); transfers are verified with SH
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import signal
@@ -217,3 +218,32 @@ def test_pull_killed_midway_resumes_with_nothing_lost_or_twice(
     assert report["point_sets"] == 120 - part
     with Mirror(path) as m:
         assert_mirror_is_rig(m, served)
+
+
+def test_raw_hits_come_only_when_asked(served: ServedRig, tmp_path: Path) -> None:
+    """By default a pull takes the body the rig stored at commit (hits without records);
+    with_hits=True takes every hit's record as well, bit for bit as stored (float32)."""
+    store = served.running.store
+    commit_synthetic(served.running, "plate-h", 1)
+    pid = store.list_point_sets("plate-h")[0].id
+    plain = store.get_point_set(pid)
+    rng = np.random.default_rng(3)
+    records_ = [rng.standard_normal((3, 256)).astype(np.float32) for _ in plain.hits]
+    with_data = tuple(
+        dataclasses.replace(h, data=r) for h, r in zip(plain.hits, records_, strict=True)
+    )
+    store.commit_point_set(dataclasses.replace(plain, version=0, seq=0, hits=with_data))
+    new_id = store.list_point_sets("plate-h")[-1].id
+    with RigClient(served.url, served.token) as client:
+        with Mirror(tmp_path / "bare.sqlite3") as bare:
+            pull(client, bare)
+            assert [h.data for h in bare.point_set(new_id).hits] == [None, None]
+            assert bare.body(new_id) == store.get_wire_body(new_id, records.SCHEMA_VERSION)
+            bare_bytes = len(bare.body(new_id)[1])
+        with Mirror(tmp_path / "full.sqlite3") as full:
+            pull(client, full, with_hits=True)
+            got = full.point_set(new_id).hits
+            assert all(h.data is not None for h in got)
+            assert [h.data.tobytes() for h in got if h.data is not None] == [
+                r.tobytes() for r in records_]  # fmt: skip
+            assert len(full.body(new_id)[1]) >= bare_bytes + sum(r.nbytes for r in records_)
