@@ -81,19 +81,28 @@ def reply(call: Call, obj: Payload) -> web.Response:
     return json_response(obj)
 
 
+def stored_body(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded | None:
+    """(body, content type, Content-Digest value) of the msgpack body written at commit, or
+    None when the request asks for another form (JSON, raw hits) or none was written.
+
+    Worker thread. The body is served as stored, in the schema it was written in: clients
+    read every schema of `READ_VERSIONS`, and a mirror holds the bytes it was first served.
+    """
+    if not as_msgpack or with_hits:
+        return None
+    stored = store.get_wire_body(pid, *records.READ_VERSIONS)
+    return None if stored is None else (stored[1], http.MSGPACK, stored[0])
+
+
 def encode_point_set(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded:
     """(body, content type, Content-Digest value) of a stored point set, per the wire schema.
 
-    One worker-thread call. The msgpack body without raw hits was written at commit and is
-    served as stored, in the schema it was written in (clients read every schema of
-    `READ_VERSIONS`, and a mirror holds the bytes it was first served); anything else is
-    read, encoded and checksummed here.
+    One worker-thread call: the body stored at commit (`stored_body`) if there is one;
+    anything else is read, encoded and checksummed here.
     """
-    if as_msgpack and not with_hits:
-        stored = store.get_wire_body(pid, *records.READ_VERSIONS)
-        if stored is not None:
-            digest, body = stored
-            return body, http.MSGPACK, digest
+    stored = stored_body(store, pid, with_hits, as_msgpack)
+    if stored is not None:
+        return stored
     ps = store.get_point_set(pid, with_hits)
     obj = objects.point_set_to_obj(records.point_set_from_record(pid, ps), with_hits)
     body, media = (codec.pack(obj), http.MSGPACK) if as_msgpack else (_point_json(obj), JSON)
