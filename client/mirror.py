@@ -58,11 +58,13 @@ CREATE INDEX IF NOT EXISTS point_sets_by_test ON point_sets (test, point, versio
 
 @dataclass(frozen=True, slots=True)
 class MirroredPointSet:
-    """A point set as received: its summary fields, the rig's checksum and the body bytes."""
+    """A point set as received: its summary fields, the rig's checksum, the body bytes and
+    the wire schema version the body is written in (older rigs' bodies stay as served)."""
 
     summary: records.WirePointSetSummary
     digest: str
     body: bytes
+    schema: int = records.SCHEMA_VERSION
 
 
 class Mirror:

@@ -178,7 +178,8 @@ def _fetch(client: RigClient, point_set_id: int, with_hits: bool) -> MirroredPoi
     # Decoded once, strictly: a body that passes the checksum but not the schema is refused
     # here, before it reaches the mirror.
     try:
-        ps = objects.point_set_from_obj(codec.unpack(body.data, max_bytes=MAX_BODY))
+        obj = codec.unpack(body.data, max_bytes=MAX_BODY)
+        ps = objects.point_set_from_obj(obj)
     except records.SchemaError as exc:
         raise ClientError(f"point set {point_set_id} from the rig is not readable: {exc}") from None
     summary = records.WirePointSetSummary(
@@ -186,7 +187,7 @@ def _fetch(client: RigClient, point_set_id: int, with_hits: bool) -> MirroredPoi
     )
     if ps.id != point_set_id:
         raise ClientError(f"asked for point set {point_set_id}, the rig sent {ps.id}")
-    return MirroredPointSet(summary, body.digest, body.data)
+    return MirroredPointSet(summary, body.digest, body.data, int(obj["schema"]))
 
 
 def _store(

@@ -139,7 +139,7 @@ class RigWriter:
         row = self._run(
             _PUT_POINT_SET,
             (self.rig_id, s.id, s.test, s.point, s.version, s.seq, s.completed_utc, s.n_averages,
-             records.SCHEMA_VERSION, ps.digest, len(ps.body), ps.body,
+             ps.schema, ps.digest, len(ps.body), ps.body,
              self.rig_id, s.id, ps.digest, s.test, s.point, s.version, seq, self.rig_id),
         )  # fmt: skip
         stored, advanced = (bool(row[0]), bool(row[1])) if row else (False, False)

@@ -166,7 +166,7 @@ def rig_bodies(served: ServedRig) -> dict[int, tuple[str, bytes]]:
     store = served.running.store
     out = {}
     for s in store.list_point_sets():
-        got = store.get_wire_body(s.id, records.SCHEMA_VERSION)
+        got = store.get_wire_body(s.id, *records.READ_VERSIONS)  # as served, whatever schema
         assert got is not None
         out[s.id] = (got[0], bytes(got[1]))
     return out
