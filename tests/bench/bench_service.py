@@ -160,6 +160,8 @@ async def measure(running: RunningRig, auth: Auth, polls: int) -> list[Row]:
         ("ceiling: same bodies pre-built", one_mb_s, "MB/s", "one per request, same server"),
         ("ceiling: one pre-built blob", blob_mb_s, "MB/s", "all bodies in one response"),
         ("pull / blob", pull_mb_s / blob_mb_s, "", f"goal >= {GOAL_RATIO:g}"),
+        ("pull / same bodies pre-built", pull_mb_s / one_mb_s, "",
+         "what the store and the token check cost beside HTTP's own per-request cost"),
         ("empty changes poll (wait=0), median", poll_ms, "ms",
          f"goal <= {GOAL_POLL_MS:g} ms; {polls} polls, p90 "
          f"{np.percentile(times, 90) * 1e3:.2f} ms"),
