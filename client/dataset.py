@@ -24,7 +24,9 @@ from taprig.schema.records import WirePointSet, WireTest
 class TestData:
     """A test's completed point sets, one row per measured grid point, in grid order.
 
-    Shapes: P points (rows), R responses (sensor channels), F frequency lines.
+    Shapes: P points (rows), R responses (sensor channels), F frequency lines. The spectra
+    travel and are stored as float32 / complex64 (wire schema 2, about 7 significant
+    digits); they are widened here, once, so that fitting works in float64.
 
     ===============  ============  =========  ==========================================
     field            shape         dtype      unit / meaning
