@@ -220,20 +220,30 @@ def test_pull_killed_midway_resumes_with_nothing_lost_or_twice(
         assert_mirror_is_rig(m, served)
 
 
+def commit_with_records(served: ServedRig, test: str) -> tuple[int, list[np.ndarray]]:
+    """A test of one point measured twice, the second time with its hits' raw records
+    (float32, 3 × 256 each); (the second point set's id, its records)."""
+    store = served.running.store
+    commit_synthetic(served.running, test, 1)
+    plain = store.get_point_set(store.list_point_sets(test)[0].id)
+    rng = np.random.default_rng(3)
+    raw = [rng.standard_normal((3, 256)).astype(np.float32) for _ in plain.hits]
+    hits = tuple(dataclasses.replace(h, data=r) for h, r in zip(plain.hits, raw, strict=True))
+    store.commit_point_set(dataclasses.replace(plain, version=0, seq=0, hits=hits))
+    return store.list_point_sets(test)[-1].id, raw
+
+
+def assert_has_records(mirror: Mirror, point_set_id: int, raw: list[np.ndarray]) -> None:
+    got = mirror.point_set(point_set_id).hits
+    assert [None if h.data is None else h.data.tobytes() for h in got] == [
+        r.tobytes() for r in raw]  # fmt: skip
+
+
 def test_raw_hits_come_only_when_asked(served: ServedRig, tmp_path: Path) -> None:
     """By default a pull takes the body the rig stored at commit (hits without records);
     with_hits=True takes every hit's record as well, bit for bit as stored (float32)."""
     store = served.running.store
-    commit_synthetic(served.running, "plate-h", 1)
-    pid = store.list_point_sets("plate-h")[0].id
-    plain = store.get_point_set(pid)
-    rng = np.random.default_rng(3)
-    records_ = [rng.standard_normal((3, 256)).astype(np.float32) for _ in plain.hits]
-    with_data = tuple(
-        dataclasses.replace(h, data=r) for h, r in zip(plain.hits, records_, strict=True)
-    )
-    store.commit_point_set(dataclasses.replace(plain, version=0, seq=0, hits=with_data))
-    new_id = store.list_point_sets("plate-h")[-1].id
+    new_id, raw = commit_with_records(served, "plate-h")
     with RigClient(served.url, served.token) as client:
         with Mirror(tmp_path / "bare.sqlite3") as bare:
             pull(client, bare)
@@ -242,8 +252,5 @@ def test_raw_hits_come_only_when_asked(served: ServedRig, tmp_path: Path) -> Non
             bare_bytes = len(bare.body(new_id)[1])
         with Mirror(tmp_path / "full.sqlite3") as full:
             pull(client, full, with_hits=True)
-            got = full.point_set(new_id).hits
-            assert all(h.data is not None for h in got)
-            assert [h.data.tobytes() for h in got if h.data is not None] == [
-                r.tobytes() for r in records_]  # fmt: skip
-            assert len(full.body(new_id)[1]) >= bare_bytes + sum(r.nbytes for r in records_)
+            assert_has_records(full, new_id, raw)
+            assert len(full.body(new_id)[1]) >= bare_bytes + sum(r.nbytes for r in raw)
