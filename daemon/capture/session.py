@@ -8,12 +8,13 @@ what it returns.
 
 from __future__ import annotations
 
-import datetime as dt
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any, Final
 
 import numpy as np
+
+from taprig.schema.pointset import utc_now
 
 from ..errors import NotFound, SessionError
 from ..records import (
@@ -42,10 +43,6 @@ def no_session() -> dict[str, Any]:
     """What `Session.snapshot` says when no test is selected."""
     return {"test": None, "point": None, "averages": 0, "required": 0, "waiting": False,
             "done": [], "complete": False, "again": False, "can_undo": False}  # fmt: skip
-
-
-def utc_now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
 
 @dataclass(frozen=True)
