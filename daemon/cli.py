@@ -216,6 +216,13 @@ def run(
             "on the virtual device a new test takes the virtual structure's grid"
         ),
     ] = None,
+    outline: Annotated[
+        Path | None,
+        typer.Option(
+            help="the structure's faces and lines for the new test (outline text; default: "
+            "<grid>.outline beside the --grid file, when there is one)"
+        ),
+    ] = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
     reference: Annotated[
         str | None, typer.Option(help="fixed sensor (hammer mode) or hammer point (sensor mode)")
@@ -254,7 +261,8 @@ def run(
 
     _setup_logging(verbose)
     options = RunOptions(test, grid, RovingMode(roving.value), reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events, virtual_control)  # fmt: skip
+                         virtual_double_hits, truth, json_events, virtual_control,
+                         outline)  # fmt: skip
     with _guard():
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))

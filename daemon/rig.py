@@ -32,6 +32,7 @@ from taprig.firmware_protocol import (
     SampleBlock,
     StatusReceived,
 )
+from taprig.schema.outline import META_KEY as OUTLINE_KEY
 
 from . import resume, stages
 from .capture.acquire import Acquirer
@@ -146,11 +147,16 @@ class Rig:
         reference: str | None = None,
         averages: int | None = None,
         sensor_points: dict[str, str] | None = None,
+        outline: str | None = None,
     ) -> None:
+        """Store a new test; `outline` (checked against the grid by the caller: grid.py)
+        is kept as text in its metadata, so it travels with the test."""
         ref = reference if reference is not None else grid[0].label
         if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
             raise SessionError(f"reference {ref!r} is not a point of the grid")
-        meta = {"sensor_points": sensor_points or {}}
+        meta: dict[str, object] = {"sensor_points": sensor_points or {}}
+        if outline is not None:
+            meta[OUTLINE_KEY] = outline
         avg = averages if averages is not None else self.config.capture.averages
         self.store.save_test(name, grid, roving_mode, ref, avg, meta)
 
