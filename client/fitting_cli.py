@@ -19,6 +19,9 @@ from .modal.model import ModalModel
 __all__ = ["mode_table", "parse_orders", "parse_pick", "register"]
 
 SHOW_AFTER_S = 1.0  # a fit that takes longer than this shows a progress bar
+KeepOption = Annotated[
+    bool, typer.Option("--keep", help="store the model in the archive (with --archive)")
+]
 
 
 def parse_orders(text: str | None) -> tuple[int, int] | None:
@@ -107,9 +110,7 @@ def register(app: typer.Typer) -> None:
         ] = None,
         rig: RigOption = None,
         archive: ArchiveOption = None,
-        keep: Annotated[
-            bool, typer.Option("--keep", help="store the model in the archive (with --archive)")
-        ] = False,
+        keep: KeepOption = False,
         as_json: JsonOption = False,
     ) -> None:
         """Modes of a mirrored or archived test: frequency, damping, shape (pLSCF, LSFD)."""

@@ -15,7 +15,7 @@ import math
 import re
 from pathlib import Path
 
-from taprig.schema.outline import OutlineError, parse_outline
+from taprig.schema.outline import META_KEY, OutlineError, parse_outline
 
 from .errors import GridError
 from .records import GridPoint
@@ -106,3 +106,12 @@ def read_outline(path: Path, grid: list[GridPoint]) -> str:
     except (OSError, UnicodeDecodeError) as exc:
         raise GridError(f"outline {path}: cannot read it ({exc})") from None
     return check_outline(text, grid, str(path))
+
+
+def test_meta(sensor_points: dict[str, str] | None, outline: str | None) -> dict[str, object]:
+    """A new test's metadata: the point each response sensor sits on and, when one came with
+    the grid, the outline's text (checked by `check_outline`), so it travels with the test."""
+    meta: dict[str, object] = {"sensor_points": sensor_points or {}}
+    if outline is not None:
+        meta[META_KEY] = outline
+    return meta

@@ -32,7 +32,6 @@ from taprig.firmware_protocol import (
     SampleBlock,
     StatusReceived,
 )
-from taprig.schema.outline import META_KEY as OUTLINE_KEY
 
 from . import resume, stages
 from .capture.acquire import Acquirer
@@ -43,6 +42,7 @@ from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
+from .grid import test_meta
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .room import Room
@@ -149,14 +149,10 @@ class Rig:
         sensor_points: dict[str, str] | None = None,
         outline: str | None = None,
     ) -> None:
-        """Store a new test; `outline` (checked against the grid by the caller: grid.py)
-        is kept as text in its metadata, so it travels with the test."""
         ref = reference if reference is not None else grid[0].label
         if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
             raise SessionError(f"reference {ref!r} is not a point of the grid")
-        meta: dict[str, object] = {"sensor_points": sensor_points or {}}
-        if outline is not None:
-            meta[OUTLINE_KEY] = outline
+        meta = test_meta(sensor_points, outline)
         avg = averages if averages is not None else self.config.capture.averages
         self.store.save_test(name, grid, roving_mode, ref, avg, meta)
 
