@@ -15,11 +15,12 @@ import h5py
 import numpy as np
 import pytest
 
+from taprig.client.mirror import Mirror
 from taprig.client.modal import ModalModel
 from taprig.client.remote import RigClient, RigError
 from taprig.client.rigs import Places
 from taprig.client.view.geometry import Geometry
-from taprig.client.view.outline import parse_outline
+from taprig.client.view.outline import geometry_of, parse_outline
 from taprig.daemon.records import PointSet, RovingMode, StoredHit
 from taprig.schema.outline import META_KEY
 
@@ -99,6 +100,10 @@ def test_the_outline_travels_rig_mirror_export_model(
     expected = parse_outline(OUTLINE, ROWS)
     assert len(expected.labels) == 8 and [len(f.triangles) for f in expected.faces] == [4, 2]
     assert expected.lines.shape == (2, 2)
+    with Mirror.open_rig(None, places) as mirror:
+        data = mirror.load("box-1")
+    assert data.test_meta[META_KEY] == OUTLINE
+    _same(geometry_of(data), expected)  # what `taprig view` and the pictures draw
     for fmt, name in (("npz", "box.npz"), ("hdf5", "box.h5")):
         out = tmp_path / name
         as_json(taprig(places, "export", "box-1", "--format", fmt, "--out", str(out), "--json"))
