@@ -110,11 +110,16 @@ class Scene:
         ax.add_collection(LineCollection(edges, colors="0.75", linewidths=0.4, linestyles=":"))
         style: dict[str, Any] = {"cmap": colormap(), "animated": animated}
         # Filled without antialiasing or edges: neighbouring triangles then meet without
-        # seams. One closed path per triangle, made once; a frame rewrites their vertices.
-        self.paths = [Path(np.zeros((4, 2)), closed=True) for _ in range(len(self.tri))]
-        self.faces = PathCollection(self.paths, linewidths=0.0, antialiaseds=False, **style)
+        # seams. One closed path per triangle, made once, each a view of its rows of
+        # `corners` (T, 4, 2): a frame rewrites the array in one step, not path by path.
+        self.corners = np.zeros((len(self.tri), 4, 2))
+        paths = [Path(c, closed=True) for c in self.corners]
+        self.faces = PathCollection(paths, linewidths=0.0, antialiaseds=False, **style)
         self.faces.set_clim(-1.0, 1.0)
-        self.nodal = LineCollection([], colors="black", linewidths=1.6, animated=animated)
+        # Round caps: a nodal line is many short segments end to end, seamless with them;
+        # drawn over the points too (those on the line are pale: they would break it).
+        self.nodal = LineCollection([], colors="black", linewidths=1.6, capstyle="round",
+                                    zorder=4, animated=animated)  # fmt: skip
         self.struts = LineCollection([], colors=INK, linewidths=1.2, animated=animated)
         few = len(rest) <= DOTS_UP_TO  # more points: small dots without a rim
         self.dots = ax.scatter(rest[:, 0], rest[:, 1], c=np.zeros(len(rest)), vmin=-1, vmax=1,
@@ -140,9 +145,7 @@ class Scene:
         value = (self.phi * np.exp(1j * phase)).real
         screen = project(deformed(self.geometry, self.phi, phase, 1.0), self.centre)
         order = np.argsort(-screen[self.tri, 2].sum(axis=1))  # far to near
-        corners = screen[self.tri[order][:, [0, 1, 2, 0]], :2]  # (T, 4, 2), closed
-        for path, xy in zip(self.paths, corners, strict=True):
-            path.vertices = xy
+        self.corners[:] = screen[self.tri[order][:, [0, 1, 2, 0]], :2]  # closed triangles
         self.faces.stale = True
         self.faces.set_array(value[self.tri[order]].mean(axis=1))
         pa, pb = screen[self.ends[..., 0], :2], screen[self.ends[..., 1], :2]
@@ -152,4 +155,4 @@ class Scene:
         self.struts.set_segments(struts)
         self.dots.set_offsets(screen[:, :2])
         self.dots.set_array(value)
-        return [self.faces, self.nodal, self.struts, self.dots]
+        return [self.faces, self.struts, self.dots, self.nodal]

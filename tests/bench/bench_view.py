@@ -14,7 +14,8 @@ the same browser), and the time one frame's drawing takes is printed beside it.
 The report pictures: the time to write one mode's GIF (FRAMES frames at DPI, one cycle)
 for the demo-sized panel (30 points) and the 500-point test, per mode over several modes,
 beside the goal of 1 s and beside its floor, Pillow alone writing the same frames (already
-drawn) into a GIF; and the PNG sheet of every mode.
+drawn) into a GIF; its CPU time too (on a machine others share, the wall time is mostly
+waiting for a core); and the PNG sheet of every mode.
 
 Run: python tests/bench/bench_view.py [--opens 3]
 """
@@ -85,14 +86,15 @@ def gif_rows(data: object, modes: object, what: str, n_modes: int) -> list[Row]:
 
     geometry = from_grid(data.grid)  # type: ignore[attr-defined]
     shapes = normalise(spread(modes.shape, modes.point, geometry))  # type: ignore[attr-defined]
-    times, floors = [], []
+    times, cpus, floors = [], [], []
     with tempfile.TemporaryDirectory(prefix="taprig-bench-") as tmp:
         for m in range(n_modes):
             path = Path(tmp) / f"mode-{m}.gif"
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             pictures._gif(data, modes, geometry, shapes[m], m, path,  # type: ignore[arg-type]
                           pictures.FRAMES)  # fmt: skip
             times.append(time.perf_counter() - t0)
+            cpus.append(time.process_time() - c0)
             with Image.open(path) as gif:
                 frames = [f.convert("RGB") for f in ImageSequence.Iterator(gif)]
             t0 = time.perf_counter()
@@ -107,6 +109,8 @@ def gif_rows(data: object, modes: object, what: str, n_modes: int) -> list[Row]:
          f"goal <= {GOAL_GIF_S:g} s; floor: Pillow writing its frames, "
          f"{statistics.median(floors):.2f} s; {size}, {n_modes} modes"),
         (f"GIF floor, {what}: Pillow writing the frames", statistics.median(floors), "s", size),
+        (f"one mode's GIF, {what}, CPU time", statistics.median(cpus), "s",
+         "this process's CPU: what the wall time would be on an idle core"),
         (f"PNG sheet of {len(modes)} modes, {what}", sheet, "s", ""),  # type: ignore[arg-type]
     ]  # fmt: skip
 
