@@ -1,5 +1,6 @@
 """`taprig fit`: a mirrored or archived test's modes (client/modal/), as a table, JSON, a
-file, plots; with `--archive DSN --keep`, the model is also kept in the archive.
+file, plots (with a GIF of each mode moving, client/view/pictures.py); with
+`--archive DSN --keep`, the model is also kept in the archive.
 
 Registered on the command line by `register(app)` from client/cli.py, which shares its
 load helper, option types, error guard and output helper with every other command. The
@@ -14,6 +15,7 @@ from typing import Annotated
 import numpy as np
 import typer
 
+from .dataset import TestData
 from .modal.model import ModalModel
 
 __all__ = ["mode_table", "parse_orders", "parse_pick", "register"]
@@ -127,9 +129,7 @@ def register(app: typer.Typer) -> None:
             kept = _keep(archive, rig, test, model) if keep and archive is not None else None
             drawn: list[Path] = []
             if plots is not None:
-                from .modal_plots import write_modal_plots
-
-                drawn = write_modal_plots(model, plots)
+                drawn = _draw(data, model, plots)
         obj = {**model.to_dict(), "file": None if saved is None else str(saved),
                "plots": [str(p) for p in drawn], "archived": kept}  # fmt: skip
         _emit(as_json, obj, lambda: [*mode_table(model),
@@ -137,6 +137,14 @@ def register(app: typer.Typer) -> None:
                                      *([f"kept in the archive, made {kept['created_utc']}, "
                                         f"sha256 {kept['sha256'][:16]}"] if kept else []),
                                      *(f"plot {p}" for p in drawn)])  # fmt: skip
+
+
+def _draw(data: TestData, model: ModalModel, folder: Path) -> list[Path]:
+    """The fit's PNG plots, then each mode moving on the structure (GIF) and their sheet."""
+    from .modal_plots import write_modal_plots
+    from .view.pictures import write_model_pictures
+
+    return [*write_modal_plots(model, folder), *write_model_pictures(data, model, folder)]
 
 
 def _keep(dsn: str, rig: str | None, test: str, model: ModalModel) -> dict[str, str]:
