@@ -136,10 +136,11 @@ class Rig(Owner[RigEvent]):
         reference: str | None = None,
         averages: int | None = None,
         sensor_points: dict[str, str] | None = None,
+        outline: str | None = None,
     ) -> None:
         """Store a new test (daemon/stages.py's `save_test`; any thread)."""
         stages.save_test(self.config, self.store, name, grid, roving_mode, reference, averages,
-                         sensor_points)  # fmt: skip
+                         sensor_points, outline)  # fmt: skip
 
     def select_test(self, name: str) -> None:
         self.call(lambda: self._select(name))

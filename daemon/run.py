@@ -18,7 +18,8 @@ from pathlib import Path
 
 from .capture.link import LinkState
 from .config import Config
-from .grid import import_grid_csv
+from .errors import GridError
+from .grid import import_grid_csv, outline_beside, read_outline
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
 from .rig import Rig
@@ -44,6 +45,7 @@ class RunOptions:
     truth: Path | None = None
     json_events: bool = False
     virtual_control: int | None = None
+    outline: Path | None = None  # default: <grid>.outline beside the grid, when there is one
 
 
 async def run(cfg: Config, opt: RunOptions) -> None:
@@ -118,14 +120,27 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
         points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
     else:
         points = []
+    outline = _outline(opt, points)
     if points:
         sensor_points = dict(vi.model.sensors) if vi is not None else None
         rig.create_test(name, points, opt.roving, opt.reference,
-                        sensor_points=sensor_points)  # fmt: skip
+                        sensor_points=sensor_points, outline=outline)  # fmt: skip
     # Opened and armed once the device identifies itself: the service and the page run
     # meanwhile and say what the rig waits for (a low disk only defers arming).
     rig.open_when_ready(name, arm=True)
     settle(rig, name)
+
+
+def _outline(opt: RunOptions, points: list[GridPoint]) -> str | None:
+    """The outline text for a new test: --outline, else the one beside --grid; checked."""
+    path = opt.outline
+    if path is None and opt.grid is not None:
+        path = outline_beside(opt.grid)
+    if path is None:
+        return None
+    if not points:
+        raise GridError(f"outline {path}: it describes a new test's grid; give --grid too")
+    return read_outline(path, points)
 
 
 def simulated_tap(running: RunningRig) -> None:

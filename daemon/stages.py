@@ -18,6 +18,7 @@ from .capture.session import Plan, Session
 from .capture.spectra import WindowSettings
 from .config import Config
 from .errors import SessionError, TaprigError
+from .grid import test_meta
 from .records import GridPoint, Role, RovingMode
 from .store import Store, TestPlan
 
@@ -86,14 +87,16 @@ def save_test(
     reference: str | None,
     averages: int | None,
     sensor_points: dict[str, str] | None,
+    outline: str | None = None,
 ) -> None:
     """Store a new test: reference default the first grid point (it must be on the grid in
-    roving-sensor mode), averages default the configuration's."""
+    roving-sensor mode), averages default the configuration's; its metadata from
+    daemon/grid.py's `test_meta` (sensor points, the outline's text)."""
     ref = reference if reference is not None else grid[0].label
     if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
         raise SessionError(f"reference {ref!r} is not a point of the grid")
     avg = averages if averages is not None else config.capture.averages
-    store.save_test(name, grid, roving_mode, ref, avg, {"sensor_points": sensor_points or {}})
+    store.save_test(name, grid, roving_mode, ref, avg, test_meta(sensor_points, outline))
 
 
 def meta(config: Config, info: DeviceInfo) -> dict[str, Any]:

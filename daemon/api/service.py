@@ -319,6 +319,7 @@ class Service:
 
     async def _create(self, body: Payload) -> Outcome:
         grid = validate.grid(body)
+        outline = validate.outline(body, grid)
         labels = {p.label for p in grid}
         reference = body.get("reference", grid[0].label)
         if reference not in labels:
@@ -331,7 +332,7 @@ class Service:
         name = body["name"]
         await asyncio.to_thread(  # AlreadyExists: 409
             self.rig.create_test, name, grid, RovingMode(body.get("roving_mode", "hammer")),
-            reference, body.get("averages"), sensors,
+            reference, body.get("averages"), sensors, outline,
         )  # fmt: skip
         self._feed.wake()
         plan = await asyncio.to_thread(self.store.get_test, name)
