@@ -19,10 +19,12 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from . import identity
+from .api.gate import Limits
 from .auth import Auth
 from .config import Config
 from .errors import ConfigError
 from .notify import Notifier
+from .private import private_dir
 from .rig import Rig
 from .rigstate import RigEvent
 from .running import RunningRig
@@ -90,7 +92,7 @@ def _open_instrument(
     # Behind a stable name in the data folder, as udev gives a USB device, so the link finds
     # it again after an unplug.
     link = str(config.store.data_dir / "virtual-tty") if transport == "pty" else None
-    config.store.data_dir.mkdir(parents=True, exist_ok=True)
+    private_dir(config.store.data_dir)
     instrument = open_virtual(transport, link=link, settings=settings, model=model)
     log.info("virtual instrument on %s", instrument.url)
     return instrument
@@ -133,8 +135,10 @@ async def lifespan(
         data_dir = cfg.store.data_dir
         auth = Auth(data_dir)
         rig_id = identity.rig_id(data_dir)
-        service = Service(running, auth, host=cfg.service.bind, port=cfg.service.port,
-                          rig_id=rig_id, max_body=cfg.service.max_request_kb * 1024)  # fmt: skip
+        s = cfg.service
+        service = Service(running, auth, host=s.bind, port=s.port, rig_id=rig_id,
+                          max_body=s.max_request_kb * 1024, limits=_limits(cfg),
+                          body_timeout_s=s.body_timeout_s)  # fmt: skip
         stack.push_async_callback(service.async_close)
         await service.async_start()
         stack.callback(identity.remove_run_file, data_dir)
@@ -149,6 +153,13 @@ async def lifespan(
             reporter = asyncio.create_task(report(running.rig, notify))
             stack.push_async_callback(_cancelled, reporter)
         yield Daemon(running, auth, service, advertiser, notify)
+
+
+def _limits(cfg: Config) -> Limits:
+    """The service's connection limits from the [service] settings."""
+    s = cfg.service
+    return Limits(total=s.max_connections, per_address=s.connections_per_address,
+                  header_s=s.header_timeout_s)  # fmt: skip
 
 
 async def _advertise(

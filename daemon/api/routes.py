@@ -15,6 +15,7 @@ from aiohttp import web
 
 from taprig.schema import wire
 
+from ..grid import MAX_POINTS
 from ..records import RovingMode
 
 PREFIX: Final = "/v1"
@@ -63,11 +64,12 @@ CREATE_TEST: Final[Payload] = {
     "properties": {
         "request_id": REQUEST_ID,
         "name": NAME,
-        "grid": {"type": "array", "minItems": 1, "maxItems": 4096, "items": GRID_POINT},
+        "grid": {"type": "array", "minItems": 1, "maxItems": MAX_POINTS, "items": GRID_POINT},
         "grid_csv": {
             "type": "string",
             "maxLength": 1 << 20,
-            "description": "CSV text with header label,x,y,z[,direction], metres",
+            "description": "CSV text with header label,x,y,z[,direction], metres; "
+            f"at most {MAX_POINTS} points",
         },
         "roving_mode": {"type": "string", "enum": [m.value for m in RovingMode]},
         "reference": {**LABEL, "description": "reference point; default the first grid point"},
