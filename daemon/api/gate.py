@@ -33,12 +33,24 @@ from typing import Final
 
 log = logging.getLogger(__name__)
 
+
 # The answer to a connection refused at the door: the client learns why, then the socket closes.
-_REFUSAL_BODY: Final = b'{"error":"too_many_connections","message":"too many connections"}\n'
-REFUSAL: Final = (
-    b"HTTP/1.1 503 Service Unavailable\r\nConnection: close\r\nRetry-After: 5\r\n"
-    b"Content-Type: application/json\r\nContent-Length: %d\r\n\r\n%s"
-    % (len(_REFUSAL_BODY), _REFUSAL_BODY)
+def _closing_answer(status: str, code: str, message: str, extra: str = "") -> bytes:
+    body = b'{"error":"%s","message":"%s"}\n' % (code.encode(), message.encode())
+    head = (f"HTTP/1.1 {status}\r\nConnection: close\r\n{extra}Content-Type: application/json"
+            f"\r\nContent-Length: {len(body)}\r\n\r\n")  # fmt: skip
+    return head.encode() + body
+
+
+REFUSAL: Final = _closing_answer(
+    "503 Service Unavailable",
+    "too_many_connections",
+    "too many connections; retry later",
+    "Retry-After: 5\r\n",
+)
+# The answer to headers that did not come in time (RFC 9110 §15.5.9: 408 then close).
+TOO_SLOW: Final = _closing_answer(
+    "408 Request Timeout", "request_timeout", "the request headers did not arrive in time"
 )
 
 
@@ -215,7 +227,7 @@ class Guard(asyncio.Protocol):
         self.busy = max(0, self.busy - 1)
 
     def close(self) -> None:
-        """Close the connection now (eviction, deadline)."""
+        """Close the connection now (eviction)."""
         self._disarm()
         if self._transport is not None:
             self._transport.abort()
@@ -231,7 +243,8 @@ class Guard(asyncio.Protocol):
 
     def _expire(self) -> None:
         self._deadline = None
-        if self.busy:
+        if self.busy or self._transport is None:
             return
         self._gate.timed_out(self)
-        self.close()
+        self._transport.write(TOO_SLOW)
+        self._transport.close()
