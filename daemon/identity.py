@@ -15,7 +15,7 @@ import secrets
 from pathlib import Path
 from typing import Any, Final
 
-from .private import write_private
+from .private import tighten, write_private
 
 RIG_ID_FILE: Final = "rig-id"
 RUN_FILE: Final = "run.json"
@@ -36,6 +36,8 @@ def rig_id(state_dir: Path) -> str:
     if not text:
         text = new_rig_id()
         write_private(path, text + "\n")
+    else:
+        tighten(path)  # left readable by an older version: not a secret, but the folder is private
     return text
 
 
