@@ -32,7 +32,7 @@ _REDACT_LIKE: Final = re.compile(r"(?<![A-Za-z0-9_-])[A-Za-z0-9_-]{43}(?![A-Za-z
 _ENCODED_RUN: Final = re.compile(
     r"[A-Za-z0-9._~+/=:&?-]*(?:%[0-9A-Fa-f]{2}[A-Za-z0-9._~+/=:&?%-]*)+"
 )
-_TOKEN_RUN: Final = re.compile(r"[A-Za-z0-9_-]{%d,}" % FRAGMENT)
+_TOKEN_RUN: Final = re.compile(rf"[A-Za-z0-9_-]{{{FRAGMENT},}}")
 
 
 def redact(text: str, known: Iterable[str] = ()) -> str:
