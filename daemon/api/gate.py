@@ -93,17 +93,32 @@ class Gate:
         """A protocol for one accepted connection, around aiohttp's (made by `make_inner`)."""
         return Guard(self, make_inner)
 
+    def has_room(self, address: str) -> bool:
+        """Whether a connection from `address` would be let in now (`admit` decides)."""
+        if len(self._by_address.get(address, ())) >= self.limits.per_address:
+            return False
+        return self._count < self.limits.total or self._victim(
+            len(self._by_address.get(address, ()))) is not None  # fmt: skip
+
+    def refuse(self, address: str) -> None:
+        """A connection from `address` was turned away before it had a guard."""
+        self.stats.refused += 1
+        log.warning("connection from %s refused: %s", address, self._why(address))
+
+    def _why(self, address: str) -> str:
+        if len(self._by_address.get(address, ())) >= self.limits.per_address:
+            return f"its share of {self.limits.per_address} is in use"
+        return f"all {self.limits.total} connections are in use"
+
     def admit(self, guard: Guard) -> bool:
         """Let `guard` in, evicting for fairness if the cap is reached; False: refused."""
-        mine = self._by_address.setdefault(guard.address, {})
-        if len(mine) >= self.limits.per_address:
-            self._refuse(guard, f"its share of {self.limits.per_address} is in use")
+        if not self.has_room(guard.address):
+            self.refuse(guard.address)
             return False
+        mine = self._by_address.setdefault(guard.address, {})
         if self._count >= self.limits.total:
             victim = self._victim(len(mine))
-            if victim is None:
-                self._refuse(guard, f"all {self.limits.total} connections are in use")
-                return False
+            assert victim is not None  # has_room found one
             self.stats.evicted += 1
             log.warning("connection from %s closed to make room for one from %s",
                         victim.address, guard.address)  # fmt: skip
@@ -114,15 +129,11 @@ class Gate:
         self.stats.admitted += 1
         return True
 
-    def _refuse(self, guard: Guard, why: str) -> None:
-        self.stats.refused += 1
-        if not self._by_address.get(guard.address):
-            self._by_address.pop(guard.address, None)
-        log.warning("connection from %s refused: %s", guard.address, why)
-
     def _victim(self, newcomer_holds: int) -> Guard | None:
         """The oldest idle connection of the address holding the most, if it holds more
         than the newcomer's address would after admission; else None."""
+        if not self._by_address:
+            return None
         _, guards = max(self._by_address.items(), key=lambda item: len(item[1]))
         if len(guards) <= newcomer_holds + 1:
             return None

@@ -45,7 +45,7 @@ from .gate import Gate, Limits
 from .once import Once
 from .openapi import openapi_text
 from .routes import HEARTBEAT_S, JSON, PREFIX, ROUTES, Call, Payload, Route
-from .site import GatedSite, fit_to_open_files, quiet_accept_errors
+from .site import GatedSite, fit_to_open_files
 
 if TYPE_CHECKING:
     from ..auth import Auth
@@ -111,7 +111,6 @@ class Service:
         self._web: dict[str, page.StaticFile] = {}
         self._limits = limits if limits is not None else Limits()
         self.gate = Gate(self._limits)
-        self._undo_accept_handler: Callable[[], None] | None = None
 
     # -- lifecycle (event loop)
 
@@ -142,7 +141,6 @@ class Service:
             await runner.cleanup()
             raise
         self._runner = runner
-        self._undo_accept_handler = quiet_accept_errors(asyncio.get_running_loop())
         self.port = int(runner.addresses[0][1])
         log.info("service on http://%s:%d%s", self.host, self.port, PREFIX)
 
@@ -154,8 +152,6 @@ class Service:
         self._feed.close()
         if self._runner is not None:
             await self._runner.cleanup()
-        if self._undo_accept_handler is not None:
-            self._undo_accept_handler()
         for name in REDACTED_LOGGERS:
             logging.getLogger(name).removeFilter(self._log_filter)
 

@@ -8,29 +8,34 @@ RLIMIT_NOFILE is raised towards the hard one if the cap needs it; if the hard li
 too low the cap is lowered to fit, and one log line says so (deploy/taprigd.service sets
 ``LimitNOFILE``).
 
-Out of descriptors at accept (EMFILE, ENFILE): asyncio already stops accepting for a second
-and tries again, but reports each time through the loop's exception handler with a traceback.
-`quiet_accept_errors` puts one plain log line there instead (and the log's repeat filter,
-daemon/logrepeat.py, folds the repeats).
+The listening socket is accepted from here, not by asyncio: a connection refused at the door
+(gate.py) is answered and closed at once, before any asyncio transport exists, so a flood of
+connections costs little; and running out of descriptors at accept (EMFILE, ENFILE) pauses
+accepting briefly with one plain log line (the log's repeat filter, daemon/logrepeat.py,
+folds repeats), not a traceback each time.
 """
 
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import errno
 import logging
 import resource
+import socket
 from collections.abc import Callable
 from typing import Any, Final
 
 from aiohttp import web
 
-from .gate import Gate, Limits
+from .gate import REFUSAL, Gate, Limits
 
 log = logging.getLogger(__name__)
 
 FD_RESERVE: Final = 128  # descriptors kept for everything but client connections
 BACKLOG: Final = 1024  # pending connections the kernel queues (capped by net.core.somaxconn)
+ACCEPTS_PER_TURN: Final = 32  # connections taken per turn of the event loop
+PAUSE_S: Final = 0.5  # accepting stops this long when out of descriptors, seconds
 _OUT_OF_FILES: Final = (errno.EMFILE, errno.ENFILE, errno.ENOBUFS, errno.ENOMEM)
 
 
@@ -63,7 +68,7 @@ def fit_to_open_files(limits: Limits) -> Limits:
 
 
 class GatedSite(web.BaseSite):
-    """A TCP site of an aiohttp runner whose connections go through `gate`."""
+    """A TCP site of an aiohttp runner whose connections go through `gate` (see `Listener`)."""
 
     __slots__ = ("_gate", "_host", "_port")
 
@@ -79,32 +84,95 @@ class GatedSite(web.BaseSite):
         await super().start()
         server = self._runner.server
         assert server is not None
-        loop = asyncio.get_running_loop()
-        self._server = await loop.create_server(
-            lambda: self._gate.guard(server), self._host, self._port, backlog=self._backlog,
-            reuse_address=True,
-        )  # fmt: skip
+        sock = socket.create_server((self._host, self._port), backlog=self._backlog,
+                                    family=_family(self._host), reuse_port=False)  # fmt: skip
+        self._server = Listener(sock, lambda: self._gate.guard(server), self._gate)
 
 
-def quiet_accept_errors(loop: asyncio.AbstractEventLoop) -> Callable[[], None]:
-    """Log running out of descriptors at accept as one plain line; returns the undo."""
-    previous = loop.get_exception_handler()
+def _family(host: str) -> socket.AddressFamily:
+    return socket.AF_INET6 if ":" in host else socket.AF_INET
 
-    def handle(loop: asyncio.AbstractEventLoop, context: dict[str, Any]) -> None:
-        exc = context.get("exception")
-        if (
-            isinstance(exc, OSError)
-            and exc.errno in _OUT_OF_FILES
-            and "accept" in str(context.get("message", ""))
-        ):
-            name = errno.errorcode.get(exc.errno or 0, str(exc.errno))
-            log.error("out of file descriptors accepting a connection (%s); accepting "
-                      "pauses for a second", name)  # fmt: skip
+
+class Listener(asyncio.AbstractServer):
+    """Accepts connections itself, so that one refused at the door costs an accept, a send
+    and a close, not an asyncio transport and task; at most `ACCEPTS_PER_TURN` per turn of
+    the loop, so a flood of connections never keeps other callbacks waiting long. Out of
+    descriptors (EMFILE, ENFILE) it stops accepting for `PAUSE_S` and logs one line."""
+
+    def __init__(
+        self, sock: socket.socket, factory: Callable[[], asyncio.Protocol], gate: Gate
+    ) -> None:
+        self._sock, self._factory, self._gate = sock, factory, gate
+        self._loop = asyncio.get_running_loop()
+        self._tasks: set[asyncio.Task[Any]] = set()
+        self._serving = True
+        sock.setblocking(False)
+        self._loop.add_reader(sock.fileno(), self._accept)
+
+    @property
+    def sockets(self) -> tuple[socket.socket, ...]:
+        return (self._sock,) if self._serving else ()
+
+    def _accept(self) -> None:
+        for _ in range(ACCEPTS_PER_TURN):
+            try:
+                conn, peer = self._sock.accept()
+            except (BlockingIOError, InterruptedError, ConnectionAbortedError):
+                return
+            except OSError as exc:
+                if exc.errno not in _OUT_OF_FILES:
+                    raise
+                self._pause(exc)
+                return
+            address = str(peer[0]) if isinstance(peer, tuple) and peer else "?"
+            if not self._gate.has_room(address):
+                self._gate.refuse(address)
+                with contextlib.suppress(OSError):
+                    conn.setblocking(False)
+                    conn.send(REFUSAL)  # fits any socket buffer: all or nothing in practice
+                conn.close()
+                continue
+            task = self._loop.create_task(self._loop.connect_accepted_socket(self._factory, conn))
+            self._tasks.add(task)
+            task.add_done_callback(self._done)
+
+    def _done(self, task: asyncio.Task[Any]) -> None:
+        self._tasks.discard(task)
+        if not task.cancelled() and task.exception() is not None:
+            log.warning("could not take a connection: %s", task.exception())
+
+    def _pause(self, exc: OSError) -> None:
+        name = errno.errorcode.get(exc.errno or 0, str(exc.errno))
+        log.error("out of file descriptors accepting a connection (%s); accepting pauses "
+                  "for %g s", name, PAUSE_S)  # fmt: skip
+        self._loop.remove_reader(self._sock.fileno())
+        self._loop.call_later(PAUSE_S, self._resume)
+
+    def _resume(self) -> None:
+        if self._serving:
+            self._loop.add_reader(self._sock.fileno(), self._accept)
+
+    # -- asyncio.AbstractServer
+
+    def close(self) -> None:
+        if not self._serving:
             return
-        if previous is not None:
-            previous(loop, context)
-        else:
-            loop.default_exception_handler(context)
+        self._serving = False
+        self._loop.remove_reader(self._sock.fileno())
+        self._sock.close()
 
-    loop.set_exception_handler(handle)
-    return lambda: loop.set_exception_handler(previous)
+    def get_loop(self) -> asyncio.AbstractEventLoop:
+        return self._loop
+
+    def is_serving(self) -> bool:
+        return self._serving
+
+    async def start_serving(self) -> None:
+        return None  # serving since it was made
+
+    async def serve_forever(self) -> None:
+        raise NotImplementedError("the runner owns this listener's life")
+
+    async def wait_closed(self) -> None:
+        if self._tasks:
+            await asyncio.gather(*self._tasks, return_exceptions=True)
