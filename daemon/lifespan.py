@@ -23,6 +23,7 @@ from .api.gate import Limits
 from .auth import Auth
 from .config import Config
 from .errors import ConfigError
+from .logrepeat import WINDOW_S, report_folded
 from .notify import Notifier
 from .private import private_dir
 from .rig import Rig
@@ -152,6 +153,7 @@ async def lifespan(
         if notify.active:
             reporter = asyncio.create_task(report(running.rig, notify))
             stack.push_async_callback(_cancelled, reporter)
+        stack.push_async_callback(_cancelled, asyncio.create_task(_report_folded()))
         yield Daemon(running, auth, service, advertiser, notify)
 
 
@@ -212,6 +214,13 @@ def _log_failure(future: concurrent.futures.Future[None]) -> None:
     exc = future.exception()
     if exc is not None:
         log.warning("could not update the announcement: %s", exc)
+
+
+async def _report_folded() -> None:
+    """Once a minute, the counts of log lines folded by the log's repeat filter."""
+    while True:
+        await asyncio.sleep(WINDOW_S)
+        report_folded()
 
 
 async def _cancelled(task: asyncio.Task[None]) -> None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import logging
 
-from taprig.daemon.logrepeat import RepeatFilter
+from taprig.daemon.logrepeat import RepeatFilter, report_folded
 
 
 class Clock:
@@ -52,3 +52,34 @@ def test_other_kinds_and_quiet_levels_pass() -> None:
     gate = "taprig.daemon.api.gate"
     assert f.filter(_record("closed %d", 1, level=logging.INFO, name=gate))
     assert not f.filter(_record("closed %d", 2, level=logging.INFO, name=gate))
+
+
+def test_counts_left_when_repeats_stop_are_reported_on_a_line_of_their_own() -> None:
+    clock = Clock()
+    f = RepeatFilter(clock=clock)
+    lines: list[str] = []
+
+    class Keep(logging.Handler):
+        def emit(self, record: logging.LogRecord) -> None:
+            lines.append(record.getMessage())
+
+    keep = Keep()
+    keep.addFilter(f)
+    logger = logging.getLogger("taprig.test.folded")
+    logger.addHandler(keep)
+    logger.propagate = False
+    try:
+        for n in range(50):
+            logger.warning("accept failed on fd %d", n)
+        report_folded(logger)
+        assert lines == ["accept failed on fd 0"]  # the minute is not over
+        clock.t += 61.0
+        report_folded(logger)
+        report_folded(logger)  # reported once
+        folded = "accept failed on fd 0 (49 more like this in the last minute)"
+        assert lines == ["accept failed on fd 0", folded]
+        logger.warning("accept failed on fd %d", 99)  # a new window begins
+        assert lines[-1] == "accept failed on fd 99"
+    finally:
+        logger.removeHandler(keep)
+        logger.propagate = True
