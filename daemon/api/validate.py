@@ -168,8 +168,9 @@ async def body(route: Route, request: web.Request, timeout_s: float) -> dict[str
         async with asyncio.timeout(timeout_s):
             raw = await request.read()
     except TimeoutError:
-        raise ApiError(408, "request_timeout",
-                       f"the request body did not arrive within {timeout_s:g} s") from None
+        raise ApiError(
+            408, "request_timeout", f"the request body did not arrive within {timeout_s:g} s"
+        ) from None
     if raw and request.content_type != JSON:
         raise ApiError(415, "unsupported_media_type", f"send the body as {JSON}")
     if len(raw) > INLINE_BODY_BYTES:

@@ -26,6 +26,7 @@ import bench_modal
 import bench_phone
 import bench_pull
 import bench_service
+import bench_size
 import bench_spectra
 import bench_startup
 import bench_text_input
@@ -57,6 +58,8 @@ BENCHES = [
     Bench("service under abuse: a paired client beside idle connections, the log's growth",
           lambda q: bench_abuse.run(3.0 if q else 10.0, 10.0 if q else 70.0),
           bench_abuse.show, bench_abuse.headline),
+    Bench("point-set size: 2 responses, 16k block", lambda q: bench_size.run(),
+          lambda rows: bench_size.show(rows, decimals=3), bench_size.headline),
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
     Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),
