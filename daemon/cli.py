@@ -208,6 +208,15 @@ class Roving(StrEnum):
     sensor = "sensor"
 
 
+OutlineOption = Annotated[
+    Path | None,
+    typer.Option(
+        help="the structure's faces and lines for the new test (outline text; default: "
+        "<grid>.outline beside the --grid file, when there is one)"
+    ),
+]
+
+
 @app.command()
 def run(
     config: ConfigOption = None,
@@ -220,6 +229,7 @@ def run(
             "on the virtual device a new test takes the virtual structure's grid"
         ),
     ] = None,
+    outline: OutlineOption = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
     reference: Annotated[
         str | None, typer.Option(help="fixed sensor (hammer mode) or hammer point (sensor mode)")
@@ -258,7 +268,8 @@ def run(
 
     _setup_logging(verbose)
     options = RunOptions(test, grid, RovingMode(roving.value), reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events, virtual_control)  # fmt: skip
+                         virtual_double_hits, truth, json_events, virtual_control,
+                         outline)  # fmt: skip
     with _guard():
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))

@@ -42,6 +42,7 @@ from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
+from .grid import test_meta
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .room import Room
@@ -146,11 +147,12 @@ class Rig:
         reference: str | None = None,
         averages: int | None = None,
         sensor_points: dict[str, str] | None = None,
+        outline: str | None = None,
     ) -> None:
         ref = reference if reference is not None else grid[0].label
         if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
             raise SessionError(f"reference {ref!r} is not a point of the grid")
-        meta = {"sensor_points": sensor_points or {}}
+        meta = test_meta(sensor_points, outline)
         avg = averages if averages is not None else self.config.capture.averages
         self.store.save_test(name, grid, roving_mode, ref, avg, meta)
 

@@ -17,8 +17,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .config import Config
-from .errors import DiskLowError, SessionError
-from .grid import MAX_POINTS, import_grid_csv
+from .errors import DiskLowError, GridError, SessionError
+from .grid import MAX_POINTS, import_grid_csv, outline_beside, read_outline
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
 from .rig import Rig
@@ -44,6 +44,7 @@ class RunOptions:
     truth: Path | None = None
     json_events: bool = False
     virtual_control: int | None = None
+    outline: Path | None = None  # default: <grid>.outline beside the grid, when there is one
 
 
 async def run(cfg: Config, opt: RunOptions) -> None:
@@ -120,10 +121,11 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
         points = []
     if opt.virtual_taps > 0 and vi is not None:
         _check_tappable(name, points or running.store.get_test(name).grid, vi.model.grid)
+    outline = _outline(opt, points)
     if points:
         sensor_points = dict(vi.model.sensors) if vi is not None else None
         rig.create_test(name, points, opt.roving, opt.reference,
-                        sensor_points=sensor_points)  # fmt: skip
+                        sensor_points=sensor_points, outline=outline)  # fmt: skip
     wait_for_device(rig)
     rig.select_test(name)
     try:
@@ -142,6 +144,18 @@ def _check_tappable(test: str, points: Sequence[GridPoint], on_piece: Sequence[s
             f"its points are {on_piece[0]}..{on_piece[-1]}. Tap by hand, or use a test whose "
             "grid is the simulated piece's"
         )
+
+
+def _outline(opt: RunOptions, points: list[GridPoint]) -> str | None:
+    """The outline text for a new test: --outline, else the one beside --grid; checked."""
+    path = opt.outline
+    if path is None and opt.grid is not None:
+        path = outline_beside(opt.grid)
+    if path is None:
+        return None
+    if not points:
+        raise GridError(f"outline {path}: it describes a new test's grid; give --grid too")
+    return read_outline(path, points)
 
 
 def simulated_tap(running: RunningRig) -> None:

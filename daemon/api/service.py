@@ -26,7 +26,7 @@ from taprig.schema import API_VERSION, http, objects, records
 
 from .. import __version__, identity, page
 from ..errors import TaprigError
-from ..records import RovingMode
+from ..records import GridPoint, RovingMode
 from . import validate
 from .bodies import (
     BODY_CACHE_BYTES,
@@ -349,7 +349,11 @@ class Service:
         return await self._answer_once("create_test", call.body, lambda: self._create(call.body))
 
     async def _create(self, body: Payload) -> Outcome:
-        grid = await asyncio.to_thread(validate.grid, body)  # up to 4,096 points: off the loop
+        def parsed() -> tuple[list[GridPoint], str | None]:  # up to 4,096 points: off the loop
+            grid = validate.grid(body)
+            return grid, validate.outline(body, grid)
+
+        grid, outline = await asyncio.to_thread(parsed)
         labels = {p.label for p in grid}
         reference = body.get("reference", grid[0].label)
         if reference not in labels:
@@ -362,7 +366,7 @@ class Service:
         name = body["name"]
         await asyncio.to_thread(  # AlreadyExists: 409
             self.rig.create_test, name, grid, RovingMode(body.get("roving_mode", "hammer")),
-            reference, body.get("averages"), sensors,
+            reference, body.get("averages"), sensors, outline,
         )  # fmt: skip
         self._feed.wake()
         plan = await asyncio.to_thread(self.store.get_test, name)
