@@ -239,6 +239,14 @@ def run(
             "loopback port (0: any free port; recorded in <data_dir>/run.json)",
         ),
     ] = None,
+    virtual_speed: Annotated[
+        float,
+        typer.Option(
+            min=0.1, max=16.0,
+            help="virtual device only: simulated seconds per wall second (above 1: faster "
+            "than real time, for demonstrations)",
+        ),
+    ] = 1.0,
     json_events: Annotated[
         bool, typer.Option("--json-events", help="print every rig event as a JSON line")
     ] = False,
@@ -254,7 +262,8 @@ def run(
 
     _setup_logging(verbose)
     options = RunOptions(test, grid, RovingMode(roving.value), reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events, virtual_control)  # fmt: skip
+                         virtual_double_hits, truth, json_events, virtual_control,
+                         virtual_speed)  # fmt: skip
     with _guard():
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))

@@ -13,6 +13,7 @@ from __future__ import annotations
 import asyncio
 import concurrent.futures
 import contextlib
+import dataclasses
 import logging
 from collections.abc import AsyncIterator, Callable
 from dataclasses import dataclass
@@ -45,19 +46,23 @@ def start_rig(
     instrument_settings: InstrumentSettings | None = None,
     model: ModalModel | None = None,
     control_port: int | None = None,
+    virtual_speed: float = 1.0,
 ) -> RunningRig:
     """Start the capture parts the configuration names, in order, and start capturing.
 
     instrument_settings, model: for a virtual device, how to build it (default: the demo panel).
     control_port: serve the virtual device's control interface on this loopback port (0: any).
+    virtual_speed: simulated seconds per wall second of a virtual device (1: real time).
     """
     if control_port is not None and not config.device.is_virtual:
         raise ConfigError("--virtual-control needs a virtual device (device.url=virtual...)")
+    if virtual_speed != 1.0 and not config.device.is_virtual:
+        raise ConfigError("--virtual-speed needs a virtual device (device.url=virtual...)")
     with contextlib.ExitStack() as stack:
         instrument = control = None
         url = config.device.url
         if config.device.is_virtual:
-            instrument = _open_instrument(config, instrument_settings, model)
+            instrument = _open_instrument(config, instrument_settings, model, virtual_speed)
             stack.callback(instrument.close)
             url = instrument.url
             if control_port is not None:
@@ -75,7 +80,7 @@ def start_rig(
 
 
 def _open_instrument(
-    config: Config, settings: InstrumentSettings | None, model: ModalModel | None
+    config: Config, settings: InstrumentSettings | None, model: ModalModel | None, speed: float
 ) -> VirtualInstrument:
     from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
 
@@ -87,6 +92,8 @@ def _open_instrument(
         settings = (
             InstrumentSettings(output="text", rate_hz=5_000.0) if text else InstrumentSettings()
         )
+    if speed != 1.0:
+        settings = dataclasses.replace(settings, speed=speed)
     # Behind a stable name in the data folder, as udev gives a USB device, so the link finds
     # it again after an unplug.
     link = str(config.store.data_dir / "virtual-tty") if transport == "pty" else None
@@ -114,6 +121,7 @@ async def lifespan(
     control_port: int | None = None,
     prepare: Callable[[RunningRig], None] | None = None,
     notifier: Notifier | None = None,
+    virtual_speed: float = 1.0,
 ) -> AsyncIterator[Daemon]:
     """Every part, in order: the capture parts (`start_rig`), then auth, service, run file,
     advertiser, notifier; on leaving, all of them stop in reverse.
@@ -121,12 +129,13 @@ async def lifespan(
     Entered inside the event loop. control_port: as for `start_rig`. prepare: run on a worker
     thread once the rig runs and before the service opens (e.g. to open a test), so that a
     tool that finds the run file finds the rig ready. notifier: where readiness and status go
-    (default: $NOTIFY_SOCKET, if set).
+    (default: $NOTIFY_SOCKET, if set). virtual_speed: as for `start_rig`.
     """
     from .api.service import Service
 
     async with contextlib.AsyncExitStack() as stack:
-        running = await asyncio.to_thread(start_rig, cfg, None, None, control_port)
+        running = await asyncio.to_thread(start_rig, cfg, None, None, control_port,
+                                          virtual_speed)
         stack.push_async_callback(asyncio.to_thread, running.close)  # joins threads: off the loop
         if prepare is not None:
             await asyncio.to_thread(prepare, running)

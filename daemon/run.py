@@ -44,6 +44,7 @@ class RunOptions:
     truth: Path | None = None
     json_events: bool = False
     virtual_control: int | None = None
+    virtual_speed: float = 1.0  # simulated seconds per wall second (virtual device only)
 
 
 async def run(cfg: Config, opt: RunOptions) -> None:
@@ -55,7 +56,7 @@ async def run(cfg: Config, opt: RunOptions) -> None:
     for sig in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(sig, stop.set)
     try:
-        async with lifespan(cfg, control_port=opt.virtual_control,
+        async with lifespan(cfg, control_port=opt.virtual_control, virtual_speed=opt.virtual_speed,
                             prepare=functools.partial(_prepare, opt=opt)) as daemon:  # fmt: skip
             await _until_stopped(daemon.running, opt, stop)
     finally:

@@ -35,6 +35,7 @@ log = logging.getLogger(__name__)
 
 MAX_LAG_S = 5.0  # s of samples the simulated converter's FIFO holds while the host is starved
 
+MAX_SPEED = 16.0  # simulated seconds per wall second at most; beyond it a host cannot keep up
 MIN_RATE_HZ = 1000.0
 MAX_RATE_HZ = 204_800.0
 
@@ -63,6 +64,9 @@ class InstrumentSettings:
     # The converter's linear-phase anti-alias filter on every channel (synth.converter_filter);
     # False point-samples the continuous signals, so content above Nyquist folds back.
     anti_alias: bool = True
+    # Simulated seconds per wall-clock second: above 1 the piece runs faster than real time
+    # (the demo), so a tap's record arrives in a fraction of its length. 1 is a real device.
+    speed: float = 1.0
 
 
 @dataclass
@@ -115,6 +119,8 @@ class VirtualInstrument:
         self.settings = settings if settings is not None else InstrumentSettings()
         if self.settings.output not in ("binary", "text"):
             raise ValueError(f"output {self.settings.output!r}; allowed binary, text")
+        if not 0.0 < self.settings.speed <= MAX_SPEED:
+            raise ValueError(f"speed {self.settings.speed!r}; allowed above 0 up to {MAX_SPEED:g}")
         self.port: Port = port if port is not None else PtyPort()
         self.faults = Faults()
         self.counters = InstrumentCounters()
@@ -345,7 +351,8 @@ class VirtualInstrument:
     def _wait_and_read(self) -> None:
         fd = self.port.fileno()
         if self._streaming:
-            due = self._t_start + (self._chunks + 1) * self.settings.frame_samples / self._rate_hz
+            period = self.settings.frame_samples / self._rate_hz / self.settings.speed
+            due = self._t_start + (self._chunks + 1) * period
             timeout = max(0.0, min(0.05, due - time.monotonic()))
         else:
             timeout = 0.05
@@ -434,7 +441,7 @@ class VirtualInstrument:
 
     def _stream(self, now: float) -> None:
         period = self.settings.frame_samples / self._rate_hz
-        behind = int((now - self._t_start) / period) - self._chunks
+        behind = int((now - self._t_start) * self.settings.speed / period) - self._chunks
         if behind * period > MAX_LAG_S:  # starved past the FIFO: the converter overran, skip
             with self._lock:
                 skipped_from = self._synth.next_index

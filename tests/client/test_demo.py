@@ -55,6 +55,7 @@ def test_demo_runs_the_whole_job_and_stops_what_it_started(demo: tuple[Path, str
     out, stdout = demo
     assert "tap rejected by the rig: double hit" in stdout
     assert "measured again" in stdout and "verified by checksum" in stdout
+    assert "6 times faster than real time" in stdout  # the sped-up panel is stated
     log = (out / "taprigd.log").read_text()
     state_dirs = {w for w in log.split() if "taprig-demo-rig-" in w}
     assert "Traceback" not in log
