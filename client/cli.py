@@ -383,8 +383,10 @@ def export(
         suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
         path = write(data, out or Path(f"{test}{suffix}"), fmt.value, quantity.value, _band(band))
     obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
-           "quantity": quantity.value, "format": fmt.value}  # fmt: skip
-    _emit(as_json, obj, lambda: [f"{len(data.points)} points of {test} as {quantity.value} "
+           "quantity": quantity.value, "format": fmt.value, "coverage": data.coverage,
+           "unmeasured": list(data.unmeasured)}  # fmt: skip
+    partial = f" (partial: {len(data.unmeasured)} not measured)" if data.unmeasured else ""
+    _emit(as_json, obj, lambda: [f"{data.coverage} of {test}{partial} as {quantity.value} "
                                  f"-> {path}"])  # fmt: skip
 
 

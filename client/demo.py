@@ -134,7 +134,7 @@ def operate(rig: RigClient, hammer: Hammer, truth: dict[str, Any], say: Say) -> 
     labels: list[str] = truth.get("grid", list(points))
     grid = [{"label": p, "x": points[p][0], "y": points[p][1], "z": points[p][2]} for p in labels]
     rig.create_test(TEST_NAME, grid, averages=AVERAGES, roving_mode="hammer",
-                    reference=labels[0], sensor_points=truth.get("sensors", {}))  # fmt: skip
+                    sensors=sensor_places(truth))  # fmt: skip
     _wait_for_device(rig)
     rig.act("select", test=TEST_NAME)
     rig.act("arm")
@@ -168,6 +168,17 @@ def operate(rig: RigClient, hammer: Hammer, truth: dict[str, Any], say: Say) -> 
             say(f"   {point}: tap rejected by the rig: {reason}")
     rig.act("disarm")
     return result
+
+
+def sensor_places(truth: dict[str, Any]) -> dict[str, dict[str, str]]:
+    """Where the panel's accelerometers sit, as the operator tells the rig: a grid label, or
+    x,y,z (m) for one off the tap grid; both measure along +z, out of the panel's plane."""
+    grid = set(truth.get("grid", truth["points"]))
+    places = {}
+    for label, point in truth.get("sensors", {}).items():
+        at = point if point in grid else ",".join(f"{c:g}" for c in truth["points"][point])
+        places[label] = {"at": at, "direction": "+z"}
+    return places
 
 
 def _last_hit(rig: RigClient) -> dict[str, Any] | None:

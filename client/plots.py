@@ -71,8 +71,9 @@ class _FrfSheet:
         self.keep = (f > 0.0) & (f <= (math.inf if f_max_hz is None else f_max_hz))
         fk = f[self.keep]
         nan = np.full(fk.shape, np.nan)
+        axes = (self.mag, self.phase, self.coh)
         self.lines = [
-            tuple(ax.plot(fk, nan, lw=0.8, label=label)[0] for ax in (self.mag, self.phase, self.coh))
+            tuple(ax.plot(fk, nan, lw=0.8, label=label)[0] for ax in axes)
             for label in data.responses
         ]
         if band_hz is not None:
@@ -134,7 +135,7 @@ class _ShapeSheet:
                                vmin=-1.0, vmax=1.0, edgecolors="0.3", linewidths=0.5)  # fmt: skip
         self.notes = [
             ax.annotate("", (x, y), textcoords="offset points", xytext=(0, 9), ha="center",
-                        fontsize=7)  # fmt: skip
+                        fontsize=7)
             for x, y in xy
         ]
         self.fig.colorbar(self.dots, ax=ax, label="Im H1 at the peak, largest = 1")

@@ -218,7 +218,18 @@ def run(
     ] = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
     reference: Annotated[
-        str | None, typer.Option(help="fixed sensor (hammer mode) or hammer point (sensor mode)")
+        str | None,
+        typer.Option(help="hammer point (sensor mode); in hammer mode where the first response "
+                     "sensor sits, the same as --sensor-at for it"),
+    ] = None,
+    sensor_at: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--sensor-at",
+            help="hammer mode, a new test: where a response sensor sits, LABEL=WHERE[/DIR]: "
+            "a grid label or x,y,z in metres, then +x..-z or a vector (default +z); e.g. "
+            "acc1=B3/+z; once per sensor (the [[channels]] location is the default)",
+        ),
     ] = None,
     duration: Annotated[float, typer.Option(help="stop after this many seconds (0: run on)")] = 0.0,
     virtual_taps: Annotated[
@@ -261,12 +272,23 @@ def run(
     from .run import run as run_daemon
 
     _setup_logging(verbose)
-    options = RunOptions(test, grid, RovingMode(roving.value), reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events, virtual_control,
-                         virtual_speed)  # fmt: skip
     with _guard():
+        places = tuple(_sensor_flag(text) for text in sensor_at or [])
+        options = RunOptions(test, grid, RovingMode(roving.value), reference, duration,
+                             virtual_taps, virtual_double_hits, truth, json_events,
+                             virtual_control, virtual_speed, places)  # fmt: skip
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))
+
+
+def _sensor_flag(text: str) -> tuple[str, str, str]:
+    from . import placement
+    from .errors import ConfigError
+
+    try:
+        return placement.split_flag(text)
+    except ValueError as exc:
+        raise ConfigError(str(exc)) from None
 
 
 @app.command()

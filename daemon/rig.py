@@ -16,7 +16,7 @@ import logging
 import queue
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from concurrent.futures import Future
 from typing import Any, TypeVar
 
@@ -33,7 +33,7 @@ from taprig.firmware_protocol import (
     StatusReceived,
 )
 
-from . import resume, stages
+from . import placement, resume, stages
 from .capture.acquire import Acquirer
 from .capture.hits import check_hit
 from .capture.link import LinkChange, LinkState, SerialLink
@@ -145,14 +145,31 @@ class Rig:
         roving_mode: RovingMode = RovingMode.HAMMER,
         reference: str | None = None,
         averages: int | None = None,
-        sensor_points: dict[str, str] | None = None,
-    ) -> None:
-        ref = reference if reference is not None else grid[0].label
-        if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
-            raise SessionError(f"reference {ref!r} is not a point of the grid")
-        meta = {"sensor_points": sensor_points or {}}
+        sensor_points: Mapping[str, str | tuple[str, str]] | None = None,
+    ) -> list[str]:
+        """Store a new test; returns the response channels whose place is still unknown.
+
+        sensor_points: response label -> where its sensor sits (a grid label or "x,y,z" m),
+        or (where, direction); the configured [[channels]] locations fill the rest
+        (daemon/placement.py). Roving hammer: never guessed; roving sensor: the reference is
+        the hammer point (default the first grid point).
+        """
         avg = averages if averages is not None else self.config.capture.averages
+        if roving_mode is RovingMode.SENSOR:
+            ref = reference if reference is not None else grid[0].label
+            if ref not in {p.label for p in grid}:
+                raise SessionError(f"reference {ref!r} is not a point of the grid")
+            self.store.save_test(name, grid, roving_mode, ref, avg, {"sensor_points": {}})
+            return []
+        try:
+            places, missing, ref = placement.test_places(
+                self.config.response_channels, sensor_points or {}, grid, reference)
+        except ValueError as exc:
+            raise SessionError(f"test {name!r}: {exc}") from None
+        meta = {"sensor_points": {label: p.name for label, p in places.items()},
+                "sensors": placement.to_meta(places), "sensors_missing": missing}  # fmt: skip
         self.store.save_test(name, grid, roving_mode, ref, avg, meta)
+        return missing
 
     def select_test(self, name: str) -> None:
         self.call(lambda: self._select(name))

@@ -16,6 +16,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
+from . import placement
 from .config import Config
 from .errors import DiskLowError, SessionError
 from .grid import import_grid_csv
@@ -45,6 +46,7 @@ class RunOptions:
     json_events: bool = False
     virtual_control: int | None = None
     virtual_speed: float = 1.0  # simulated seconds per wall second (virtual device only)
+    sensor_at: tuple[tuple[str, str, str], ...] = ()  # (label, where, direction) per --sensor-at
 
 
 async def run(cfg: Config, opt: RunOptions) -> None:
@@ -120,15 +122,32 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
     else:
         points = []
     if points:
-        sensor_points = dict(vi.model.sensors) if vi is not None else None
-        rig.create_test(name, points, opt.roving, opt.reference,
-                        sensor_points=sensor_points)  # fmt: skip
+        _create(running, name, points, opt)
     wait_for_device(rig)
     rig.select_test(name)
     try:
         rig.arm()
     except DiskLowError as exc:  # serve what is stored; the rig arms itself when room returns
         log.warning("%s", exc)
+
+
+def _create(running: RunningRig, name: str, points: list[GridPoint], opt: RunOptions) -> None:
+    """Create the test; a roving-hammer test whose sensor places are not all known is
+    refused before anything is stored (the virtual structure knows where its own sit)."""
+    given: dict[str, str | tuple[str, str]] = {}
+    if running.instrument is not None:
+        given.update(running.instrument.model.sensor_places())
+    given.update({label: (where, direction) for label, where, direction in opt.sensor_at})
+    if opt.roving is RovingMode.HAMMER:
+        cfg = running.config
+        try:
+            _, missing, _ = placement.test_places(cfg.response_channels, given, points,
+                                                  opt.reference)  # fmt: skip
+        except ValueError as exc:
+            raise SessionError(f"test {name!r}: {exc}") from None
+        if missing:
+            raise SessionError(placement.missing_message(name, missing))
+    running.rig.create_test(name, points, opt.roving, opt.reference, sensor_points=given)
 
 
 def simulated_tap(running: RunningRig) -> None:

@@ -42,8 +42,8 @@ EXTRA_HOMES = {"psycopg": "taprig.client.archive"}
 # What each import name is installed as (import name → distribution).
 DISTRIBUTIONS = {"serial": "pyserial"}
 
-BASE = ["__init__", "errors", "records", "wirebody", "grid", "identity", "display", "notify",
-        "txt", "redact", "room", "resume", "config.__init__", "config.setting",
+BASE = ["__init__", "errors", "records", "placement", "wirebody", "grid", "identity", "display",
+        "notify", "txt", "redact", "room", "resume", "config.__init__", "config.setting",
         "config.table", "config.channels"]  # fmt: skip
 API = ["__init__", "__main__", "routes", "errors", "bodies", "validate", "openapi", "once", "feed",
        "service"]  # fmt: skip

@@ -24,7 +24,7 @@ from aiohttp import web
 
 from taprig.schema import API_VERSION, wire
 
-from .. import __version__, identity, page
+from .. import __version__, identity, page, placement
 from ..errors import TaprigError
 from ..records import RovingMode
 from . import validate
@@ -291,19 +291,22 @@ class Service:
 
     async def _create(self, body: Payload) -> Outcome:
         grid = validate.grid(body)
-        labels = {p.label for p in grid}
-        reference = body.get("reference", grid[0].label)
-        if reference not in labels:
+        mode = RovingMode(body.get("roving_mode", "hammer"))
+        reference = body.get("reference")
+        if mode is RovingMode.SENSOR and reference not in {None, *(p.label for p in grid)}:
             raise invalid(f"body.reference: {reference!r} is not a label of the grid")
-        known = {c.label for c in self.running.config.response_channels}
-        sensors = body.get("sensor_points", {})
-        if set(sensors) - known:
-            raise invalid(f"body.sensor_points: {sorted(set(sensors) - known)} are not "
-                          f"response channels (those are {sorted(known)})")  # fmt: skip
+        sensors: dict[str, str | tuple[str, str]] = dict(body.get("sensor_points", {}))
+        for label, where in body.get("sensors", {}).items():
+            sensors[label] = (where["at"], where.get("direction", "+z"))
+        if mode is RovingMode.HAMMER:
+            try:
+                placement.test_places(self.running.config.response_channels, sensors, grid,
+                                      reference)  # fmt: skip
+            except ValueError as exc:
+                raise invalid(f"body.sensors: {exc}") from None
         name = body["name"]
         await asyncio.to_thread(  # AlreadyExists: 409
-            self.rig.create_test, name, grid, RovingMode(body.get("roving_mode", "hammer")),
-            reference, body.get("averages"), sensors,
+            self.rig.create_test, name, grid, mode, reference, body.get("averages"), sensors,
         )  # fmt: skip
         self._feed.wake()
         plan = await asyncio.to_thread(self.store.get_test, name)

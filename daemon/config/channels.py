@@ -65,7 +65,10 @@ def _one(label: str, table: object, where: str) -> ChannelSpec:
     got: dict[str, Any] = {}
     for s in CHANNEL_SETTINGS:
         if s.key not in table:
-            raise ConfigError(f"{label}.{s.key}: missing; must be {s.allowed_text}{where}")
+            if s.default is None:
+                raise ConfigError(f"{label}.{s.key}: missing; must be {s.allowed_text}{where}")
+            got[s.key] = s.default
+            continue
         got[s.key] = s.parse(table[s.key], label=f"{label}.{s.key}", where=where)
     role: Role = got["role"]
     unit: str = got["unit"]
@@ -78,7 +81,12 @@ def _one(label: str, table: object, where: str) -> ChannelSpec:
             f"{label}.unit = {_show(unit)}: must be {'one of ' if ',' in allowed else ''}"
             f"{allowed} for a {role} channel{where}"
         )
-    return _channel(got["index"], role, got["label"], got["sensitivity"], unit)
+    if role is Role.FORCE and "location" in table:
+        raise ConfigError(f"{label}.location: only response channels have a location; the "
+                          f"hammer moves (or, roving the sensor, strikes the test's reference)"
+                          f"{where}")  # fmt: skip
+    return _channel(got["index"], role, got["label"], got["sensitivity"], unit,
+                    got["location"], got["direction"])  # fmt: skip
 
 
 def _check_unique(label: str, spec: ChannelSpec, specs: list[ChannelSpec], where: str) -> None:

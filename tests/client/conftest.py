@@ -211,7 +211,7 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
         _until(lambda: r.rig.view().info is not None, "the device to identify itself")
         m = vi.model
         grid = [GridPoint(p, *map(float, m.coords[m.index(p)])) for p in m.grid]
-        sensors = dict(m.sensors)
+        sensors = m.sensor_places()
         r.rig.create_test("panel-check", grid, RovingMode.HAMMER,
                           reference=DEMO_DRIVING_POINT, sensor_points=sensors)  # fmt: skip
         r.rig.select_test("panel-check")
