@@ -135,8 +135,10 @@ def _create(running: RunningRig, name: str, points: list[GridPoint], opt: RunOpt
     """Create the test; a roving-hammer test whose sensor places are not all known is
     refused before anything is stored (the virtual structure knows where its own sit)."""
     given: dict[str, str | tuple[str, str]] = {}
-    if running.instrument is not None:
-        given.update(running.instrument.model.sensor_places())
+    responses = {c.label for c in running.config.response_channels}
+    if running.instrument is not None:  # where the simulated piece's sensors sit, if used
+        places = running.instrument.model.sensor_places().items()
+        given.update({label: at for label, at in places if label in responses})
     given.update({label: (where, direction) for label, where, direction in opt.sensor_at})
     if opt.roving is RovingMode.HAMMER:
         cfg = running.config

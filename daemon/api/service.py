@@ -17,7 +17,7 @@ import asyncio
 import functools
 import logging
 import math
-from collections.abc import Awaitable, Callable
+from collections.abc import Awaitable, Callable, Sequence
 from typing import TYPE_CHECKING, Final
 
 from aiohttp import web
@@ -26,7 +26,7 @@ from taprig.schema import API_VERSION, wire
 
 from .. import __version__, identity, page, placement
 from ..errors import TaprigError
-from ..records import RovingMode
+from ..records import ChannelSpec, RovingMode
 from . import validate
 from .bodies import (
     BODY_CACHE_BYTES,
@@ -46,6 +46,7 @@ from .routes import HEARTBEAT_S, JSON, PREFIX, ROUTES, Call, Payload, Route
 
 if TYPE_CHECKING:
     from ..auth import Auth
+    from ..capture.session import Plan
     from ..running import RunningRig
 
 log = logging.getLogger(__name__)
@@ -60,6 +61,14 @@ REDACTED_LOGGERS: Final = (
     "aiohttp.access", "aiohttp.server", "aiohttp.web", __name__, "taprig.daemon.api.errors",
     "taprig.daemon.api.feed",
 )  # fmt: skip
+
+
+def _unplaced(plan: Plan | None, responses: Sequence[ChannelSpec]) -> list[str]:
+    """The selected roving-hammer test's response channels whose place it never got (for
+    the page's prompt)."""
+    if plan is None or plan.roving_mode is not RovingMode.HAMMER:
+        return []
+    return [c.label for c in responses if not plan.sensor_points.get(c.label)]
 
 
 class Service:
@@ -237,6 +246,7 @@ class Service:
             "last_seq": last_seq, "accept": self.running.config.capture.accept.value,
             "channels": [{"label": c.label, "role": str(c.role)}
                          for c in sorted(self.running.config.channels, key=lambda c: c.index)],
+            "sensors_missing": _unplaced(view.plan, self.running.config.response_channels),
         })  # fmt: skip
 
     async def _on_last_hit(self, call: Call) -> web.StreamResponse:
