@@ -14,16 +14,17 @@ Sensitivities are converted once here into ChannelSpec.si_per_volt (N/V or (m/sÂ
 
 from __future__ import annotations
 
+import contextlib
 import os
 import tomllib
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from ..errors import ConfigError
 from ..records import ChannelSpec, Role
-from .channels import channels
+from .channels import ConfigErrors, channels
 from .setting import (
     DATA_DIR_ENV,
     STANDARD_GRAVITY,
@@ -223,43 +224,58 @@ def load_config(
     raw: dict[str, _Raw] = {}
     channel_tables: list[object] | None = None
     file_where = ""
+    problems = Problems()
     if path is not None:
         file_where = f" (in {path})"
-        channel_tables = _gather_file(_read_toml(path), raw, file_where, path.absolute().parent)
+        channel_tables = _gather_file(_read_toml(path), raw, file_where,
+                                      path.absolute().parent, problems)  # fmt: skip
     env_dir = env.get(DATA_DIR_ENV, "")
     if env_dir:
         where = f" (from environment variable {DATA_DIR_ENV})"
         raw["store.data_dir"] = _Raw(env_dir, True, where, Path.cwd())
     for text in overrides:
-        setting, value = _split_override(text)
-        raw[setting.name] = _Raw(value, True, " (command-line override)", Path.cwd())
-
-    values: dict[str, dict[str, Any]] = {section: {} for section in _SECTION_TYPES}
-    where_of: dict[str, str] = {}
-    for s in SETTINGS:
-        r = raw.get(s.name)
-        if r is None:
-            values[s.section][s.key] = s.default
-            where_of[s.name] = " (default)"
-        else:
-            values[s.section][s.key] = s.parse(
-                r.value, from_text=r.from_text, where=r.where, base_dir=r.base_dir
-            )
-            where_of[s.name] = r.where
+        with problems.collect():
+            setting, value = _split_override(text)
+            raw[setting.name] = _Raw(value, True, " (command-line override)", Path.cwd())
+    values, where_of = _values(raw, problems)
     sections = {name: cls(**values[name]) for name, cls in _SECTION_TYPES.items()}
     device: DeviceConfig = sections["device"]
     capture: CaptureConfig = sections["capture"]
-    _check_together(device, capture, where_of)
+    _check_together(device, capture, where_of, problems)
+    chans: tuple[ChannelSpec, ...] = ()
+    with problems.collect():
+        chans = channels(channel_tables, device.is_virtual, device.url, file_where)
+    problems.raise_any()
     return Config(
         rig=sections["rig"],
         device=device,
-        channels=channels(channel_tables, device.is_virtual, device.url, file_where),
+        channels=chans,
         capture=capture,
         windows=sections["windows"],
         store=sections["store"],
         service=sections["service"],
         source=path,
     )
+
+
+def _values(
+    raw: Mapping[str, _Raw], problems: Problems
+) -> tuple[dict[str, dict[str, Any]], dict[str, str]]:
+    """Each setting's typed value (its default where the given one is wrong, so that the
+    checks of the rest still run), and where it came from."""
+    values: dict[str, dict[str, Any]] = {section: {} for section in _SECTION_TYPES}
+    where_of: dict[str, str] = {}
+    for s in SETTINGS:
+        r = raw.get(s.name)
+        values[s.section][s.key] = s.default
+        where_of[s.name] = " (default)"
+        if r is not None:
+            with problems.collect():
+                values[s.section][s.key] = s.parse(
+                    r.value, from_text=r.from_text, where=r.where, base_dir=r.base_dir
+                )
+                where_of[s.name] = r.where
+    return values, where_of
 
 
 def _read_toml(path: Path) -> dict[str, Any]:
@@ -275,38 +291,43 @@ def _read_toml(path: Path) -> dict[str, Any]:
 
 
 def _gather_file(
-    doc: dict[str, Any], raw: dict[str, _Raw], where: str, base_dir: Path
+    doc: dict[str, Any], raw: dict[str, _Raw], where: str, base_dir: Path, problems: Problems
 ) -> list[object] | None:
-    """Put the file's scalar settings into `raw`; return its [[channels]] tables, if any."""
+    """Put the file's scalar settings into `raw`; return its [[channels]] tables, if any.
+    Every mistake goes to `problems`, so one reading reports them all."""
     channel_tables: list[object] | None = None
     for section, body in doc.items():
-        if section == "channels":
-            if not isinstance(body, list):
-                raise ConfigError(
-                    f"channels = {_show(body)}: must be an array of tables, one [[channels]] "
-                    f"table per device channel (note the double brackets){where}"
-                )
-            channel_tables = body
-            continue
-        if section not in _SECTION_KEYS:
-            if not isinstance(body, dict):
-                raise ConfigError(
-                    f"{section} = {_show(body)}: unknown setting; settings belong in a section"
-                    f"{_suggest_name(section)}{where}"
-                )
-            raise ConfigError(f"[{section}]: unknown section{_suggest_section(section)}{where}")
+        with problems.collect():
+            if section == "channels":
+                if not isinstance(body, list):
+                    raise ConfigError(
+                        f"channels = {_show(body)}: must be an array of tables, one [[channels]] "
+                        f"table per device channel (note the double brackets){where}"
+                    )
+                channel_tables = body
+                continue
+            _check_section(section, body, where)
+            for key, value in body.items():
+                name = f"{section}.{key}"
+                with problems.collect():
+                    if name not in _BY_NAME:
+                        raise ConfigError(f"{name} = {_show(value)}: unknown setting"
+                                          f"{_suggest_key(section, key)}{where}")  # fmt: skip
+                    raw[name] = _Raw(value, False, where, base_dir)
+    return channel_tables
+
+
+def _check_section(section: str, body: object, where: str) -> None:
+    """A known section written as a table; ConfigError otherwise."""
+    if section not in _SECTION_KEYS:
         if not isinstance(body, dict):
             raise ConfigError(
-                f"{section} = {_show(body)}: must be a table, written [{section}]{where}"
+                f"{section} = {_show(body)}: unknown setting; settings belong in a section"
+                f"{_suggest_name(section)}{where}"
             )
-        for key, value in body.items():
-            name = f"{section}.{key}"
-            if name not in _BY_NAME:
-                raise ConfigError(
-                    f"{name} = {_show(value)}: unknown setting{_suggest_key(section, key)}{where}"
-                )
-            raw[name] = _Raw(value, False, where, base_dir)
-    return channel_tables
+        raise ConfigError(f"[{section}]: unknown section{_suggest_section(section)}{where}")
+    if not isinstance(body, dict):
+        raise ConfigError(f"{section} = {_show(body)}: must be a table, written [{section}]{where}")
 
 
 def _split_override(text: str) -> tuple[Setting, str]:
@@ -363,22 +384,52 @@ def _suggest_name(name: str) -> str:
     return f"; did you mean {best}?" if best is not None else ""
 
 
-def _check_together(device: DeviceConfig, capture: CaptureConfig, where: Mapping[str, str]) -> None:
-    """Checks of settings that depend on each other."""
+def _check_together(
+    device: DeviceConfig, capture: CaptureConfig, where: Mapping[str, str], problems: Problems
+) -> None:
+    """Checks of settings that depend on each other; each mistake goes to `problems`."""
     if not capture.pretrigger < capture.block // 2:
-        raise ConfigError(
+        problems.add(
             f"capture.pretrigger = {capture.pretrigger}: must be from 0 to "
             f"{capture.block // 2 - 1}, below half of capture.block = {capture.block}"
             f"{where['capture.pretrigger']}"
         )
     if not capture.hysteresis_n < capture.trigger_level_n:
-        raise ConfigError(
+        problems.add(
             f"capture.hysteresis_n = {_show(capture.hysteresis_n)}: must be â‰¥ 0 and below "
             f"capture.trigger_level_n = {_show(capture.trigger_level_n)}"
             f"{where['capture.hysteresis_n']}"
         )
     if device.url == "virtual:text" and device.format is not StreamFormat.TEXT:
-        raise ConfigError(
+        problems.add(
             f'device.format = "{device.format}": must be "text" with device.url = '
             f'"virtual:text", whose virtual instrument prints text{where["device.format"]}'
         )
+
+
+class Problems:
+    """The mistakes found while reading a configuration, reported together at the end."""
+
+    def __init__(self) -> None:
+        self.found: list[str] = []
+
+    def add(self, message: str) -> None:
+        self.found.append(message)
+
+    @contextlib.contextmanager
+    def collect(self) -> Iterator[None]:
+        """Run the block; a ConfigError it raises is kept, and reading goes on."""
+        try:
+            yield
+        except ConfigErrors as exc:
+            self.found.extend(exc.messages)
+        except ConfigError as exc:
+            self.found.append(str(exc))
+
+    def raise_any(self) -> None:
+        """ConfigError with every mistake found (one line each), if there were any."""
+        if len(self.found) == 1:
+            raise ConfigError(self.found[0])
+        if self.found:
+            listed = "\n".join(f"  {i}. {m}" for i, m in enumerate(self.found, 1))
+            raise ConfigError(f"{len(self.found)} mistakes in the configuration:\n{listed}")

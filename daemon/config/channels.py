@@ -34,10 +34,16 @@ def channels(
             f"{', '.join(_CHANNEL_KEYS)} (see deploy/taprigd.example.toml){where}"
         )
     specs: list[ChannelSpec] = []
+    wrong: list[str] = []  # every table's mistakes, reported together
     for i, table in enumerate(tables):
-        spec = _one(f"channels[{i}]", table, where)
-        _check_unique(f"channels[{i}]", spec, specs, where)
-        specs.append(spec)
+        try:
+            spec = _one(f"channels[{i}]", table, where)
+            _check_unique(f"channels[{i}]", spec, specs, where)
+            specs.append(spec)
+        except ConfigError as exc:
+            wrong.append(str(exc))
+    if wrong:
+        raise ConfigErrors(wrong)
     if not any(s.role is Role.FORCE for s in specs):
         raise ConfigError(
             f'channels: no channel has role "force"; exactly one must (the hammer){where}'
@@ -47,6 +53,14 @@ def channels(
             f'channels: no channel has role "response"; at least one must (an accelerometer){where}'
         )
     return tuple(sorted(specs, key=lambda s: s.index))
+
+
+class ConfigErrors(ConfigError):
+    """Several mistakes at once; `messages` one line each."""
+
+    def __init__(self, messages: list[str]) -> None:
+        super().__init__("\n".join(messages))
+        self.messages = messages
 
 
 def _one(label: str, table: object, where: str) -> ChannelSpec:
