@@ -183,7 +183,7 @@ def assemble(
     )
 
 
-_TEST_META = ("sensors", "sensors_missing")  # the test's own metadata a fitter needs
+_TEST_META = ("sensors", "sensors_missing", "grid_warnings")  # the test's own metadata a fitter needs
 
 
 def _rejections(ps: WirePointSet) -> dict[str, int]:

@@ -42,6 +42,7 @@ from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
+from .grid import grid_warnings
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .room import Room
@@ -155,11 +156,15 @@ class Rig:
         the hammer point (default the first grid point).
         """
         avg = averages if averages is not None else self.config.capture.averages
+        warnings = grid_warnings(grid)
+        for text in warnings:
+            log.warning("test %s: %s", name, text)
         if roving_mode is RovingMode.SENSOR:
             ref = reference if reference is not None else grid[0].label
             if ref not in {p.label for p in grid}:
                 raise SessionError(f"reference {ref!r} is not a point of the grid")
-            self.store.save_test(name, grid, roving_mode, ref, avg, {"sensor_points": {}})
+            meta: dict[str, Any] = {"sensor_points": {}, "grid_warnings": warnings}
+            self.store.save_test(name, grid, roving_mode, ref, avg, meta)
             return []
         try:
             places, missing, ref = placement.test_places(
@@ -167,7 +172,8 @@ class Rig:
         except ValueError as exc:
             raise SessionError(f"test {name!r}: {exc}") from None
         meta = {"sensor_points": {label: p.name for label, p in places.items()},
-                "sensors": placement.to_meta(places), "sensors_missing": missing}  # fmt: skip
+                "sensors": placement.to_meta(places), "sensors_missing": missing,
+                "grid_warnings": warnings}  # fmt: skip
         self.store.save_test(name, grid, roving_mode, ref, avg, meta)
         return missing
 

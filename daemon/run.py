@@ -137,8 +137,11 @@ def _create(running: RunningRig, name: str, points: list[GridPoint], opt: RunOpt
     given: dict[str, str | tuple[str, str]] = {}
     responses = {c.label for c in running.config.response_channels}
     if running.instrument is not None:  # where the simulated piece's sensors sit, if used
-        places = running.instrument.model.sensor_places().items()
-        given.update({label: at for label, at in places if label in responses})
+        m, labels = running.instrument.model, {p.label for p in points}
+        for label, at in m.sensors.items():
+            if label in responses:
+                xyz = ",".join(f"{c:g}" for c in m.coords[m.index(at)])
+                given[label] = at if at in labels else xyz
     given.update({label: (where, direction) for label, where, direction in opt.sensor_at})
     if opt.roving is RovingMode.HAMMER:
         cfg = running.config
