@@ -70,6 +70,10 @@ def _guard() -> Iterator[None]:
     except ValueError as exc:  # bad option values found past typer (bands, addresses, data)
         typer.echo(f"taprig: {exc}", err=True)
         raise typer.Exit(code=2) from None
+    except OSError as exc:  # a file the system refused (e.g. --out in a missing folder)
+        where = f"{exc.filename}: " if exc.filename else ""
+        typer.echo(f"taprig: {where}{exc.strerror or exc}", err=True)
+        raise typer.Exit(code=1) from None
 
 
 def _emit(as_json: bool, obj: Any, lines: Callable[[], list[str]]) -> None:
@@ -381,7 +385,10 @@ def export(
     with _guard():
         data = _load(rig, test, archive)
         suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
-        path = write(data, out or Path(f"{test}{suffix}"), fmt.value, quantity.value, _band(band))
+        target = out or Path(f"{test}{suffix}")
+        if not target.absolute().parent.is_dir():
+            raise ClientError(f"cannot write {target}: the folder {target.parent} does not exist")
+        path = write(data, target, fmt.value, quantity.value, _band(band))
     obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
            "quantity": quantity.value, "format": fmt.value, "coverage": data.coverage,
            "unmeasured": list(data.unmeasured)}  # fmt: skip

@@ -183,7 +183,8 @@ def assemble(
     )
 
 
-_TEST_META = ("sensors", "sensors_missing", "grid_warnings")  # the test's own metadata a fitter needs
+# The test's own metadata a fitter needs: where the sensors sit, what the grid looked like.
+_TEST_META = ("sensors", "sensors_missing", "grid_warnings")
 
 
 def _rejections(ps: WirePointSet) -> dict[str, int]:

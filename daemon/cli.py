@@ -58,6 +58,10 @@ def _guard() -> Iterator[None]:
     except ValueError as exc:  # e.g. a pairing host that is no host
         typer.echo(f"taprigd: {exc}", err=True)
         raise typer.Exit(code=2) from None
+    except OSError as exc:  # a file or port the system refused: say which, never a traceback
+        where = f"{exc.filename}: " if exc.filename else ""
+        typer.echo(f"taprigd: {where}{exc.strerror or exc}", err=True)
+        raise typer.Exit(code=1) from None
     except KeyboardInterrupt:
         pass
 

@@ -15,6 +15,7 @@ import concurrent.futures
 import contextlib
 import dataclasses
 import logging
+import os
 from collections.abc import AsyncIterator, Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
@@ -22,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 from . import identity
 from .auth import Auth
 from .config import Config
-from .errors import ConfigError
+from .errors import ConfigError, StoreError
 from .notify import Notifier
 from .rig import Rig
 from .rigstate import RigEvent
@@ -54,6 +55,7 @@ def start_rig(
     control_port: serve the virtual device's control interface on this loopback port (0: any).
     virtual_speed: simulated seconds per wall second of a virtual device (1: real time).
     """
+    usable_data_dir(config)
     if control_port is not None and not config.device.is_virtual:
         raise ConfigError("--virtual-control needs a virtual device (device.url=virtual...)")
     if virtual_speed != 1.0 and not config.device.is_virtual:
@@ -77,6 +79,21 @@ def start_rig(
         rig.start()
         return RunningRig(config, store, rig, instrument, control, stack.pop_all())
     raise AssertionError("unreachable")  # mypy: an ExitStack may swallow exceptions
+
+
+def usable_data_dir(config: Config) -> None:
+    """Make store.data_dir if missing; StoreError naming the key when it cannot be made or
+    written (checked first, so no part starts only to fail on it)."""
+    folder = config.store.data_dir
+    hint = ("; set store.data_dir (or TAPRIG_DATA_DIR) to a folder you may write, "
+            "or run as the user the install made for it")  # fmt: skip
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
+        raise StoreError(f"store.data_dir = {folder}: cannot be made ({reason}){hint}") from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise StoreError(f"store.data_dir = {folder}: not writable by this user{hint}")
 
 
 def _open_instrument(

@@ -20,7 +20,7 @@ import tomllib
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Final
 
 from ..errors import ConfigError
 from ..records import ChannelSpec, Role
@@ -65,6 +65,7 @@ __all__ = [
     "StreamFormat",
     "TriggerSlope",
     "WindowsConfig",
+    "default_data_dir",
     "load_config",
     "si_per_volt",
 ]
@@ -238,6 +239,8 @@ def load_config(
             setting, value = _split_override(text)
             raw[setting.name] = _Raw(value, True, " (command-line override)", Path.cwd())
     values, where_of = _values(raw, problems)
+    if "store.data_dir" not in raw:
+        values["store"]["data_dir"] = default_data_dir(env)
     sections = {name: cls(**values[name]) for name, cls in _SECTION_TYPES.items()}
     device: DeviceConfig = sections["device"]
     capture: CaptureConfig = sections["capture"]
@@ -276,6 +279,23 @@ def _values(
                 )
                 where_of[s.name] = r.where
     return values, where_of
+
+
+SYSTEM_DATA_DIR: Final = Path("/var/lib/taprig")
+
+
+def default_data_dir(environ: Mapping[str, str], euid: int | None = None) -> Path:
+    """store.data_dir when nothing sets it: /var/lib/taprig for root (the systemd install's
+    unit names it too, as StateDirectory); for anyone else the XDG state folder,
+    $XDG_STATE_HOME/taprig (an absolute $XDG_STATE_HOME only, as the XDG Base Directory
+    Specification 0.8 says), else ~/.local/state/taprig. `euid`: default os.geteuid()."""
+    if (os.geteuid() if euid is None else euid) == 0:
+        return SYSTEM_DATA_DIR
+    state = environ.get("XDG_STATE_HOME", "")
+    if state and Path(state).is_absolute():
+        return Path(state) / "taprig"
+    home = environ.get("HOME") or str(Path.home())
+    return Path(home) / ".local" / "state" / "taprig"
 
 
 def _read_toml(path: Path) -> dict[str, Any]:

@@ -169,7 +169,9 @@ SETTINGS: tuple[Setting, ...] = (
     Setting(
         "store", "data_dir", Kind.PATH, Path("/var/lib/taprig"), "",
         "folder of the point-set store; a relative path is taken from the config file's "
-        f"folder; the environment variable {DATA_DIR_ENV} replaces the file's value",
+        f"folder; the environment variable {DATA_DIR_ENV} replaces the file's value; unset, "
+        "it is /var/lib/taprig for root and $XDG_STATE_HOME/taprig (~/.local/state/taprig) "
+        "for anyone else",
         allowed="a non-empty path",
     ),
     Setting(
