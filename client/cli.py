@@ -23,6 +23,7 @@ import typer
 
 from .archive.cli import app as archive_app
 from .errors import ClientError
+from .words import count
 
 if TYPE_CHECKING:
     from .dataset import TestData
@@ -179,7 +180,7 @@ def status(rig: RigArgument = None, as_json: JsonOption = False) -> None:
             f"link     CRC errors {link['crc_errors']}, samples lost {link['samples_lost']}, "
             f"resyncs {link['resyncs']}, reconnects {link['reconnects']}",
             f"test     {s['test'] or '-'}; point {s['point'] or '-'} "
-            f"({s['averages']}/{s['required']} averages), {len(s['done'])} points done, "
+            f"({s['averages']}/{s['required']} averages), {count(len(s['done']), 'point')} done, "
             + ("armed" if s["armed"] else "not armed"),
             f"changes  last seq {state['last_seq']}",
         ]
@@ -214,8 +215,8 @@ def tests(
              "point_sets_mirrored": here.get(t.name, 0)} for t in found]  # fmt: skip
 
     def lines() -> list[str]:
-        out = [f"{r['name']:<24} {r['roving_mode']:<7} {r['grid_points']:>4} points  "
-               f"{r['point_sets_on_rig']:>4} point sets on the rig, "
+        out = [f"{r['name']:<24} {r['roving_mode']:<7} {count(r['grid_points'], 'point'):>11}  "
+               f"{count(r['point_sets_on_rig'], 'point set'):>14} on the rig, "
                f"{r['point_sets_mirrored']:>4} mirrored" for r in rows]  # fmt: skip
         return out or ["no tests yet"]
 
@@ -251,9 +252,9 @@ def pull(
             path = mirror.path
     obj = _report_json(report, path)
     _emit(as_json, obj, lambda: [
-        f"{report.point_sets} new point sets ({report.bytes / 1e6:.1f} MB, "
-        f"{report.mb_per_s:.1f} MB/s), {report.tests} tests, {report.already_here} already "
-        f"here; mirror {path}"])  # fmt: skip
+        f"{count(report.point_sets, 'new point set')} ({report.bytes / 1e6:.1f} MB, "
+        f"{report.mb_per_s:.1f} MB/s), {count(report.tests, 'test')}, "
+        f"{report.already_here} already here; mirror {path}"])  # fmt: skip
 
 
 @contextlib.contextmanager

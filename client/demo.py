@@ -32,6 +32,7 @@ from .errors import ClientError
 from .mirror import Mirror
 from .pull import PullReport, pull
 from .remote import RigClient, RigError
+from .words import count
 
 if TYPE_CHECKING:
     from .check import CheckResult
@@ -219,7 +220,7 @@ def _fit(data: TestData, result: DemoResult, say: Say) -> None:
     result.modes = model.save(result.folder / "modes.npz")
     result.mode_table = [f"{model.n_modes} modes fitted (pLSCF + LSFD) beside the panel's "
                          "truth:", *truth_table(model, load_truth(result.truth))]  # fmt: skip
-    say(f"   {result.modes.name}: {model.n_modes} modes")
+    say(f"   {result.modes.name}: {count(model.n_modes, 'mode')}")
 
 
 def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -> None:
@@ -227,7 +228,7 @@ def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -
         from .plots import write_plots
 
         result.plots = write_plots(data, checked, result.folder / "plots")
-        say(f"   {len(result.plots)} plots in {result.folder / 'plots'}")
+        say(f"   {count(len(result.plots), 'plot')} in {result.folder / 'plots'}")
     except ClientError as exc:  # matplotlib missing: the rest of the demo stands
         say(f"   no plots: {exc}")
 
@@ -256,15 +257,16 @@ def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
                     result = operate(rig, hammer, truth, say)
                     result.stages = stages
                     _lap(stages, "operator", started)
-                    say(f"   {result.taps} taps, {len(result.rejected)} rejected, "
+                    say(f"   {count(result.taps, 'tap')}, {len(result.rejected)} rejected, "
                         f"point {result.redone} measured again")  # fmt: skip
                     say("-- 3. the workstation pulls the rig into its mirror")
                     mirror_path = out / "mirror" / "demo-rig.sqlite3"
                     with Mirror(mirror_path) as mirror:
                         result.pulled = pull(rig, mirror)
                         p = result.pulled
-                        say(f"   {p.point_sets} point sets, {p.bytes / 1e6:.1f} MB verified by "
-                            f"checksum in {p.seconds:.2f} s -> {mirror_path}")  # fmt: skip
+                        say(f"   {count(p.point_sets, 'point set')}, {p.bytes / 1e6:.1f} MB "
+                            f"verified by checksum in {p.seconds:.2f} s -> "
+                            f"{mirror_path}")  # fmt: skip
                         data = mirror.load(TEST_NAME)
                     _lap(stages, "pull and load", started)
             finally:

@@ -65,6 +65,7 @@ import numpy as np
 
 from .dataset import TestData, jsonable
 from .errors import ClientError
+from .words import extra_hint
 
 __all__ = ["FORMATS", "QUANTITIES", "UNITS", "export", "frf_arrays", "meta_json"]
 
@@ -243,7 +244,7 @@ def _write_hdf5(data: TestData, arrays: dict[str, Any], path: Path) -> None:
         import h5py
     except ImportError:
         raise ClientError(
-            "HDF5 export needs h5py: install the extra with  pip install 'taprig[hdf5]'"
+            f"HDF5 export needs h5py: install the extra with  {extra_hint('hdf5')}"
         ) from None
     text = h5py.string_dtype("utf-8")
     meta = json.loads(arrays["meta"])

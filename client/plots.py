@@ -27,6 +27,7 @@ import numpy as np
 from .check import CheckResult, ModePeak
 from .dataset import TestData
 from .errors import ClientError
+from .words import extra_hint
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
@@ -34,7 +35,7 @@ if TYPE_CHECKING:
 __all__ = ["frf_figure", "shape_figure", "write_plots"]
 
 _DPI = 100
-_NEED = "plots need matplotlib: install the extra with  pip install 'taprig[plots]'"
+_NEED = f"plots need matplotlib: install the extra with  {extra_hint('plots')}"
 
 
 def _figure(width_in: float, height_in: float, fixed: bool = False) -> Figure:

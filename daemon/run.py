@@ -19,6 +19,7 @@ from pathlib import Path
 from . import placement
 from .config import Config
 from .errors import DiskLowError, SessionError
+from .eventtext import event_text
 from .grid import import_grid_csv
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
@@ -88,7 +89,7 @@ def _shower(json_events: bool) -> Callable[[RigEvent], None]:
         if json_events:
             print(json.dumps({"kind": event.kind, **event.data}, default=str), flush=True)
         else:
-            log.info("%s %s", event.kind, event.data)
+            log.info("%s", event_text(event))
 
     return show
 

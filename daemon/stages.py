@@ -45,6 +45,7 @@ def check_settings(config: Config) -> CheckSettings:
         decay_warning_fraction=cap.decay_warning_fraction,
         exponential_window=config.windows.exponential_end is not None,
         sign=1.0 if cap.trigger_slope == "rising" else -1.0,
+        labels=tuple(c.label for c in chans),
     )
 
 

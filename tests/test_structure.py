@@ -60,6 +60,7 @@ DAEMON_RANKS: dict[str, int] = {
     "store": 7,
     "stages": 7,
     "rigstate": 7,
+    "eventtext": 8,
     "rig": 8,
     "running": 8,
     "auth": 9,

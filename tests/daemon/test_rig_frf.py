@@ -118,7 +118,7 @@ def test_h1_matches_the_analytic_accelerance(driving_point: PointSet) -> None:
     assert math.isfinite(tau)
     usable = usable_lines(ps, MODEL)
     assert ps.freq_hz[usable].max() > 1500.0  # the medium tip's band reaches past 1.5 kHz
-    for row, point in enumerate(ps.response_points):
+    for row, point in enumerate(MODEL.sensors.values()):  # the model's names for the places
         exact = accelerance(MODEL, DEMO_DRIVING_POINT, point, ps.freq_hz, 1.0 / tau)
         error = np.abs(np.abs(ps.h1[row]) / np.abs(exact) - 1.0)
         judged = usable & (ps.coherence[row] > 0.95)
