@@ -32,6 +32,7 @@ from taprig.firmware_protocol import (
     SampleBlock,
     StatusReceived,
 )
+from taprig.firmware_protocol.text import RATE_QUERY
 
 from . import placement, resume, stages
 from .capture.acquire import Acquirer
@@ -266,6 +267,8 @@ class Rig:
             if self._decoder.name == "binary":
                 self._link.send(self._enc.command(Command(Opcode.IDENTIFY, 1)))
                 self._link.send(self._enc.command(Command(Opcode.START, 2)))
+            elif self._decoder.info is None:  # its once-only rate line was lost on opening
+                self._link.send(RATE_QUERY)
         elif change.state is LinkState.STALLED:
             self._link.reconnect("no data: reopening the device")
 

@@ -27,7 +27,8 @@ def decoder(config: Config) -> Decoder:
     d = config.device
     if d.format == "text":
         return make_decoder("text", rate_hz=d.text_rate_hz or None,
-                            full_scale_v=d.text_full_scale_v)  # fmt: skip
+                            full_scale_v=d.text_full_scale_v,
+                            rate_key="device.text_rate_hz = <Hz> in the configuration")  # fmt: skip
     return make_decoder("binary")
 
 

@@ -26,7 +26,7 @@ from .. import frames as fr
 from ..binary import BinaryDecoder
 from ..encoder import FrameEncoder
 from ..events import BadCommand, CommandReceived
-from ..text import format_lines, rate_comment
+from ..text import RATE_QUERY, format_lines, rate_comment
 from .modal import ModalModel, demo_panel
 from .ports import Port, PtyPort, TcpPort
 from .synth import ResponseSynth, pulse_train
@@ -57,7 +57,8 @@ class InstrumentSettings:
     firmware: str = "sim-1"
     default_force_n: float = 30.0
     default_width_s: float = 0.0008  # a medium (plastic) tip
-    info_interval_s: float = 1.0
+    info_interval_s: float = 1.0  # s between INFO (binary) or rate lines (text); inf: once
+    answers_rate_query: bool = True  # text: a "?rate" line from the host repeats the rate line
     status_interval_s: float = 0.25
     device_buffer_bytes: int = 262_144  # what the device can hold while the host is not reading
     seed: int = 0
@@ -367,6 +368,8 @@ class VirtualInstrument:
             data = self.port.read()
             if data and self.settings.output == "binary":
                 self._handle_input(data)
+            elif data and RATE_QUERY.strip() in data and self.settings.answers_rate_query:
+                self._send_info(time.monotonic())  # a text board asked to repeat its rate
 
     def _handle_input(self, data: bytes) -> None:
         for event in self._decoder.feed(data):
