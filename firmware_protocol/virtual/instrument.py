@@ -444,7 +444,13 @@ class VirtualInstrument:
 
     def _stream(self, now: float) -> None:
         period = self.settings.frame_samples / self._rate_hz
-        behind = int((now - self._t_start) * self.settings.speed / period) - self._chunks
+        speed = self.settings.speed
+        behind = int((now - self._t_start) * speed / period) - self._chunks
+        if speed != 1.0 and behind * period / speed > MAX_LAG_S:
+            # A sped-up piece on a host too busy for it slows down rather than lose samples:
+            # its clock is simulated, so falling behind has no physical meaning.
+            self._t_start = now - self._chunks * period / speed
+            behind = 1
         if behind * period > MAX_LAG_S:  # starved past the FIFO: the converter overran, skip
             with self._lock:
                 skipped_from = self._synth.next_index
