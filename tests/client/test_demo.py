@@ -87,6 +87,11 @@ def test_demo_export_is_the_mirror_and_its_modes_are_the_truth(demo: tuple[Path,
         assert np.array_equal(npz["coord"], data.coords) and npz["exp_tau_s"] == data.exp_tau_s
         meta = json.loads(str(npz["meta"]))
     assert meta["rig"] == "demo-rig" and meta["test"] == "demo-panel"
+    # Where the sensors really sit travels with the data: acc1 on B3, acc2 off the grid.
+    assert meta["reference"] == "B3" and meta["sensors"]["acc1"]["point"] == "B3"
+    assert meta["sensors"]["acc2"]["point"] is None and meta["sensors_missing"] == []
+    assert meta["sensors"]["acc2"]["xyz"] == pytest.approx(truth.coords[truth.index("X1")])
+    assert "sigma_true = sigma_measured - 1/exp_tau_s" in meta["exponential_window"]
     # Rejected double hits reach the workstation with their reason.
     assert sum(r.get("double_hit", 0) for r in data.rejections) >= 1
     result = check(data)
