@@ -176,7 +176,8 @@ class WireTest:
     """A test: its grid in measuring order, roving mode, reference point, averages per point.
 
     grid: (label, x, y, z, direction) per point, coordinates in metres, direction one of
-    "+x" "-x" "+y" "-y" "+z" "-z". reference: a label of the grid. created_utc: ISO 8601 UTC.
+    "+x" "-x" "+y" "-y" "+z" "-z". reference: roving sensor, the struck grid label;
+    roving hammer, where the first sensor sits (a grid label, "x,y,z" in m, or "" unknown). created_utc: ISO 8601 UTC.
     seq: its number in the change feed. meta: plain JSON values.
     """
 
@@ -793,11 +794,14 @@ def _grid(rows: Any, where: str) -> list[GridRow]:
 def _test_fields(get: Callable[[str], Any]) -> dict[str, Any]:
     grid = _grid(get("grid"), "grid")
     reference = _str(get("reference"), "reference")
-    if reference not in {row[0] for row in grid}:
+    mode = _choice(get("roving_mode"), "roving_mode", ROVING_MODES)
+    # Roving hammer: where the first sensor sits, which may be off the grid ("x,y,z", m) or
+    # not yet known (""); roving sensor: the struck point, always a label of the grid.
+    if mode != "hammer" and reference not in {row[0] for row in grid}:
         _fail("reference", f"{reference!r} is not a label of the grid")
     return {
         "name": _str(get("name"), "name", nonempty=True),
-        "roving_mode": _choice(get("roving_mode"), "roving_mode", ROVING_MODES),
+        "roving_mode": mode,
         "reference": reference,
         "averages": _int(get("averages"), "averages", 1),
         "created_utc": _str(get("created_utc"), "created_utc"),
