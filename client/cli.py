@@ -209,7 +209,8 @@ def tests(
     on_rig: dict[str, int] = {}
     for p in points:
         on_rig[p.test] = on_rig.get(p.test, 0) + 1
-    rows = [{"name": t.name, "roving_mode": t.roving_mode, "reference": t.reference,
+    rows: list[dict[str, Any]] = [
+            {"name": t.name, "roving_mode": t.roving_mode, "reference": t.reference,
              "grid_points": len(t.grid), "averages": t.averages, "created_utc": t.created_utc,
              "point_sets_on_rig": on_rig.get(t.name, 0),
              "point_sets_mirrored": here.get(t.name, 0)} for t in found]  # fmt: skip

@@ -203,6 +203,32 @@ def instrument(
         vi.close()
 
 
+# `taprigd run`'s options about the test and the simulated piece, declared apart so that the
+# command reads as its list of parts.
+ReferenceOption = Annotated[
+    str | None,
+    typer.Option(help="hammer point (sensor mode); in hammer mode where the first response "
+                 "sensor sits, the same as --sensor-at for it"),
+]  # fmt: skip
+SensorAtOption = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--sensor-at",
+        help="hammer mode, a new test: where a response sensor sits, LABEL=WHERE[/DIR]: "
+        "a grid label or x,y,z in metres, then +x..-z or a vector (default +z); e.g. "
+        "acc1=B3/+z; once per sensor (the [[channels]] location is the default)",
+    ),
+]
+VirtualSpeedOption = Annotated[
+    float,
+    typer.Option(
+        min=0.1, max=16.0,
+        help="virtual device only: simulated seconds per wall second (above 1: faster "
+        "than real time, for demonstrations)",
+    ),
+]  # fmt: skip
+
+
 class Roving(StrEnum):
     hammer = "hammer"
     sensor = "sensor"
@@ -221,20 +247,8 @@ def run(
         ),
     ] = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
-    reference: Annotated[
-        str | None,
-        typer.Option(help="hammer point (sensor mode); in hammer mode where the first response "
-                     "sensor sits, the same as --sensor-at for it"),
-    ] = None,
-    sensor_at: Annotated[
-        list[str] | None,
-        typer.Option(
-            "--sensor-at",
-            help="hammer mode, a new test: where a response sensor sits, LABEL=WHERE[/DIR]: "
-            "a grid label or x,y,z in metres, then +x..-z or a vector (default +z); e.g. "
-            "acc1=B3/+z; once per sensor (the [[channels]] location is the default)",
-        ),
-    ] = None,
+    reference: ReferenceOption = None,
+    sensor_at: SensorAtOption = None,
     duration: Annotated[float, typer.Option(help="stop after this many seconds (0: run on)")] = 0.0,
     virtual_taps: Annotated[
         float, typer.Option(help="virtual device only: a simulated operator taps every N s")
@@ -254,14 +268,7 @@ def run(
             "loopback port (0: any free port; recorded in <data_dir>/run.json)",
         ),
     ] = None,
-    virtual_speed: Annotated[
-        float,
-        typer.Option(
-            min=0.1, max=16.0,
-            help="virtual device only: simulated seconds per wall second (above 1: faster "
-            "than real time, for demonstrations)",
-        ),
-    ] = 1.0,
+    virtual_speed: VirtualSpeedOption = 1.0,
     json_events: Annotated[
         bool, typer.Option("--json-events", help="print every rig event as a JSON line")
     ] = False,

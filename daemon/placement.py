@@ -18,7 +18,9 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
+from .grid import grid_warnings
 from .records import ChannelSpec, GridPoint
 
 AXES = {"+x": (1.0, 0.0, 0.0), "-x": (-1.0, 0.0, 0.0), "+y": (0.0, 1.0, 0.0),
@@ -172,6 +174,29 @@ def test_places(
         raise ValueError(f"reference {reference!r}: in a roving-hammer test the reference "
                          f"is where the first sensor sits; {first.label} sits at {ref}")
     return places, missing, ref
+
+
+def test_meta(
+    hammer: bool,
+    grid: Sequence[GridPoint],
+    reference: str | None,
+    channels: Sequence[ChannelSpec],
+    given: Mapping[str, str | tuple[str, str]],
+) -> tuple[str, dict[str, Any]]:
+    """A new test's reference and the metadata stored with it: its grid's warnings and, for a
+    roving hammer (`hammer`), its sensors' places (`test_places`) with the labels still
+    unknown. Roving sensor: the reference is the struck grid point (default the first).
+    ValueError names what is wrong."""
+    warnings = grid_warnings(list(grid))
+    if not hammer:
+        ref = reference if reference is not None else grid[0].label
+        if ref not in {p.label for p in grid}:
+            raise ValueError(f"reference {ref!r} is not a point of the grid")
+        return ref, {"sensor_points": {}, "grid_warnings": warnings}
+    places, missing, ref = test_places(channels, given, grid, reference)
+    return ref, {"sensor_points": {label: p.name for label, p in places.items()},
+                 "sensors": to_meta(places), "sensors_missing": missing,
+                 "grid_warnings": warnings}  # fmt: skip
 
 
 def missing_message(test: str, missing: Sequence[str]) -> str:

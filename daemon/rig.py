@@ -21,18 +21,15 @@ from concurrent.futures import Future
 from typing import Any, TypeVar
 
 from taprig.firmware_protocol import (
-    Command,
     DeviceInfo,
     DeviceInfoReceived,
     FrameEncoder,
     Gap,
     IndexReset,
-    Opcode,
     ProtocolViolation,
     SampleBlock,
     StatusReceived,
 )
-from taprig.firmware_protocol.text import RATE_QUERY
 
 from . import placement, resume, stages
 from .capture.acquire import Acquirer
@@ -43,7 +40,6 @@ from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
-from .grid import grid_warnings
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .room import Room
@@ -51,6 +47,7 @@ from .store import Store
 
 log = logging.getLogger(__name__)
 T = TypeVar("T")
+Places = Mapping[str, str | tuple[str, str]]  # label -> where, or (where, direction)
 
 DISK_CHECK_S = 1.0  # seconds between looks at the data folder's free space
 
@@ -140,43 +137,21 @@ class Rig:
         self._commands.put((fn, fut))
         return fut.result(timeout=timeout)
 
-    def create_test(
-        self,
-        name: str,
-        grid: list[GridPoint],
-        roving_mode: RovingMode = RovingMode.HAMMER,
-        reference: str | None = None,
-        averages: int | None = None,
-        sensor_points: Mapping[str, str | tuple[str, str]] | None = None,
-    ) -> list[str]:
-        """Store a new test; returns the response channels whose place is still unknown.
-
-        sensor_points: response label -> where its sensor sits (a grid label or "x,y,z" m),
-        or (where, direction); the configured [[channels]] locations fill the rest
-        (daemon/placement.py). Roving hammer: never guessed; roving sensor: the reference is
-        the hammer point (default the first grid point).
-        """
-        avg = averages if averages is not None else self.config.capture.averages
-        warnings = grid_warnings(grid)
-        for text in warnings:
-            log.warning("test %s: %s", name, text)
-        if roving_mode is RovingMode.SENSOR:
-            ref = reference if reference is not None else grid[0].label
-            if ref not in {p.label for p in grid}:
-                raise SessionError(f"reference {ref!r} is not a point of the grid")
-            meta: dict[str, Any] = {"sensor_points": {}, "grid_warnings": warnings}
-            self.store.save_test(name, grid, roving_mode, ref, avg, meta)
-            return []
+    def create_test(self, name: str, grid: list[GridPoint],
+                    roving_mode: RovingMode = RovingMode.HAMMER, reference: str | None = None,
+                    averages: int | None = None, sensor_points: Places | None = None) -> list[str]:
+        """Store a new test; returns the response channels whose place is still unknown
+        (`placement.test_meta`: sensor places, never guessed; the grid's warnings, logged)."""
         try:
-            places, missing, ref = placement.test_places(
-                self.config.response_channels, sensor_points or {}, grid, reference)
+            ref, meta = placement.test_meta(roving_mode is RovingMode.HAMMER, grid, reference,
+                                            self.config.response_channels, sensor_points or {})
         except ValueError as exc:
             raise SessionError(f"test {name!r}: {exc}") from None
-        meta = {"sensor_points": {label: p.name for label, p in places.items()},
-                "sensors": placement.to_meta(places), "sensors_missing": missing,
-                "grid_warnings": warnings}  # fmt: skip
+        for text in meta["grid_warnings"]:
+            log.warning("test %s: %s", name, text)
+        avg = averages if averages is not None else self.config.capture.averages
         self.store.save_test(name, grid, roving_mode, ref, avg, meta)
-        return missing
+        return list(meta.get("sensors_missing", []))
 
     def select_test(self, name: str) -> None:
         self.call(lambda: self._select(name))
@@ -264,11 +239,8 @@ class Rig:
         self._emit("device", {"state": change.state.value, "detail": change.detail})
         if change.state is LinkState.CONNECTED and change.detail.startswith("opened"):
             self._decoder.reset_link()
-            if self._decoder.name == "binary":
-                self._link.send(self._enc.command(Command(Opcode.IDENTIFY, 1)))
-                self._link.send(self._enc.command(Command(Opcode.START, 2)))
-            elif self._decoder.info is None:  # its once-only rate line was lost on opening
-                self._link.send(RATE_QUERY)
+            for data in stages.opening_bytes(self._decoder, self._enc):
+                self._link.send(data)
         elif change.state is LinkState.STALLED:
             self._link.reconnect("no data: reopening the device")
 

@@ -1,7 +1,8 @@
 """The capture stages built from the configuration and the device's own description.
 
 Pure construction, no state: the rig (daemon/rig.py) calls these when the device identifies
-itself (decoder, acquirer), at start (checks) and when a test is selected (session).
+itself (decoder, acquirer), at start (checks), when the link opens (what to ask the
+device) and when a test is selected (session).
 """
 
 from __future__ import annotations
@@ -9,7 +10,15 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import Any
 
-from taprig.firmware_protocol import Decoder, DeviceInfo, make_decoder
+from taprig.firmware_protocol import (
+    Command,
+    Decoder,
+    DeviceInfo,
+    FrameEncoder,
+    Opcode,
+    make_decoder,
+)
+from taprig.firmware_protocol.text import RATE_QUERY
 
 from . import __version__
 from .capture.acquire import Acquirer, TriggerSettings
@@ -30,6 +39,15 @@ def decoder(config: Config) -> Decoder:
                             full_scale_v=d.text_full_scale_v,
                             rate_key="device.text_rate_hz = <Hz> in the configuration")  # fmt: skip
     return make_decoder("binary")
+
+
+def opening_bytes(decoder: Decoder, enc: FrameEncoder) -> list[bytes]:
+    """What the host writes to a device it has just opened: a binary device is asked to
+    identify itself and start; a text device whose rate is unknown is asked to repeat it
+    (a board that printed it once, before the port was opened, lost that line on opening)."""
+    if decoder.name == "binary":
+        return [enc.command(Command(Opcode.IDENTIFY, 1)), enc.command(Command(Opcode.START, 2))]
+    return [RATE_QUERY] if decoder.info is None else []
 
 
 def check_settings(config: Config) -> CheckSettings:

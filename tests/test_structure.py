@@ -44,7 +44,7 @@ DISTRIBUTIONS = {"serial": "pyserial"}
 
 BASE = ["__init__", "errors", "records", "placement", "wirebody", "grid", "identity", "display",
         "notify", "txt", "redact", "room", "resume", "config.__init__", "config.setting",
-        "config.table", "config.channels"]  # fmt: skip
+        "config.table", "config.channels", "config.problems"]  # fmt: skip
 API = ["__init__", "__main__", "routes", "errors", "bodies", "validate", "openapi", "once", "feed",
        "service"]  # fmt: skip
 # The daemon's modules in the order data flows through them: a module may import only

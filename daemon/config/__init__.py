@@ -14,17 +14,17 @@ Sensitivities are converted once here into ChannelSpec.si_per_volt (N/V or (m/sÂ
 
 from __future__ import annotations
 
-import contextlib
 import os
 import tomllib
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Final
+from typing import Any
 
 from ..errors import ConfigError
 from ..records import ChannelSpec, Role
-from .channels import ConfigErrors, channels
+from .channels import channels
+from .problems import Problems
 from .setting import (
     DATA_DIR_ENV,
     STANDARD_GRAVITY,
@@ -36,6 +36,7 @@ from .setting import (
     TriggerSlope,
     _closest,
     _show,
+    default_data_dir,
 )
 from .table import (
     _BY_NAME,
@@ -281,23 +282,6 @@ def _values(
     return values, where_of
 
 
-SYSTEM_DATA_DIR: Final = Path("/var/lib/taprig")
-
-
-def default_data_dir(environ: Mapping[str, str], euid: int | None = None) -> Path:
-    """store.data_dir when nothing sets it: /var/lib/taprig for root (the systemd install's
-    unit names it too, as StateDirectory); for anyone else the XDG state folder,
-    $XDG_STATE_HOME/taprig (an absolute $XDG_STATE_HOME only, as the XDG Base Directory
-    Specification 0.8 says), else ~/.local/state/taprig. `euid`: default os.geteuid()."""
-    if (os.geteuid() if euid is None else euid) == 0:
-        return SYSTEM_DATA_DIR
-    state = environ.get("XDG_STATE_HOME", "")
-    if state and Path(state).is_absolute():
-        return Path(state) / "taprig"
-    home = environ.get("HOME") or str(Path.home())
-    return Path(home) / ".local" / "state" / "taprig"
-
-
 def _read_toml(path: Path) -> dict[str, Any]:
     try:
         with path.open("rb") as f:
@@ -425,31 +409,3 @@ def _check_together(
             f'device.format = "{device.format}": must be "text" with device.url = '
             f'"virtual:text", whose virtual instrument prints text{where["device.format"]}'
         )
-
-
-class Problems:
-    """The mistakes found while reading a configuration, reported together at the end."""
-
-    def __init__(self) -> None:
-        self.found: list[str] = []
-
-    def add(self, message: str) -> None:
-        self.found.append(message)
-
-    @contextlib.contextmanager
-    def collect(self) -> Iterator[None]:
-        """Run the block; a ConfigError it raises is kept, and reading goes on."""
-        try:
-            yield
-        except ConfigErrors as exc:
-            self.found.extend(exc.messages)
-        except ConfigError as exc:
-            self.found.append(str(exc))
-
-    def raise_any(self) -> None:
-        """ConfigError with every mistake found (one line each), if there were any."""
-        if len(self.found) == 1:
-            raise ConfigError(self.found[0])
-        if self.found:
-            listed = "\n".join(f"  {i}. {m}" for i, m in enumerate(self.found, 1))
-            raise ConfigError(f"{len(self.found)} mistakes in the configuration:\n{listed}")
