@@ -28,7 +28,10 @@ log = logging.getLogger(__name__)
 
 BATCH_BYTES: Final = 16 << 20  # a batch commits after this many body bytes
 BATCH_S: Final = 1.0  # ... or after this long, seconds
-WATCH_WAIT_S: Final = 25.0  # long-poll of the change feed while watching, seconds
+# Long-poll of the change feed while watching, seconds. Kept short: a SIGTERM that the kernel
+# hands to one of numpy's BLAS threads is only acted on when the main thread's socket read
+# returns, so the wait bounds how long `taprig watch` takes to stop.
+WATCH_WAIT_S: Final = 5.0
 RECONNECT_S: Final = (0.5, 1.0, 2.0, 5.0)  # waits between attempts to reach a lost rig
 
 Progress = Callable[[int, int], None]

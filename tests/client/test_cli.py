@@ -93,7 +93,8 @@ def test_errors_are_one_line_with_an_exit_code(served: ServedRig, places: Places
 def test_watch_pulls_each_point_set_as_it_lands(served: ServedRig, places: Places) -> None:
     commit_synthetic(served.running, "plate-a", 2)
     as_json(taprig(places, "pair", f"{served.url}/pair#token={served.token}", "--json"))
-    env = {**os.environ, "TAPRIG_HOME": str(places.config.parent)}
+    # PYTHONFAULTHANDLER: a watch that does not stop is made to print where it hangs (SIGABRT).
+    env = {**os.environ, "TAPRIG_HOME": str(places.config.parent), "PYTHONFAULTHANDLER": "1"}
     proc = subprocess.Popen([sys.executable, "-m", "taprig.client", "watch", "--json"], env=env,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE)  # fmt: skip
     assert proc.stdout is not None
@@ -118,7 +119,12 @@ def test_watch_pulls_each_point_set_as_it_lands(served: ServedRig, places: Place
         read_until(5)
     finally:
         proc.send_signal(signal.SIGTERM)
-        _, err = proc.communicate(timeout=20)
+        try:
+            _, err = proc.communicate(timeout=20)
+        except subprocess.TimeoutExpired:
+            proc.send_signal(signal.SIGABRT)
+            _, err = proc.communicate(timeout=20)
+            pytest.fail(f"watch did not stop on SIGTERM within 20 s; it was at:\n{err.decode()}")
     assert proc.returncode == 0, err.decode()
     assert [(r["test"], r["point"]) for r in seen] == [
         ("plate-a", "P0"), ("plate-a", "P1"), ("plate-b", "P0"), ("plate-b", "P1"),
