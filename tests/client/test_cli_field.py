@@ -32,6 +32,10 @@ def test_a_partial_test_is_called_partial(served: ServedRig, places: Places, tmp
     report = taprig(places, "check", "half")
     assert report.returncode == 0, report.stderr
     assert "points (2 of 5 points)" in report.stdout
+    # one coherence column per response, headed by its label, and what the figure is
+    header = next(ln for ln in report.stdout.splitlines() if ln.strip().startswith("point "))
+    assert "coh acc0" in header and "coh acc1" in header
+    assert "coherence = its mean over the analysis band" in report.stdout
     assert "not measured yet (3): P2 P3 P4" in report.stdout
     again = next(ln for ln in report.stdout.splitlines() if "tap again:" in ln)
     assert again.split("tap again:")[1].split()[-3:] == ["P2", "P3", "P4"]
