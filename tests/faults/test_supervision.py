@@ -182,7 +182,7 @@ def test_status_running_then_killed(tmp_path: Path) -> None:
         out = status(data)
         assert out.returncode == 1
         assert f"not running (stale run file of pid {daemon.pid})" in out.stdout
-        assert "1 point sets" in out.stdout  # the store is still read
+        assert "1 point set," in out.stdout  # the store is still read
     finally:
         if daemon.proc is not None and daemon.proc.poll() is None:
             daemon.stop()
