@@ -42,6 +42,9 @@ app.add_typer(archive_app, name="archive")
 
 # Options several commands share, declared once.
 JsonOption = Annotated[bool, typer.Option("--json", help="print one JSON document")]
+RawHitsOption = Annotated[bool, typer.Option(
+    "--raw-hits", help="also fetch every hit's raw record (several times the bytes; without "
+    "it, hits come with their times, forces and findings only)")]  # fmt: skip
 RigArgument = Annotated[
     str | None, typer.Argument(help="a paired rig's name or id (default: the only one)")
 ]
@@ -238,6 +241,7 @@ def _report_json(report: PullReport, mirror: Path) -> dict[str, Any]:
 def pull(
     rig: RigArgument = None,
     test: Annotated[str | None, typer.Option(help="only this test's point sets")] = None,
+    raw_hits: RawHitsOption = False,
     as_json: JsonOption = False,
 ) -> None:
     """Bring the local mirror up to date: new tests and point sets, verified by checksum.
@@ -249,7 +253,7 @@ def pull(
     with _guard():
         paired = _paired(rig)
         with _client(paired) as client, _mirror(paired) as mirror, _progress(as_json) as bar:
-            report = do_pull(client, mirror, test, progress=bar)
+            report = do_pull(client, mirror, test, progress=bar, with_hits=raw_hits)
             path = mirror.path
     obj = _report_json(report, path)
     _emit(as_json, obj, lambda: [
@@ -288,7 +292,9 @@ def _progress(
 
 
 @app.command()
-def watch(rig: RigArgument = None, as_json: JsonOption = False) -> None:
+def watch(
+    rig: RigArgument = None, raw_hits: RawHitsOption = False, as_json: JsonOption = False
+) -> None:
     """Follow the rig: pull each point set as it completes, until interrupted."""
     from .pull import watch as follow
 
@@ -310,7 +316,7 @@ def watch(rig: RigArgument = None, as_json: JsonOption = False) -> None:
             if not as_json:
                 typer.echo(f"following {paired.name} at {paired.url}; Ctrl-C to stop")
             with contextlib.suppress(KeyboardInterrupt):
-                follow(client, mirror, on_pull, lambda: False)
+                follow(client, mirror, on_pull, lambda: False, with_hits=raw_hits)
 
 
 def _interrupt(signum: int, frame: object) -> None:

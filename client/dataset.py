@@ -2,7 +2,7 @@
 
 `TestData` is the client's plain record of a test: one row per grid point that has a
 completed point set (the latest version of each point), stacked into numpy arrays of one
-shape, with the metadata a fitter needs. It is built from `taprig.schema.wire` records by
+shape, with the metadata a fitter needs. It is built from `taprig.schema.records` records by
 `assemble` and knows nothing of HTTP or SQLite.
 """
 
@@ -17,14 +17,16 @@ from typing import Any
 import numpy as np
 
 from taprig.schema import WARNING_CODES
-from taprig.schema.wire import WirePointSet, WireTest
+from taprig.schema.records import WirePointSet, WireTest
 
 
 @dataclass(frozen=True, slots=True, eq=False)
 class TestData:
     """A test's completed point sets, one row per measured grid point, in grid order.
 
-    Shapes: P points (rows), R responses (sensor channels), F frequency lines.
+    Shapes: P points (rows), R responses (sensor channels), F frequency lines. The spectra
+    travel and are stored as float32 / complex64 (wire schema 2, about 7 significant
+    digits); they are widened here, once, so that fitting works in float64.
 
     ===============  ============  =========  ==========================================
     field            shape         dtype      unit / meaning

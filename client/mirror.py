@@ -29,7 +29,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Final
 
-from taprig.schema import wire
+from taprig.schema import codec, objects, records
 
 from .dataset import TestData, assemble
 from .errors import MirrorError
@@ -58,11 +58,13 @@ CREATE INDEX IF NOT EXISTS point_sets_by_test ON point_sets (test, point, versio
 
 @dataclass(frozen=True, slots=True)
 class MirroredPointSet:
-    """A point set as received: its summary fields, the rig's checksum and the body bytes."""
+    """A point set as received: its summary fields, the rig's checksum, the body bytes and
+    the wire schema version the body is written in (older rigs' bodies stay as served)."""
 
-    summary: wire.WirePointSetSummary
+    summary: records.WirePointSetSummary
     digest: str
     body: bytes
+    schema: int = records.SCHEMA_VERSION
 
 
 class Mirror:
@@ -155,8 +157,8 @@ class Mirror:
     def set_cursor(self, seq: int, name: str = "") -> None:
         self._db.execute("INSERT OR REPLACE INTO cursor VALUES (?, ?)", (name, seq))
 
-    def put_test(self, test: wire.WireTest) -> None:
-        body = json.dumps(wire.test_to_obj(test), separators=(",", ":"))
+    def put_test(self, test: records.WireTest) -> None:
+        body = json.dumps(objects.test_to_obj(test), separators=(",", ":"))
         self._db.execute(
             "INSERT OR REPLACE INTO tests VALUES (?, ?, ?)", (test.name, test.seq, body)
         )
@@ -189,24 +191,24 @@ class Mirror:
         sql = "SELECT 1 FROM point_sets WHERE id = ?"
         return self._db.execute(sql, (point_set_id,)).fetchone() is not None
 
-    def tests(self) -> list[wire.WireTest]:
+    def tests(self) -> list[records.WireTest]:
         rows = self._db.execute("SELECT body FROM tests ORDER BY seq")
-        return [wire.test_from_obj(json.loads(r[0])) for r in rows]
+        return [objects.test_from_obj(json.loads(r[0])) for r in rows]
 
-    def test(self, name: str) -> wire.WireTest:
+    def test(self, name: str) -> records.WireTest:
         row = self._db.execute("SELECT body FROM tests WHERE name = ?", (name,)).fetchone()
         if row is None:
             known = ", ".join(t.name for t in self.tests()) or "none yet"
             raise MirrorError(f"the mirror has no test {name!r} (it has: {known}); pull first")
-        return wire.test_from_obj(json.loads(row[0]))
+        return objects.test_from_obj(json.loads(row[0]))
 
-    def summaries(self, test: str | None = None) -> list[wire.WirePointSetSummary]:
+    def summaries(self, test: str | None = None) -> list[records.WirePointSetSummary]:
         sql = "SELECT id, test, point, version, seq, completed_utc, n_averages FROM point_sets"
         rows = self._db.execute(
             sql + (" WHERE test = ? ORDER BY seq" if test else " ORDER BY seq"),
             (test,) if test else (),
         )
-        return [wire.WirePointSetSummary(*r) for r in rows]
+        return [records.WirePointSetSummary(*r) for r in rows]
 
     def body(self, point_set_id: int) -> tuple[str, bytes]:
         """(Content-Digest, msgpack body) of a mirrored point set, exactly as received."""
@@ -216,11 +218,11 @@ class Mirror:
             raise MirrorError(f"the mirror has no point set {point_set_id}")
         return str(row[0]), bytes(row[1])
 
-    def point_set(self, point_set_id: int) -> wire.WirePointSet:
+    def point_set(self, point_set_id: int) -> records.WirePointSet:
         _digest, body = self.body(point_set_id)
-        return wire.point_set_from_obj(wire.unpack(body, max_bytes=MAX_BODY))
+        return objects.point_set_from_obj(codec.unpack(body, max_bytes=MAX_BODY))
 
-    def point_sets(self, test: str) -> list[wire.WirePointSet]:
+    def point_sets(self, test: str) -> list[records.WirePointSet]:
         return [self.point_set(s.id) for s in self.summaries(test)]
 
     def load(self, test: str) -> TestData:

@@ -18,7 +18,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Final
 
-from taprig.schema import wire
+from taprig.schema import codec, objects, records
 
 from .errors import ClientError
 from .mirror import MAX_BODY, Mirror, MirroredPointSet
@@ -48,16 +48,16 @@ class PullReport:
     bytes: int = 0
     seconds: float = 0.0
     cursor: int = 0
-    new: list[wire.WirePointSetSummary] = field(default_factory=list)
+    new: list[records.WirePointSetSummary] = field(default_factory=list)
 
     @property
     def mb_per_s(self) -> float:
         return self.bytes / 1e6 / self.seconds if self.seconds > 0 else 0.0
 
 
-def feed(client: RigClient, since: int) -> list[wire.WireChange]:
+def feed(client: RigClient, since: int) -> list[records.WireChange]:
     """Every change after `since`, in order (all pages)."""
-    out: list[wire.WireChange] = []
+    out: list[records.WireChange] = []
     while True:
         changes, last, more = client.changes(since)
         out.extend(changes)
@@ -71,8 +71,14 @@ def pull(
     mirror: Mirror,
     test: str | None = None,
     progress: Progress | None = None,
+    with_hits: bool = False,
 ) -> PullReport:
-    """Bring `mirror` up to date with the rig (only `test`'s point sets when given)."""
+    """Bring `mirror` up to date with the rig (only `test`'s point sets when given).
+
+    with_hits: fetch new point sets with every hit's raw record (several times the bytes);
+    without, as the rig stored them at commit, hits listed without records. A point set
+    already mirrored is not fetched again either way.
+    """
     started = time.perf_counter()
     info = client.info()
     mirror.bind(info.rig_id, info.name, client.url)
@@ -86,11 +92,11 @@ def pull(
     if progress is not None:
         progress(0, len(wanted))
     tests = {t.name: t for t in client.tests()}
-    batch: list[tuple[wire.WireChange, MirroredPointSet | wire.WireTest | None]] = []
+    batch: list[tuple[records.WireChange, MirroredPointSet | records.WireTest | None]] = []
     batch_bytes, batch_start = 0, time.perf_counter()
-    with Prefetch(client, wanted) as bodies:
+    with Prefetch(client, wanted, with_hits) as bodies:
         for change in changes:
-            item: MirroredPointSet | wire.WireTest | None = None
+            item: MirroredPointSet | records.WireTest | None = None
             if change.kind == "test":
                 item = tests.get(change.test) or client.test(change.test)
             elif change.point_set_id is not None:
@@ -122,8 +128,8 @@ class Prefetch:
 
     AHEAD: Final = 4  # bodies held ready, at most
 
-    def __init__(self, client: RigClient, ids: list[int]) -> None:
-        self._ids, self._wanted = ids, set(ids)
+    def __init__(self, client: RigClient, ids: list[int], with_hits: bool = False) -> None:
+        self._ids, self._wanted, self._with_hits = ids, set(ids), with_hits
         self._client = client.clone()
         self._queue: queue.Queue[MirroredPointSet | BaseException] = queue.Queue(self.AHEAD)
         self._stop = threading.Event()
@@ -157,7 +163,7 @@ class Prefetch:
     def _run(self) -> None:
         for pid in self._ids:
             try:
-                item: MirroredPointSet | BaseException = _fetch(self._client, pid)
+                item: MirroredPointSet | BaseException = _fetch(self._client, pid, self._with_hits)
             except Exception as exc:  # handed to the caller, raised in take()
                 item = exc
             while not self._stop.is_set():
@@ -170,25 +176,26 @@ class Prefetch:
                 return
 
 
-def _fetch(client: RigClient, point_set_id: int) -> MirroredPointSet:
-    body = client.point_set_body(point_set_id)
+def _fetch(client: RigClient, point_set_id: int, with_hits: bool) -> MirroredPointSet:
+    body = client.point_set_body(point_set_id, with_hits)
     # Decoded once, strictly: a body that passes the checksum but not the schema is refused
     # here, before it reaches the mirror.
     try:
-        ps = wire.point_set_from_obj(wire.unpack(body.data, max_bytes=MAX_BODY))
-    except wire.SchemaError as exc:
+        obj = codec.unpack(body.data, max_bytes=MAX_BODY)
+        ps = objects.point_set_from_obj(obj)
+    except records.SchemaError as exc:
         raise ClientError(f"point set {point_set_id} from the rig is not readable: {exc}") from None
-    summary = wire.WirePointSetSummary(
+    summary = records.WirePointSetSummary(
         ps.id, ps.test, ps.point, ps.version, ps.seq, ps.completed_utc, ps.n_averages
     )
     if ps.id != point_set_id:
         raise ClientError(f"asked for point set {point_set_id}, the rig sent {ps.id}")
-    return MirroredPointSet(summary, body.digest, body.data)
+    return MirroredPointSet(summary, body.digest, body.data, int(obj["schema"]))
 
 
 def _store(
     mirror: Mirror,
-    batch: list[tuple[wire.WireChange, MirroredPointSet | wire.WireTest | None]],
+    batch: list[tuple[records.WireChange, MirroredPointSet | records.WireTest | None]],
     report: PullReport,
     advance: bool,
 ) -> None:
@@ -196,7 +203,7 @@ def _store(
         return
     with mirror.transaction():
         for change, item in batch:
-            if isinstance(item, wire.WireTest):
+            if isinstance(item, records.WireTest):
                 mirror.put_test(item)
                 report.tests += 1
             elif isinstance(item, MirroredPointSet):
@@ -217,16 +224,17 @@ def watch(
     on_pull: Callable[[PullReport], None],
     stop: Callable[[], bool],
     wait_s: float = WATCH_WAIT_S,
+    with_hits: bool = False,
 ) -> None:
     """Pull, then wait on the change feed and pull each change as it lands, until `stop()`.
 
     A rig that stops answering is tried again after 0.5, 1, 2, then every 5 s; the mirror
-    keeps what it has meanwhile.
+    keeps what it has meanwhile. with_hits: as for `pull`.
     """
     failures = 0
     while not stop():
         try:
-            report = pull(client, mirror)
+            report = pull(client, mirror, with_hits=with_hits)
             on_pull(report)
             failures = 0
             if stop():

@@ -20,7 +20,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, Final
 
-from taprig.schema import API_VERSION, wire
+from taprig.schema import API_VERSION, objects, records
+from taprig.schema.http import JSON, MSGPACK, digest_matches
 
 from .errors import ClientError
 
@@ -129,7 +130,7 @@ class RigClient:
         *,
         query: Mapping[str, Any] | None = None,
         body: Any = None,
-        accept: str = wire.JSON,
+        accept: str = JSON,
         wait_s: float = 0.0,
         max_bytes: int = 64 << 20,
     ) -> tuple[int, http.client.HTTPMessage, bytes]:
@@ -145,7 +146,7 @@ class RigClient:
         payload = None
         if body is not None:
             payload = json.dumps(body, separators=(",", ":")).encode()
-            headers["Content-Type"] = wire.JSON
+            headers["Content-Type"] = JSON
         last: Exception | None = None
         for attempt in range(RETRIES):
             conn = self._connection(self.timeout_s + wait_s)
@@ -193,11 +194,11 @@ class RigClient:
                            int(obj["schema_version"]), str(obj["daemon_version"]))  # fmt: skip
         except (KeyError, TypeError, ValueError):
             raise TransferError(f"{self.url}/v1/info is not a rig's answer: {obj!r:.200}") from None
-        if info.api_version != API_VERSION or info.schema_version != wire.SCHEMA_VERSION:
+        if info.api_version != API_VERSION or info.schema_version != records.SCHEMA_VERSION:
             raise RigError(
                 400, "version",
                 f"the rig speaks API {info.api_version}, schema {info.schema_version}; this "
-                f"client speaks API {API_VERSION}, schema {wire.SCHEMA_VERSION}",
+                f"client speaks API {API_VERSION}, schema {records.SCHEMA_VERSION}",
             )  # fmt: skip
         return info
 
@@ -205,43 +206,47 @@ class RigClient:
         obj: dict[str, Any] = self._json("GET", "/v1/state")
         return obj
 
-    def tests(self) -> list[wire.WireTest]:
+    def tests(self) -> list[records.WireTest]:
         obj = self._json("GET", "/v1/tests")
-        return [wire.test_from_obj(t) for t in obj["tests"]]
+        return [objects.test_from_obj(t) for t in obj["tests"]]
 
-    def test(self, name: str) -> wire.WireTest:
-        return wire.test_from_obj(self._json("GET", f"/v1/tests/{urllib.parse.quote(name)}"))
+    def test(self, name: str) -> records.WireTest:
+        return objects.test_from_obj(self._json("GET", f"/v1/tests/{urllib.parse.quote(name)}"))
 
-    def points(self, test: str | None = None, since: int = 0) -> list[wire.WirePointSetSummary]:
+    def points(self, test: str | None = None, since: int = 0) -> list[records.WirePointSetSummary]:
         query: dict[str, Any] = {"since": since}
         if test is not None:
             query["test"] = test
         obj = self._json("GET", "/v1/points", query=query)
-        return [wire.point_set_summary_from_json(p) for p in obj["points"]]
+        return [objects.point_set_summary_from_json(p) for p in obj["points"]]
 
-    def changes(self, since: int, wait_s: float = 0.0) -> tuple[list[wire.WireChange], int, bool]:
+    def changes(
+        self, since: int, wait_s: float = 0.0
+    ) -> tuple[list[records.WireChange], int, bool]:
         """(changes after `since`, last seq, more waiting) — the rig holds the answer up to
         wait_s seconds when there is nothing new."""
         query: dict[str, Any] = {"since": since}
         if wait_s > 0:
             query["wait"] = f"{wait_s:.3f}"
         obj = self._json("GET", "/v1/changes", query=query, wait_s=wait_s)
-        changes = [wire.change_from_obj(c) for c in obj["changes"]]
+        changes = [objects.change_from_obj(c) for c in obj["changes"]]
         return changes, int(obj["last_seq"]), bool(obj["more"])
 
-    def point_set_body(self, point_set_id: int) -> Body:
-        """The msgpack body of a point set (without raw hits), verified by its Content-Digest.
+    def point_set_body(self, point_set_id: int, with_hits: bool = False) -> Body:
+        """The msgpack body of a point set, verified by its Content-Digest.
 
-        Raises TransferError when the checksum does not match or is missing.
+        with_hits: with every hit's raw record (``?hits=1``); without, the hits are listed
+        without records, the body the rig stored at commit. Raises TransferError when the
+        checksum does not match or is missing.
         """
+        path = f"/v1/points/{point_set_id}" + ("?hits=1" if with_hits else "")
         status, headers, data = self.request(
-            "GET", f"/v1/points/{point_set_id}", accept=wire.MSGPACK,
-            max_bytes=MAX_POINT_SET_BYTES,
-        )  # fmt: skip
+            "GET", path, accept=MSGPACK, max_bytes=MAX_POINT_SET_BYTES
+        )
         if status >= 400:
             self._raise(status, data)
         digest = headers.get("Content-Digest")
-        if not wire.digest_matches(digest, data):
+        if not digest_matches(digest, data):
             raise TransferError(
                 f"point set {point_set_id}: {len(data)} bytes do not match the rig's checksum "
                 f"({digest or 'none sent'})"
@@ -263,9 +268,9 @@ class RigClient:
         obj: dict[str, Any] = self._json("POST", f"/v1/session/{action}", body=body)
         return obj
 
-    def create_test(self, name: str, grid: list[dict[str, Any]], **fields: Any) -> wire.WireTest:
+    def create_test(self, name: str, grid: list[dict[str, Any]], **fields: Any) -> records.WireTest:
         body = {"request_id": new_request_id(), "name": name, "grid": grid, **fields}
-        return wire.test_from_obj(self._json("POST", "/v1/tests", body=body))
+        return objects.test_from_obj(self._json("POST", "/v1/tests", body=body))
 
     def last_hit(self) -> dict[str, Any]:
         obj: dict[str, Any] = self._json("GET", "/v1/hits/last")

@@ -1,15 +1,17 @@
 """Plain data passed between the daemon's stages (acquire → hits → spectra → session → store).
 
-Frozen dataclasses and numpy arrays with their units and shapes written once here.
+Frozen dataclasses and numpy arrays with their units and shapes written once here; the point
+set and its hits are declared in `schema.pointset`, which the wire's records extend as well.
 """
 
 from __future__ import annotations
 
 import enum
-from dataclasses import dataclass, field
-from typing import Any
+from dataclasses import dataclass
 
 import numpy as np
+
+from taprig.schema.pointset import HitFields, PointSetFields
 
 
 class Role(enum.StrEnum):
@@ -101,45 +103,14 @@ class GridPoint:
     direction: str = "+z"
 
 
-@dataclass(frozen=True, slots=True)
-class StoredHit:
-    """A hit kept with its point set: its record (float32 SI) and what the checks said."""
-
-    trigger_index: int
-    utc: str
-    accepted: bool
-    peak_force_n: float
-    pulse_width_s: float
-    findings: tuple[Finding, ...]
-    data: np.ndarray | None  # (channels, block) float32, None when fetched without raw hits
+@dataclass(frozen=True, slots=True, eq=False)
+class StoredHit(HitFields[Finding]):
+    """A hit kept with its point set (fields, units and shapes: `schema.pointset.HitFields`);
+    its findings as the checks gave them."""
 
 
-@dataclass(frozen=True)
-class PointSet:
-    """Everything measured at one grid point of one test, once completed.
-
-    freq_hz: (n_freq,). h1, h2, gfx: complex (n_resp, n_freq), (m/s²)/N and (m/s²)·N/Hz;
-    coherence, gxx: real (n_resp, n_freq); gff: real (n_freq,) N²/Hz. Response order is
-    `response_labels`. In roving-hammer mode drive_point is the point and response_points
-    are the fixed sensors; in roving-sensor mode drive_point is the reference.
-    """
-
-    test: str
-    point: str
-    version: int
-    roving_mode: RovingMode
-    drive_point: str
-    response_labels: tuple[str, ...]
-    response_points: tuple[str, ...]
-    n_averages: int
-    freq_hz: np.ndarray
-    h1: np.ndarray
-    h2: np.ndarray
-    coherence: np.ndarray
-    gff: np.ndarray
-    gxx: np.ndarray
-    gfx: np.ndarray
-    hits: tuple[StoredHit, ...]
-    meta: dict[str, Any] = field(default_factory=dict)
-    completed_utc: str = ""
-    seq: int = 0  # change sequence number given by the store on commit
+@dataclass(frozen=True, slots=True, eq=False, kw_only=True)
+class PointSet(PointSetFields[StoredHit]):
+    """Everything measured at one grid point of one test, once completed (fields, units and
+    shapes: `schema.pointset.PointSetFields`). roving_mode is a `RovingMode`; version, seq and
+    completed_utc are given by the store on commit."""

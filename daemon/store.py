@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
-import datetime as dt
 import json
 import math
 import queue
@@ -34,6 +33,18 @@ from pathlib import Path
 from typing import Any, ClassVar, TypeVar
 
 import numpy as np
+
+from taprig.schema.pointset import (
+    ARRAY_DTYPES,
+    ARRAYS,
+    HIT_DATA,
+    HIT_SCALARS,
+    SCALARS,
+    check_shapes,
+    in_dtype,
+    utc_now,
+)
+from taprig.schema.records import WirePointSetSummary
 
 from .errors import AlreadyExists, DiskFullError, NotFound, StoreError
 from .records import Finding, GridPoint, PointSet, RovingMode, StoredHit
@@ -148,19 +159,6 @@ class TestPlan:
 
 
 @dataclass(frozen=True, slots=True)
-class PointSetSummary:
-    """One stored point set without its arrays."""
-
-    id: int
-    test: str
-    point: str
-    version: int
-    seq: int
-    completed_utc: str
-    n_averages: int
-
-
-@dataclass(frozen=True, slots=True)
 class Change:
     """One entry of the change feed: a new test (point_set_id None) or a new point set."""
 
@@ -184,13 +182,8 @@ class StoreStats:
     schema_version: int
 
 
-def utc_now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
-
-
 # ---------------------------------------------------------------- arrays as BLOBs
 
-_F4, _F8, _C16 = np.dtype("<f4"), np.dtype("<f8"), np.dtype("<c16")
 _HEAD = struct.Struct("<4sB")
 
 
@@ -216,25 +209,17 @@ def decode_array(blob: bytes) -> np.ndarray:
     except (struct.error, TypeError, ValueError) as exc:
         raise StoreError(f"corrupt array BLOB header ({len(blob)} bytes): {exc}") from exc
     offset = _HEAD.size + 8 * ndim
-    if dtype not in (_F4, _F8, _C16) or len(blob) - offset != dtype.itemsize * math.prod(shape):
+    if dtype.str not in ARRAY_DTYPES or len(blob) - offset != dtype.itemsize * math.prod(shape):
         raise StoreError(f"corrupt array BLOB ({dtype}, shape {shape}, {len(blob)} bytes)")
     return np.frombuffer(blob, dtype, offset=offset).reshape(shape)
 
 
 def _check_shapes(ps: PointSet) -> None:
-    n_resp, n_freq = len(ps.response_labels), int(np.shape(ps.freq_hz)[0])
-    if len(ps.response_points) != n_resp:
-        raise StoreError(
-            f"point set {ps.point}: {n_resp} response labels, "
-            f"{len(ps.response_points)} response points"
-        )
-    for name in ("h1", "h2", "coherence", "gxx", "gfx", "gff"):
-        want = (n_freq,) if name == "gff" else (n_resp, n_freq)
-        if np.shape(getattr(ps, name)) != want:
-            raise StoreError(
-                f"point set {ps.point}: {name} has shape "
-                f"{np.shape(getattr(ps, name))}, expected {want}"
-            )
+    """StoreError when the arrays of `ps` do not agree (`schema.pointset.check_shapes`)."""
+    shapes = {a.name: np.shape(getattr(ps, a.name)) for a in ARRAYS}
+    problem = check_shapes(len(ps.response_labels), len(ps.response_points), shapes)
+    if problem is not None:
+        raise StoreError(f"point set {ps.point!r}: {problem[0]}: {problem[1]}")
 
 
 # ---------------------------------------------------------------- the store
@@ -294,7 +279,7 @@ class Store:
         self.timeout_s = timeout_s
         self._body_encoder = body_encoder
         self._conn = self._open_writer()
-        self._jobs: queue.SimpleQueue[tuple[Job, Future[Any]] | None] = queue.SimpleQueue()
+        self._jobs: queue.SimpleQueue[tuple[Job, Future[Any], bool] | None] = queue.SimpleQueue()
         self._lock = threading.Lock()
         self._local = threading.local()
         self._readers: list[sqlite3.Connection] = []
@@ -365,12 +350,15 @@ class Store:
 
     def _run(self) -> None:
         while (item := self._jobs.get()) is not None:
-            job, future = item
+            job, future, own = item
             if not future.set_running_or_notify_cancel():
                 continue
             try:
-                with self._transaction(self._conn):
+                if own:  # the job opens its own transaction (work to do before it)
                     result = job(self._conn)
+                else:
+                    with self._transaction(self._conn):
+                        result = job(self._conn)
             except Exception as exc:
                 future.set_exception(self._as_store_error(exc))
             else:
@@ -392,13 +380,19 @@ class Store:
         new.__cause__ = exc
         return new
 
-    def submit(self, job: Callable[[sqlite3.Connection], T]) -> Future[T]:
-        """Queue `job(write_connection)` to run in its own transaction on the writer thread."""
+    def submit(
+        self, job: Callable[[sqlite3.Connection], T], own_transaction: bool = False
+    ) -> Future[T]:
+        """Queue `job(write_connection)` to run in its own transaction on the writer thread.
+
+        own_transaction: the job opens and ends its transaction itself (`_transaction`), so
+        that it can do slow work first without holding the write lock.
+        """
         future: Future[T] = Future()
         with self._lock:
             if self._closed:
                 raise StoreError(f"store {self.path} is closed")
-            self._jobs.put((job, future))
+            self._jobs.put((job, future, own_transaction))
         return future
 
     def _call(self, job: Callable[[sqlite3.Connection], T]) -> T:
@@ -489,7 +483,7 @@ class Store:
     def submit_point_set(self, ps: PointSet) -> Future[PointSet]:
         """Queue a commit of `ps`; the future gives it back with version, seq, completed_utc."""
         _check_shapes(ps)
-        return self.submit(lambda conn: self._insert_point_set(conn, ps))
+        return self.submit(lambda conn: self._commit_point_set(conn, ps), own_transaction=True)
 
     def commit_point_set(self, ps: PointSet) -> PointSet:
         """Commit `ps` and all its hits in one transaction (blocking, `timeout_s` at most).
@@ -500,22 +494,42 @@ class Store:
         """
         return self._wait(self.submit_point_set(ps))
 
-    def _insert_point_set(self, conn: sqlite3.Connection, ps: PointSet) -> PointSet:
-        test_id = _test_id(conn, ps.test, ps.point)
-        done = dataclasses.replace(
-            ps,
-            version=_next_version(conn, test_id, ps.point),
-            seq=_next_seq(conn),
-            completed_utc=ps.completed_utc or utc_now(),
-        )
-        cur = conn.execute(_insert_sql("point_sets", _PS_COLUMNS), _point_set_row(test_id, done))
-        pid = int(cur.lastrowid or 0)
-        conn.executemany(_insert_sql("hits", _HIT_COLUMNS), _hit_rows(pid, done.hits))
-        if self._body_encoder is not None:
-            # Encoded from what was just written, read back, so it is what a reader gets.
-            schema, digest, body = self._body_encoder(pid, _fetch_point_set(conn, pid, False))
-            conn.execute("INSERT INTO wire_bodies VALUES (?, ?, ?, ?)", (pid, schema, digest, body))
+    def _commit_point_set(self, conn: sqlite3.Connection, ps: PointSet) -> PointSet:
+        """On the writer thread: number `ps`, encode its wire body, then one short transaction.
+
+        The body (megabytes to cast, pack and hash) is made before the transaction, so the
+        write lock is held only to copy bytes in. Sound because this thread is the store's
+        only writer: the id, version and seq read here cannot change before it writes them,
+        and the transaction checks that they did not.
+        """
+        test_id, pid, done = self._numbered(conn, ps)
+        body = None if self._body_encoder is None else self._body_encoder(pid, done)
+        with self._transaction(conn):
+            _, pid_now, now = self._numbered(conn, ps)
+            if (pid_now, now.version, now.seq) != (pid, done.version, done.seq):
+                raise StoreError(f"point set {ps.point!r}: the store changed under its writer")
+            _next_seq(conn)
+            row = _point_set_row(test_id, done)
+            conn.execute(_insert_sql("point_sets", ("id", *_PS_COLUMNS)), (pid, *row))
+            conn.executemany(_insert_sql("hits", _HIT_COLUMNS), _hit_rows(pid, done.hits))
+            if body is not None:
+                conn.execute("INSERT INTO wire_bodies VALUES (?, ?, ?, ?)", (pid, *body))
         return done
+
+    @staticmethod
+    def _numbered(conn: sqlite3.Connection, ps: PointSet) -> tuple[int, int, PointSet]:
+        """(its test's id, the id `ps` gets, `ps` with the version, seq and completed_utc it
+        gets); StoreError if its test or point is not stored."""
+        test_id = _test_id(conn, ps.test, ps.point)
+        pid = 1 + int(conn.execute("SELECT COALESCE(MAX(id), 0) FROM point_sets").fetchone()[0])
+        seq = 1 + int(
+            conn.execute("SELECT value FROM store_meta WHERE key = 'last_seq'").fetchone()[0]
+        )
+        version = _next_version(conn, test_id, ps.point)
+        done = dataclasses.replace(
+            ps, version=version, seq=seq, completed_utc=ps.completed_utc or utc_now()
+        )
+        return test_id, pid, done
 
     # -- reading
 
@@ -581,11 +595,10 @@ class Store:
 
     def list_point_sets(
         self, test: str | None = None, since_seq: int = 0, latest_only: bool = False
-    ) -> list[PointSetSummary]:
+    ) -> list[WirePointSetSummary]:
         """Point sets with seq > since_seq, in seq order; latest_only: highest version only."""
         sql = (
-            "SELECT p.id, t.name AS test, p.point, p.version, p.seq, p.completed_utc, "
-            "p.n_averages FROM point_sets p JOIN tests t ON t.id = p.test_id "
+            f"SELECT {_SUMMARY_COLUMNS} FROM point_sets p JOIN tests t ON t.id = p.test_id "
             "WHERE p.seq > ? AND (? IS NULL OR t.name = ?)"
         )
         if latest_only:
@@ -594,19 +607,24 @@ class Store:
                 "WHERE q.test_id = p.test_id AND q.point = p.point)"
             )
         rows = self._query(sql + " ORDER BY p.seq", (since_seq, test, test))
-        return [PointSetSummary(**dict(r)) for r in rows]
+        return [WirePointSetSummary(**dict(r)) for r in rows]
 
     def get_point_set(self, point_set_id: int, with_hits: bool = False) -> PointSet:
         """The stored point set; its hits carry data=None unless with_hits."""
         with self._reading() as conn:
             return _fetch_point_set(conn, point_set_id, with_hits)
 
-    def get_wire_body(self, point_set_id: int, schema: int) -> tuple[str, bytes] | None:
-        """(digest, body) written at commit for wire schema `schema`, or None if there is none."""
+    def get_wire_body(self, point_set_id: int, *schemas: int) -> tuple[str, bytes] | None:
+        """(digest, body) written at commit for one of the wire schemas `schemas`, or None.
+
+        A body stays as its commit wrote it, also after the schema moved on: a rig serves the
+        bytes every mirror of it already holds, and clients read every older schema.
+        """
+        marks = ", ".join("?" * len(schemas))
         with self._reading() as conn:
             row = conn.execute(
-                "SELECT digest FROM wire_bodies WHERE point_set_id = ? AND schema = ?",
-                (point_set_id, schema),
+                f"SELECT digest FROM wire_bodies WHERE point_set_id = ? AND schema IN ({marks})",
+                (point_set_id, *schemas),
             ).fetchone()
             if row is None:
                 return None
@@ -669,7 +687,7 @@ def _stats(conn: sqlite3.Connection, path: Path) -> StoreStats:
 # ---------------------------------------------------------------- rows ↔ records
 
 
-_HIT_FIELDS = "trigger_index, utc, accepted, peak_force_n, pulse_width_s, findings"
+_HIT_FIELDS = ", ".join((*HIT_SCALARS, "findings"))
 
 
 def _next_seq(conn: sqlite3.Connection) -> int:
@@ -693,60 +711,61 @@ def _next_version(conn: sqlite3.Connection, test_id: int, point: str) -> int:
     return 1 + int(conn.execute(sql, (test_id, point)).fetchone()[0])
 
 
-# Named columns, so that a later migration may add columns to these tables.
+# Named columns, so that a later migration may add columns to these tables. A point set's
+# scalars keep their names (its test is test_id), each array has the column of its ArraySpec.
 _PS_COLUMNS = (
-    "test_id, point, version, seq, completed_utc, n_averages, roving_mode, drive_point, "
-    "response_labels, response_points, meta, freq, h1, h2, coherence, gff, gxx, gfx"
+    "test_id",
+    *(name for name in SCALARS if name != "test"),
+    "meta",
+    *(a.column for a in ARRAYS),
 )
-_HIT_COLUMNS = (
-    "point_set_id, ordinal, trigger_index, utc, accepted, peak_force_n, pulse_width_s, "
-    "findings, data"
+_HIT_COLUMNS = ("point_set_id", "ordinal", *HIT_SCALARS, "findings", HIT_DATA.column)
+_SUMMARY_COLUMNS = ", ".join(
+    "t.name AS test" if f.name == "test" else f"p.{f.name}"
+    for f in dataclasses.fields(WirePointSetSummary)
 )
 
 
-def _insert_sql(table: str, columns: str) -> str:
-    marks = ", ".join("?" * len(columns.split(",")))
-    return f"INSERT INTO {table} ({columns}) VALUES ({marks})"
+def _insert_sql(table: str, columns: Sequence[str]) -> str:
+    marks = ", ".join("?" * len(columns))
+    return f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({marks})"
 
 
 def _point_set_row(test_id: int, ps: PointSet) -> tuple[Any, ...]:
-    labels = _to_json(list(ps.response_labels), "response labels")
-    points = _to_json(list(ps.response_points), "response points")
-    meta = _to_json(ps.meta, f"meta of point set {ps.point!r}")
-    head = (test_id, ps.point, ps.version, ps.seq, ps.completed_utc, int(ps.n_averages))
-    mode = RovingMode(ps.roving_mode).value
-    return (*head, mode, ps.drive_point, labels, points, meta, *_array_blobs(ps))
-
-
-def _array_blobs(ps: PointSet) -> list[bytes]:
-    spec = [
-        ("freq_hz", _F8, 1),
-        ("h1", _C16, 2),
-        ("h2", _C16, 2),
-        ("coherence", _F8, 2),
-        ("gff", _F8, 1),
-        ("gxx", _F8, 2),
-        ("gfx", _C16, 2),
-    ]
-    return [encode_array(getattr(ps, f), d, n, f"point set {ps.point!r}: {f}") for f, d, n in spec]
+    """The values of `_PS_COLUMNS` for `ps`."""
+    values = {name: getattr(ps, name) for name in SCALARS}
+    values["test_id"] = test_id
+    values["n_averages"] = int(ps.n_averages)
+    values["roving_mode"] = RovingMode(ps.roving_mode).value
+    values["response_labels"] = _to_json(list(ps.response_labels), "response labels")
+    values["response_points"] = _to_json(list(ps.response_points), "response points")
+    values["meta"] = _to_json(ps.meta, f"meta of point set {ps.point!r}")
+    for a in ARRAYS:
+        values[a.column] = encode_array(
+            getattr(ps, a.name), a.dtype, a.ndim, f"point set {ps.point!r}: {a.name}"
+        )
+    return tuple(values[column] for column in _PS_COLUMNS)
 
 
 def _hit_rows(point_set_id: int, hits: Iterable[StoredHit]) -> Iterator[tuple[Any, ...]]:
+    """The values of `_HIT_COLUMNS` for each hit."""
     # A generator: each hit is encoded as it is inserted, so a bad hit fails mid-transaction.
+    d = HIT_DATA
     for i, h in enumerate(hits):
-        data = None if h.data is None else encode_array(h.data, _F4, 2, f"hit {i} data")
+        data = None if h.data is None else encode_array(h.data, d.dtype, d.ndim, f"hit {i} data")
         findings = _to_json([[f.code, f.message] for f in h.findings], f"hit {i} findings")
-        yield (
-            point_set_id,
-            i,
-            int(h.trigger_index),
-            h.utc,
-            int(bool(h.accepted)),
-            float(h.peak_force_n),
-            float(h.pulse_width_s),
-            findings,
-            data,
+        values = {name: getattr(h, name) for name in HIT_SCALARS}
+        values.update(
+            point_set_id=point_set_id,
+            ordinal=i,
+            trigger_index=int(h.trigger_index),
+            accepted=int(bool(h.accepted)),
+            peak_force_n=float(h.peak_force_n),
+            pulse_width_s=float(h.pulse_width_s),
+            findings=findings,
+            data=data,
         )
+        yield tuple(values[column] for column in _HIT_COLUMNS)
 
 
 def _test_plan(conn: sqlite3.Connection, row: sqlite3.Row) -> TestPlan:
@@ -770,39 +789,25 @@ def _test_plan(conn: sqlite3.Connection, row: sqlite3.Row) -> TestPlan:
 
 
 def _point_set(row: sqlite3.Row, hits: Sequence[sqlite3.Row]) -> PointSet:
-    def arr(column: str) -> np.ndarray:
-        return decode_array(row[column])
-
-    return PointSet(
-        test=row["test"],
-        point=row["point"],
-        version=row["version"],
-        roving_mode=RovingMode(row["roving_mode"]),
-        drive_point=row["drive_point"],
-        response_labels=tuple(json.loads(row["response_labels"])),
-        response_points=tuple(json.loads(row["response_points"])),
-        n_averages=row["n_averages"],
-        freq_hz=arr("freq"),
-        h1=arr("h1"),
-        h2=arr("h2"),
-        coherence=arr("coherence"),
-        gff=arr("gff"),
-        gxx=arr("gxx"),
-        gfx=arr("gfx"),
-        hits=tuple(_stored_hit(h) for h in hits),
-        meta=json.loads(row["meta"]),
-        completed_utc=row["completed_utc"],
-        seq=row["seq"],
-    )
+    """The `PointSet` of a point_sets row (with its test's name as ``test``) and its hits."""
+    values = {name: row[name] for name in SCALARS}
+    values["roving_mode"] = RovingMode(row["roving_mode"])
+    values["response_labels"] = tuple(json.loads(row["response_labels"]))
+    values["response_points"] = tuple(json.loads(row["response_points"]))
+    # Rows of schema 1 hold float64 spectra: read in today's dtypes (schema.pointset).
+    arrays: dict[str, Any] = {
+        a.name: in_dtype(decode_array(row[a.column]), a.dtype) for a in ARRAYS
+    }
+    stored = tuple(_stored_hit(h) for h in hits)
+    return PointSet(**values, **arrays, hits=stored, meta=json.loads(row["meta"]))
 
 
 def _stored_hit(h: sqlite3.Row) -> StoredHit:
-    return StoredHit(
-        h["trigger_index"],
-        h["utc"],
-        bool(h["accepted"]),
-        math.nan if h["peak_force_n"] is None else h["peak_force_n"],
-        math.nan if h["pulse_width_s"] is None else h["pulse_width_s"],
-        tuple(Finding(c, m) for c, m in json.loads(h["findings"])),
-        None if h["data"] is None else decode_array(h["data"]),
-    )
+    """The `StoredHit` of a hits row; SQLite's NULL for a NaN measure reads back as NaN."""
+    values = {name: h[name] for name in HIT_SCALARS}
+    values["accepted"] = bool(h["accepted"])
+    for name in ("peak_force_n", "pulse_width_s"):
+        values[name] = math.nan if h[name] is None else h[name]
+    findings = tuple(Finding(c, m) for c, m in json.loads(h["findings"]))
+    data = None if h[HIT_DATA.column] is None else decode_array(h[HIT_DATA.column])
+    return StoredHit(**values, findings=findings, data=data)

@@ -26,7 +26,7 @@ from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from typing import Any, Final
 
-from taprig.schema import wire
+from taprig.schema import records
 
 from ..errors import ClientError
 from ..pull import RECONNECT_S, Prefetch, feed
@@ -188,7 +188,7 @@ class RigThread:
                 self.state.cursor = cursor
         return cursor
 
-    def _stored(self, s: wire.WirePointSetSummary, size: int, new: bool) -> None:
+    def _stored(self, s: records.WirePointSetSummary, size: int, new: bool) -> None:
         if new:
             self.state.stored += 1
             self.state.bytes += size

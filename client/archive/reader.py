@@ -25,7 +25,7 @@ from typing import Any
 
 import psycopg
 
-from taprig.schema import wire
+from taprig.schema import codec, objects, records
 
 from ..dataset import TestData, assemble
 from ..mirror import MAX_BODY
@@ -116,13 +116,15 @@ class Archive:
     def _rig_of(self, test: str) -> str:
         return self._rig_id if self._rig_id is not None else self._locate(test)[0]
 
-    def _decoded(self, rig_id: str, test: str) -> list[wire.WirePointSet]:
+    def _decoded(self, rig_id: str, test: str) -> list[records.WirePointSet]:
         rows = self.rows(
             "SELECT body FROM point_sets WHERE rig_id = %s AND test = %s ORDER BY seq",
             (rig_id, test),
             binary=True,
         )
-        return [wire.point_set_from_obj(wire.unpack(bytes(r[0]), max_bytes=MAX_BODY)) for r in rows]
+        return [
+            objects.point_set_from_obj(codec.unpack(bytes(r[0]), max_bytes=MAX_BODY)) for r in rows
+        ]
 
     # -- the mirror's interface
 
@@ -134,16 +136,16 @@ class Archive:
         rows = self.rows("SELECT rig_id, name, url FROM rigs WHERE rig_id = %s", (rig_id,))
         return {"id": str(rows[0][0]), "name": str(rows[0][1]), "url": str(rows[0][2])}
 
-    def tests(self) -> list[wire.WireTest]:
+    def tests(self) -> list[records.WireTest]:
         """The tests of the chosen rig (of every rig when none), in change-feed order."""
         where, params = ("WHERE rig_id = %s", (self._rig_id,)) if self._rig_id else ("", ())
         rows = self.rows(f"SELECT body::text FROM tests {where} ORDER BY rig_id, seq", params)
-        return [wire.test_from_obj(json.loads(r[0])) for r in rows]
+        return [objects.test_from_obj(json.loads(r[0])) for r in rows]
 
-    def test(self, name: str) -> wire.WireTest:
-        return wire.test_from_obj(json.loads(self._locate(name)[2]))
+    def test(self, name: str) -> records.WireTest:
+        return objects.test_from_obj(json.loads(self._locate(name)[2]))
 
-    def summaries(self, test: str | None = None) -> list[wire.WirePointSetSummary]:
+    def summaries(self, test: str | None = None) -> list[records.WirePointSetSummary]:
         cols = (
             "id, test, point, version, seq, to_char(completed_utc AT TIME ZONE 'UTC', "
             '\'YYYY-MM-DD"T"HH24:MI:SS.US"Z"\'), n_averages'
@@ -160,7 +162,7 @@ class Archive:
         else:
             raise ArchiveError("name a rig or a test to list point sets of")
         return [
-            wire.WirePointSetSummary(int(i), t, p, int(v), int(s), c, int(n))
+            records.WirePointSetSummary(int(i), t, p, int(v), int(s), c, int(n))
             for i, t, p, v, s, c, n in rows
         ]
 
@@ -178,18 +180,18 @@ class Archive:
             raise ArchiveError(f"the archive has no point set {point_set_id} of rig {rig}")
         return str(rows[0][0]), bytes(rows[0][1])
 
-    def point_set(self, point_set_id: int, rig_id: str | None = None) -> wire.WirePointSet:
+    def point_set(self, point_set_id: int, rig_id: str | None = None) -> records.WirePointSet:
         _digest, body = self.body(point_set_id, rig_id)
-        return wire.point_set_from_obj(wire.unpack(body, max_bytes=MAX_BODY))
+        return objects.point_set_from_obj(codec.unpack(body, max_bytes=MAX_BODY))
 
-    def point_sets(self, test: str) -> list[wire.WirePointSet]:
+    def point_sets(self, test: str) -> list[records.WirePointSet]:
         """Every archived point set of `test` (all versions), decoded, in change-feed order."""
         return self._decoded(self._locate(test)[0], test)
 
     def load(self, test: str) -> TestData:
         """The test's latest point set per measured point, stacked as arrays (TestData)."""
         rig_id, rig_name, body = self._locate(test)
-        plan = wire.test_from_obj(json.loads(body))
+        plan = objects.test_from_obj(json.loads(body))
         return assemble(plan, self._decoded(rig_id, test), rig_name, rig_id)
 
     def counts(self) -> dict[str, int]:

@@ -17,7 +17,7 @@ from typing import Final
 
 import psycopg
 
-from taprig.schema import wire
+from taprig.schema import objects, records
 
 from ..mirror import MirroredPointSet
 from .db import LOCK_SPACE, ArchiveError, connect, explain, require_schema
@@ -25,7 +25,7 @@ from .db import LOCK_SPACE, ArchiveError, connect, explain, require_schema
 _SERIAL: Final = re.compile(r"(?:[-_.:#/ ]+[0-9][0-9TZtz]*)+$")
 
 
-def part_of(test: wire.WireTest) -> str:
+def part_of(test: records.WireTest) -> str:
     """The part type a test belongs to, for trends of repeated tests of one part.
 
     The test's ``meta["part"]`` when it is a non-empty string; otherwise its name without its
@@ -111,7 +111,7 @@ class RigWriter:
             (error, error, self.rig_id),
         )
 
-    def put_test(self, test: wire.WireTest, seq: int | None) -> None:
+    def put_test(self, test: records.WireTest, seq: int | None) -> None:
         """Store (or update) a test; move the cursor to `seq` in the same transaction."""
         try:
             with self._conn.transaction():
@@ -125,7 +125,7 @@ class RigWriter:
         row = self._run("SELECT 1 FROM tests WHERE rig_id = %s AND name = %s", (self.rig_id, name))
         return row is not None
 
-    def put_point_set(self, ps: MirroredPointSet, seq: int, test: wire.WireTest | None) -> bool:
+    def put_point_set(self, ps: MirroredPointSet, seq: int, test: records.WireTest | None) -> bool:
         """Store one point set and move the cursor to `seq`, in one transaction (one statement,
         one round trip); False if it was already here with the same digest. A test given is
         stored first, in a transaction of its own (storing a test again changes nothing).
@@ -139,7 +139,7 @@ class RigWriter:
         row = self._run(
             _PUT_POINT_SET,
             (self.rig_id, s.id, s.test, s.point, s.version, s.seq, s.completed_utc, s.n_averages,
-             wire.SCHEMA_VERSION, ps.digest, len(ps.body), ps.body,
+             ps.schema, ps.digest, len(ps.body), ps.body,
              self.rig_id, s.id, ps.digest, s.test, s.point, s.version, seq, self.rig_id),
         )  # fmt: skip
         stored, advanced = (bool(row[0]), bool(row[1])) if row else (False, False)
@@ -150,8 +150,8 @@ class RigWriter:
             )
         return stored
 
-    def _upsert_test(self, test: wire.WireTest) -> None:
-        body = json.dumps(wire.test_to_obj(test), separators=(",", ":"))
+    def _upsert_test(self, test: records.WireTest) -> None:
+        body = json.dumps(objects.test_to_obj(test), separators=(",", ":"))
         self._conn.execute(
             "INSERT INTO tests (rig_id, name, part, seq, created_utc, roving_mode, reference, "
             "averages, grid_points, body) VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s) "

@@ -1,8 +1,8 @@
 """Response bodies of the rig's HTTP service, and the cache of encoded point sets.
 
 JSON is written strictly (no NaN: a non-finite value is null); a point set is msgpack
-(schema.wire) or JSON by the request's Accept header. A stored point set never changes, so
-its encoded forms are kept in a `BodyCache` for the next reader.
+(schema.objects, schema.codec) or JSON by the request's Accept header. A stored point set
+never changes, so its encoded forms are kept in a `BodyCache` for the next reader.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING, Any, Final
 import numpy as np
 from aiohttp import web
 
-from taprig.schema import wire
+from taprig.schema import codec, http, objects, records
 
 from .routes import JSON, Call, Payload
 
@@ -71,31 +71,42 @@ def outcome_json(o: HitOutcome) -> Payload:
 
 
 def test_obj(plan: TestPlan) -> Payload:
-    return wire.test_to_obj(wire.test_from_record(plan))
+    return objects.test_to_obj(records.test_from_record(plan))
 
 
 def reply(call: Call, obj: Payload) -> web.Response:
     """`obj` as msgpack when the client prefers it, else as JSON."""
-    if wire.wants_msgpack(call.request.headers.get("Accept")):
-        return web.Response(body=wire.pack(obj), content_type=wire.MSGPACK)
+    if http.wants_msgpack(call.request.headers.get("Accept")):
+        return web.Response(body=codec.pack(obj), content_type=http.MSGPACK)
     return json_response(obj)
 
 
-def encode_point_set(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded:
-    """(body, content type, Content-Digest value) of a stored point set, per schema.wire.
+def stored_body(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded | None:
+    """(body, content type, Content-Digest value) of the msgpack body written at commit, or
+    None when the request asks for another form (JSON, raw hits) or none was written.
 
-    One worker-thread call. The msgpack body without raw hits was written at commit and is
-    served as stored; anything else is read, encoded and checksummed here.
+    Worker thread. The body is served as stored, in the schema it was written in: clients
+    read every schema of `READ_VERSIONS`, and a mirror holds the bytes it was first served.
     """
-    if as_msgpack and not with_hits:
-        stored = store.get_wire_body(pid, wire.SCHEMA_VERSION)
-        if stored is not None:
-            digest, body = stored
-            return body, wire.MSGPACK, digest
+    if not as_msgpack or with_hits:
+        return None
+    stored = store.get_wire_body(pid, *records.READ_VERSIONS)
+    return None if stored is None else (stored[1], http.MSGPACK, stored[0])
+
+
+def encode_point_set(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded:
+    """(body, content type, Content-Digest value) of a stored point set, per the wire schema.
+
+    One worker-thread call: the body stored at commit (`stored_body`) if there is one;
+    anything else is read, encoded and checksummed here.
+    """
+    stored = stored_body(store, pid, with_hits, as_msgpack)
+    if stored is not None:
+        return stored
     ps = store.get_point_set(pid, with_hits)
-    obj = wire.point_set_to_obj(wire.point_set_from_record(pid, ps), with_hits)
-    body, media = (wire.pack(obj), wire.MSGPACK) if as_msgpack else (_point_json(obj), JSON)
-    return body, media, wire.content_digest(body)
+    obj = objects.point_set_to_obj(records.point_set_from_record(pid, ps), with_hits)
+    body, media = (codec.pack(obj), http.MSGPACK) if as_msgpack else (_point_json(obj), JSON)
+    return body, media, http.content_digest(body)
 
 
 class BodyCache:
@@ -129,7 +140,7 @@ class BodyCache:
 
 
 def _point_json(obj: Payload) -> bytes:
-    """JSON of a `wire.point_set_to_obj` object: each array's bytes become nested lists.
+    """JSON of a `objects.point_set_to_obj` object: each array's bytes become nested lists.
 
     A real array is ``{"dtype", "shape", "values"}``, a complex one ``{"dtype", "shape",
     "real", "imag"}``; a non-finite value is null. Finite values round-trip exactly (Python

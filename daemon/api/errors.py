@@ -15,7 +15,7 @@ from typing import Any, Final
 
 from aiohttp import web
 
-from taprig.schema import wire
+from taprig.schema import records
 
 from ..errors import AlreadyExists, ConfigError, NotFound, SessionError, StoreError, TaprigError
 
@@ -43,7 +43,7 @@ def invalid(message: str) -> ApiError:
 
 # The daemon's own errors, most specific first: (type, status, code).
 _BY_TYPE: Final[tuple[tuple[type[BaseException], int, str], ...]] = (
-    (wire.SchemaError, 400, "invalid"),
+    (records.SchemaError, 400, "invalid"),
     (NotFound, 404, "not_found"),
     (AlreadyExists, 409, "exists"),
     (SessionError, 409, "session"),

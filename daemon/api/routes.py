@@ -13,7 +13,7 @@ from typing import Any, Final
 
 from aiohttp import web
 
-from taprig.schema import wire
+from taprig.schema import http
 
 from ..records import RovingMode
 
@@ -152,7 +152,12 @@ class Param:
 
 @dataclass(frozen=True, slots=True)
 class Route:
-    """One endpoint: its handler is `Service._on_<handler>`; public routes need no token."""
+    """One endpoint: its handler is `Service._on_<handler>`; public routes need no token.
+
+    token_in_worker: the handler checks the token itself, in the one worker-thread call that
+    also reads the store (one thread hop per request instead of two: the point-set route,
+    which every workstation calls once per point set).
+    """
 
     method: str
     path: str
@@ -166,6 +171,7 @@ class Route:
     media: tuple[str, ...] = (JSON,)
     errors: tuple[int, ...] = ()
     action: str | None = None
+    token_in_worker: bool = False
 
 
 _TEST = Param("name", "path", NAME, "test name")
@@ -198,10 +204,13 @@ ROUTES: Final[tuple[Route, ...]] = (
                   Param("since", "query", SEQ, "only point sets with seq > since")),
           errors=(404, 503)),
     Route("GET", "/v1/points/{id}", "getPoint", "point",
-          "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept",
+          "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept; "
+          "spectra float32/complex64 (schema 2), or as stored by an older schema",
           params=(_POINT_ID, Param("hits", "query", {"type": "integer", "enum": [0, 1]},
-                                   "1: include every hit's raw record")),
-          media=(JSON, wire.MSGPACK), errors=(404, 503)),
+                                   "1: include every hit's raw record (several times the "
+                                   "bytes); 0 (default): hits without records, the msgpack "
+                                   "body stored at commit, sent as stored")),
+          media=(JSON, http.MSGPACK), errors=(404, 503), token_in_worker=True),
     Route("GET", "/v1/changes", "getChanges", "changes",
           "the change feed after `since`; waits up to `wait` s for a change",
           params=(Param("since", "query", SEQ, "last seq the client has seen (default 0)"),

@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING, Final
 
 from aiohttp import web
 
-from taprig.schema import API_VERSION, wire
+from taprig.schema import API_VERSION, http, objects, records
 
 from .. import __version__, identity, page, placement
 from ..errors import TaprigError
@@ -31,11 +31,13 @@ from . import validate
 from .bodies import (
     BODY_CACHE_BYTES,
     BodyCache,
+    Encoded,
     device_json,
     encode_point_set,
     json_response,
     outcome_json,
     reply,
+    stored_body,
     test_obj,
 )
 from .errors import ApiError, Outcome, error_of, invalid
@@ -45,7 +47,7 @@ from .openapi import openapi_text
 from .routes import HEARTBEAT_S, JSON, PREFIX, ROUTES, Call, Payload, Route
 
 if TYPE_CHECKING:
-    from ..auth import Auth
+    from ..auth import Auth, AuthResult
     from ..capture.session import Plan
     from ..running import RunningRig
 
@@ -182,9 +184,14 @@ class Service:
         )
 
         async def handler(request: web.Request) -> web.StreamResponse:
-            if not route.public:
+            if not route.public and not route.token_in_worker:
                 await self.authorize(request)
-            args = validate.params(route, request)
+            try:
+                args = validate.params(route, request)
+            except ApiError:
+                if route.token_in_worker:  # a stranger learns nothing of the parameters
+                    await self.authorize(request)
+                raise
             body = await validate.body(route, request) if route.body is not None else {}
             return await serve(Call(request, route, args, body))
 
@@ -192,11 +199,17 @@ class Service:
 
     async def authorize(self, request: web.Request) -> None:
         """Raise ApiError 401, 429 or 503 unless the request carries the rig's token."""
-        peer = request.remote or ""
         # Auth.check stats the token file: a syscall, so off the loop like any other.
-        verdict = await asyncio.to_thread(
-            self.auth.check, request.headers.get("Authorization"), peer
-        )
+        verdict = await asyncio.to_thread(self._check_token, request)
+        self._admit(request, verdict)
+
+    def _check_token(self, request: web.Request) -> AuthResult:
+        """The verdict on the request's token (worker thread: it stats the token file)."""
+        return self.auth.check(request.headers.get("Authorization"), request.remote or "")
+
+    def _admit(self, request: web.Request, verdict: AuthResult) -> None:
+        """Raise ApiError 401, 429 or 503 unless `verdict` lets the request in."""
+        peer = request.remote or ""
         status = verdict.http_status
         if status == 429:
             wait = max(1, math.ceil(self.auth.retry_after(peer)))  # RFC 9110 §10.2.3: seconds
@@ -218,7 +231,7 @@ class Service:
     async def _on_info(self, call: Call) -> web.StreamResponse:
         return json_response({
             "rig": self.rig_name, "rig_id": self.rig_id, "api_version": API_VERSION,
-            "schema_version": wire.SCHEMA_VERSION, "daemon_version": __version__,
+            "schema_version": records.SCHEMA_VERSION, "daemon_version": __version__,
         })  # fmt: skip
 
     async def _on_health(self, call: Call) -> web.StreamResponse:
@@ -268,17 +281,32 @@ class Service:
         if test is not None:
             await asyncio.to_thread(self.store.get_test, test)  # NotFound: 404
         rows = await asyncio.to_thread(self.store.list_point_sets, test, call.args.get("since", 0))
-        return reply(call, {"points": [wire.point_set_summary_json(s) for s in rows]})
+        return reply(call, {"points": [objects.point_set_summary_json(s) for s in rows]})
 
     async def _on_point(self, call: Call) -> web.StreamResponse:
         pid, with_hits = call.args["id"], bool(call.args.get("hits", 0))
-        key = (pid, with_hits, wire.wants_msgpack(call.request.headers.get("Accept")))
-        encoded = self._bodies.get(key)
+        key = (pid, with_hits, http.wants_msgpack(call.request.headers.get("Accept")))
+        cached = self._bodies.get(key)
+        verdict, encoded = await asyncio.to_thread(
+            self._checked_point, call.request, key, cached is None
+        )
+        self._admit(call.request, verdict)
+        encoded = cached or encoded
         if encoded is None:  # NotFound for an id never stored: 404
             encoded = await asyncio.to_thread(encode_point_set, self.store, *key)
             self._bodies.put(key, encoded)
         body, media, digest = encoded
         return web.Response(body=body, content_type=media, headers={"Content-Digest": digest})
+
+    def _checked_point(
+        self, request: web.Request, key: tuple[int, bool, bool], read: bool
+    ) -> tuple[AuthResult, Encoded | None]:
+        """Worker thread, one hop: the token's verdict and, if it admits the request and
+        `read`, the body stored at commit (`stored_body`; None: encode it)."""
+        verdict = self._check_token(request)
+        if verdict.http_status != 200 or not read:
+            return verdict, None
+        return verdict, stored_body(self.store, *key)
 
     async def _on_changes(self, call: Call) -> web.StreamResponse:
         since = call.args.get("since", 0)
@@ -286,7 +314,7 @@ class Service:
             lambda: asyncio.to_thread(self.store.changes, since, CHANGES_LIMIT),
             call.args.get("wait", 0.0),
         )
-        objs = [wire.change_to_obj(wire.change_from_record(c)) for c in changes]
+        objs = [objects.change_to_obj(records.change_from_record(c)) for c in changes]
         last = changes[-1].seq if changes else since
         return reply(call, {"changes": objs, "last_seq": last,
                             "more": len(changes) == CHANGES_LIMIT})  # fmt: skip

@@ -8,12 +8,13 @@ what it returns.
 
 from __future__ import annotations
 
-import datetime as dt
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+
+from taprig.schema.pointset import utc_now
 
 from ..errors import NotFound, SessionError
 from ..records import (
@@ -28,10 +29,6 @@ from ..records import (
     StoredHit,
 )
 from .spectra import SpectralAverager, WindowSettings, hit_spectra, single_average_warning
-
-
-def utc_now() -> str:
-    return dt.datetime.now(dt.UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
 
 @dataclass(frozen=True)

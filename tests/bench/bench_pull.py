@@ -32,7 +32,7 @@ from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import start_rig
-from taprig.schema import wire
+from taprig.schema.http import MSGPACK
 
 GOAL_RATIO = 0.5
 
@@ -40,7 +40,7 @@ GOAL_RATIO = 0.5
 def plain_download(port: int, token: str, ids: list[int]) -> int:
     """GET every body in turn on one kept-alive connection; bytes received."""
     conn = http.client.HTTPConnection("127.0.0.1", port, timeout=60)
-    headers = {"Authorization": f"Bearer {token}", "Accept": wire.MSGPACK}
+    headers = {"Authorization": f"Bearer {token}", "Accept": MSGPACK}
     total = 0
     try:
         for pid in ids:

@@ -25,6 +25,7 @@ import bench_modal
 import bench_phone
 import bench_pull
 import bench_service
+import bench_size
 import bench_spectra
 import bench_startup
 import bench_text_input
@@ -53,6 +54,8 @@ BENCHES = [
     Bench("service: pulls over loopback, empty changes poll",
           lambda q: bench_service.run(20 if q else 200), bench_service.show,
           bench_service.headline),
+    Bench("point-set size: 2 responses, 16k block", lambda q: bench_size.run(),
+          lambda rows: bench_size.show(rows, decimals=3), bench_size.headline),
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
     Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),

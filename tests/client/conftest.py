@@ -15,6 +15,7 @@ The rig is stopped before the data is handed out, so no thread outlives the fixt
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import dataclasses
 import math
 import queue
@@ -43,7 +44,7 @@ from taprig.firmware_protocol.virtual import (
     write_truth,
 )
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
-from taprig.schema import wire
+from taprig.schema import records
 
 N_RESP = 2
 N_FREQ = 4097
@@ -119,11 +120,12 @@ def commit_synthetic(
         ))  # fmt: skip
 
 
-@pytest.fixture
-def served(tmp_path: Path) -> Iterator[ServedRig]:
-    cfg = load_config(None, [f"store.data_dir={tmp_path / 'rig'}", "store.min_free_mb=1"])
+@contextlib.contextmanager
+def serving(data_dir: Path) -> Iterator[ServedRig]:
+    """The real rig on the virtual instrument with its store in `data_dir`, served."""
+    cfg = load_config(None, [f"store.data_dir={data_dir}", "store.min_free_mb=1"])
     running = start_rig(cfg)
-    auth = Auth(tmp_path / "rig", max_failures=10_000)
+    auth = Auth(data_dir, max_failures=10_000)
     try:
         service = Service(running, auth)
         loop = LoopThread(service)
@@ -133,6 +135,12 @@ def served(tmp_path: Path) -> Iterator[ServedRig]:
             loop.close()
     finally:
         running.close()
+
+
+@pytest.fixture
+def served(tmp_path: Path) -> Iterator[ServedRig]:
+    with serving(tmp_path / "rig") as rig:
+        yield rig
 
 
 @pytest.fixture
@@ -231,10 +239,10 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
             assert _next(events, "completed").data["point"] == label
         store = r.store
         sets = [
-            wire.point_set_from_record(s.id, store.get_point_set(s.id, True))
+            records.point_set_from_record(s.id, store.get_point_set(s.id, True))
             for s in store.list_point_sets(test="panel-check")
         ]
-        test = wire.test_from_record(store.get_test("panel-check"))
+        test = records.test_from_record(store.get_test("panel-check"))
     finally:
         r.close()
     data = assemble(test, sets, rig="virtual", rig_id="virtual-1")

@@ -19,7 +19,7 @@ from taprig.client.mirror import Mirror
 from taprig.client.rigs import Places
 
 from .conftest import ServedRig, commit_synthetic
-from .test_pull import assert_mirror_is_rig
+from .test_pull import assert_has_records, assert_mirror_is_rig, commit_with_records
 
 
 def taprig(places: Places, *args: str, timeout: float = 60) -> subprocess.CompletedProcess[str]:
@@ -52,6 +52,15 @@ def test_pair_status_tests_pull(served: ServedRig, places: Places) -> None:
     assert test["point_sets_mirrored"] == 4
     with Mirror(Path(report["mirror"])) as m:
         assert_mirror_is_rig(m, served)
+
+
+def test_pull_takes_raw_hits_only_with_the_option(served: ServedRig, places: Places) -> None:
+    new_id, raw = commit_with_records(served, "plate-h")
+    as_json(taprig(places, "pair", f"{served.url}/pair#token={served.token}", "--json"))
+    report = as_json(taprig(places, "pull", "--raw-hits", "--json"))
+    assert report["point_sets"] == 2
+    with Mirror(Path(report["mirror"])) as m:
+        assert_has_records(m, new_id, raw)
 
 
 def test_export_and_check_work_offline_from_the_mirror(

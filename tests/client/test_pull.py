@@ -7,6 +7,7 @@ arrays with the store's arrays (numpy `tobytes`); transfers are verified with SH
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
 import signal
@@ -24,7 +25,7 @@ from taprig.client.mirror import Mirror
 from taprig.client.pull import pull
 from taprig.client.remote import RigClient, RigError, TransferError
 from taprig.client.rigs import Places, RigBook, parse_pairing_url
-from taprig.schema import wire
+from taprig.schema import records
 
 from .conftest import ServedRig, commit_synthetic, pair
 
@@ -37,7 +38,7 @@ def assert_mirror_is_rig(mirror: Mirror, served: ServedRig) -> None:
     ids = [s.id for s in store.list_point_sets()]
     assert [i for i, _ in mirror.digests()] == sorted(ids)
     for pid in ids:
-        stored = store.get_wire_body(pid, wire.SCHEMA_VERSION)
+        stored = store.get_wire_body(pid, records.SCHEMA_VERSION)
         assert stored is not None
         assert mirror.body(pid) == (stored[0], bytes(stored[1]))
         ps, ours = store.get_point_set(pid), mirror.point_set(pid)
@@ -217,3 +218,39 @@ def test_pull_killed_midway_resumes_with_nothing_lost_or_twice(
     assert report["point_sets"] == 120 - part
     with Mirror(path) as m:
         assert_mirror_is_rig(m, served)
+
+
+def commit_with_records(served: ServedRig, test: str) -> tuple[int, list[np.ndarray]]:
+    """A test of one point measured twice, the second time with its hits' raw records
+    (float32, 3 × 256 each); (the second point set's id, its records)."""
+    store = served.running.store
+    commit_synthetic(served.running, test, 1)
+    plain = store.get_point_set(store.list_point_sets(test)[0].id)
+    rng = np.random.default_rng(3)
+    raw = [rng.standard_normal((3, 256)).astype(np.float32) for _ in plain.hits]
+    hits = tuple(dataclasses.replace(h, data=r) for h, r in zip(plain.hits, raw, strict=True))
+    store.commit_point_set(dataclasses.replace(plain, version=0, seq=0, hits=hits))
+    return store.list_point_sets(test)[-1].id, raw
+
+
+def assert_has_records(mirror: Mirror, point_set_id: int, raw: list[np.ndarray]) -> None:
+    got = mirror.point_set(point_set_id).hits
+    assert [None if h.data is None else h.data.tobytes() for h in got] == [
+        r.tobytes() for r in raw]  # fmt: skip
+
+
+def test_raw_hits_come_only_when_asked(served: ServedRig, tmp_path: Path) -> None:
+    """By default a pull takes the body the rig stored at commit (hits without records);
+    with_hits=True takes every hit's record as well, bit for bit as stored (float32)."""
+    store = served.running.store
+    new_id, raw = commit_with_records(served, "plate-h")
+    with RigClient(served.url, served.token) as client:
+        with Mirror(tmp_path / "bare.sqlite3") as bare:
+            pull(client, bare)
+            assert [h.data for h in bare.point_set(new_id).hits] == [None, None]
+            assert bare.body(new_id) == store.get_wire_body(new_id, records.SCHEMA_VERSION)
+            bare_bytes = len(bare.body(new_id)[1])
+        with Mirror(tmp_path / "full.sqlite3") as full:
+            pull(client, full, with_hits=True)
+            assert_has_records(full, new_id, raw)
+            assert len(full.body(new_id)[1]) >= bare_bytes + sum(r.nbytes for r in raw)

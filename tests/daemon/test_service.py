@@ -32,7 +32,7 @@ from taprig.daemon.api.service import Service
 from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import RunningRig, start_rig
-from taprig.schema import API_VERSION, wire
+from taprig.schema import API_VERSION, codec, http, objects, records
 
 from .test_rig import DAMPED, grid_of, operator_pause, wait_info
 
@@ -151,7 +151,7 @@ class EventStream:
             await self._task
 
     async def _read(self) -> None:
-        headers = self.api.headers(Accept=wire.JSON)
+        headers = self.api.headers(Accept=http.JSON)
         timeout = aiohttp.ClientTimeout(total=None, sock_read=LIMIT_S)
         async with self.api.http.get("/v1/events", headers=headers, timeout=timeout) as resp:
             assert resp.status == 200
@@ -222,7 +222,7 @@ def test_public_endpoints_need_no_token(running: RunningRig, auth: Auth) -> None
                 info = await resp.json()
             rig_id = (running.config.store.data_dir / "rig-id").read_text().strip()
             assert info == {"rig": "bench-rig", "rig_id": rig_id, "api_version": API_VERSION,
-                            "schema_version": wire.SCHEMA_VERSION,
+                            "schema_version": records.SCHEMA_VERSION,
                             "daemon_version": __version__}  # fmt: skip
             async with api.http.get("/v1/health") as resp:
                 assert resp.status == 200
@@ -329,7 +329,7 @@ def test_capture_over_http(running: RunningRig, auth: Auth) -> None:
             stored = await asyncio.to_thread(running.store.get_point_set, pid, True)
 
             async with api.http.get(f"/v1/points/{pid}", headers=api.headers()) as resp:
-                assert resp.content_type == wire.JSON
+                assert resp.content_type == http.JSON
                 body = await resp.read()
                 assert_digest(resp, body)
             as_json = json.loads(body)
@@ -339,12 +339,12 @@ def test_capture_over_http(running: RunningRig, auth: Auth) -> None:
                 ref = getattr(stored, name)
                 assert arr.dtype == ref.dtype and arr.tobytes() == ref.tobytes(), name
 
-            headers = api.headers(Accept=wire.MSGPACK)
+            headers = api.headers(Accept=http.MSGPACK)
             async with api.http.get(f"/v1/points/{pid}?hits=1", headers=headers) as resp:
-                assert resp.content_type == wire.MSGPACK
+                assert resp.content_type == http.MSGPACK
                 body = await resp.read()
                 assert_digest(resp, body)
-            got = wire.point_set_from_obj(wire.unpack(body, max_bytes=1 << 26))
+            got = objects.point_set_from_obj(codec.unpack(body, max_bytes=1 << 26))
             assert got.id == pid and got.seq == done["seq"]
             for name in ARRAYS:
                 a, ref = getattr(got, name), getattr(stored, name)
@@ -451,7 +451,7 @@ def bad_requests() -> list[tuple[str, str, dict[str, Any], int]]:
         ),
         ("POST", "/v1/tests", {"json": {"name": "panel", "grid": ok_grid}}, 409),
         ("POST", "/v1/tests", body('{"name": "n", "grid_csv": "' + "x" * MAX_BODY + '"}'), 413),
-        ("POST", "/v1/tests", body(wire.pack({"name": "n", "grid": ok_grid}), wire.MSGPACK), 415),
+        ("POST", "/v1/tests", body(codec.pack({"name": "n", "grid": ok_grid}), http.MSGPACK), 415),
         ("POST", "/v1/tests", body('{"name": "n", "grid": []}', "text/plain"), 415),
         ("GET", "/v1/tests/nosuch", {}, 404),
         ("GET", "/v1/points/999999", {}, 404),
@@ -564,7 +564,7 @@ def test_eight_concurrent_readers_see_every_point_set(running: RunningRig, auth:
             for change in feed["changes"]:
                 if change["kind"] == "point_set":
                     pid = change["point_set_id"]
-                    headers = api.headers(Accept=wire.MSGPACK)
+                    headers = api.headers(Accept=http.MSGPACK)
                     async with api.http.get(f"/v1/points/{pid}", headers=headers) as resp:
                         assert resp.status == 200
                         seen[pid] = hashlib.sha256(await resp.read()).hexdigest()
@@ -661,10 +661,10 @@ def test_access_log_never_holds_the_token(
 def test_body_cache_keeps_the_most_recent_within_its_budget() -> None:
     cache = BodyCache(max_bytes=10)
     for pid, size in ((1, 4), (2, 4), (3, 4)):
-        cache.put((pid, False, True), (b"x" * size, wire.MSGPACK, "d"))
+        cache.put((pid, False, True), (b"x" * size, http.MSGPACK, "d"))
     assert cache.get((1, False, True)) is None and cache.bytes == 8
     assert cache.get((2, False, True)) is not None  # now the most recent
-    cache.put((4, False, True), (b"y" * 4, wire.MSGPACK, "d"))
+    cache.put((4, False, True), (b"y" * 4, http.MSGPACK, "d"))
     assert cache.get((3, False, True)) is None and cache.get((2, False, True)) is not None
-    cache.put((5, False, True), (b"z" * 11, wire.MSGPACK, "d"))  # larger than the budget
+    cache.put((5, False, True), (b"z" * 11, http.MSGPACK, "d"))  # larger than the budget
     assert cache.get((5, False, True)) is None and cache.bytes == 8

@@ -32,6 +32,7 @@ from taprig.daemon import store as store_mod
 from taprig.daemon.errors import AlreadyExists, DiskFullError, NotFound, StoreError
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 from taprig.daemon.store import Store
+from taprig.schema import pointset
 
 GRID = [GridPoint(f"P{i}", 0.1 * i, 0.0, 0.0) for i in range(1, 5)]
 ARRAYS = ("freq_hz", "h1", "h2", "coherence", "gff", "gxx", "gfx")
@@ -45,11 +46,15 @@ def make_point_set(
     n_hits: int = 3,
     block: int = 512,
 ) -> PointSet:
-    """A deterministic point set of random numbers; meta records how to rebuild it."""
+    """A deterministic point set of random numbers, each array in its stored dtype (the
+    table of schema.pointset); meta records how to rebuild it."""
     rng = np.random.default_rng(seed)
 
     def cplx(*shape: int) -> np.ndarray:
-        return rng.standard_normal(shape) + 1j * rng.standard_normal(shape)
+        return (rng.standard_normal(shape) + 1j * rng.standard_normal(shape)).astype("<c8")
+
+    def real(*shape: int) -> np.ndarray:
+        return rng.uniform(0, 1, shape).astype("<f4")
 
     hits = tuple(
         StoredHit(
@@ -75,9 +80,9 @@ def make_point_set(
         freq_hz=np.linspace(0.0, 1000.0, n_freq),
         h1=cplx(2, n_freq),
         h2=cplx(2, n_freq),
-        coherence=rng.uniform(0, 1, (2, n_freq)),
-        gff=rng.uniform(0, 1, n_freq),
-        gxx=rng.uniform(0, 1, (2, n_freq)),
+        coherence=real(2, n_freq),
+        gff=real(n_freq),
+        gxx=real(2, n_freq),
         gfx=cplx(2, n_freq),
         hits=hits,
         meta={"seed": seed, "n_freq": n_freq, "n_hits": n_hits, "block": block, "note": "é"},
@@ -251,11 +256,35 @@ def test_unknown_test_point_or_bad_shape_is_refused(store: Store) -> None:
     with pytest.raises(StoreError, match="'P9' is not in the grid"):
         store.commit_point_set(make_point_set("beam", "P9", 1))
     ps = make_point_set("beam", "P1", 1)
-    with pytest.raises(StoreError, match=r"h2 has shape \(2, 3\)"):
+    with pytest.raises(StoreError, match=r"'P1': h2\.shape: \[2, 3\] does not fit 2 responses"):
         store.commit_point_set(dataclasses.replace(ps, h2=np.zeros((2, 3), complex)))
+    with pytest.raises(StoreError, match="response_points: 1 entries for 2 response labels"):
+        store.commit_point_set(dataclasses.replace(ps, response_points=("P1",)))
     with pytest.raises(StoreError, match="meta of point set 'P1' is not plain JSON"):
         store.commit_point_set(dataclasses.replace(ps, meta={"gain": {1, 2}}))
     assert store.last_seq() == 1 and store.stats().point_sets == 0
+
+
+def test_columns_follow_the_declared_point_set(store: Store) -> None:
+    """Every array of schema.pointset has its column in point_sets, every plain field of a
+    point set and of a hit has its column, and a committed point set reads back with every
+    array in its declared dtype."""
+    conn = sqlite3.connect(store.path)
+    try:
+        ps_cols = {r[1] for r in conn.execute("PRAGMA table_info(point_sets)")}
+        hit_cols = {r[1] for r in conn.execute("PRAGMA table_info(hits)")}
+    finally:
+        conn.close()
+    assert {a.column for a in pointset.ARRAYS} <= ps_cols
+    assert set(pointset.SCALARS) - {"test"} <= ps_cols
+    assert {*pointset.HIT_SCALARS, "findings", pointset.HIT_DATA.column} <= hit_cols
+    stored = store.commit_point_set(make_point_set("beam", "P1", 1))
+    pid = store.list_point_sets()[-1].id
+    back = store.get_point_set(pid, with_hits=True)
+    for a in pointset.ARRAYS:
+        assert getattr(back, a.name).dtype == a.dtype, a.name
+        assert getattr(back, a.name).shape == np.shape(getattr(stored, a.name)), a.name
+    assert all(h.data is not None and h.data.dtype == pointset.HIT_DATA.dtype for h in back.hits)
 
 
 def test_readers_see_whole_point_sets_while_commits_run(store: Store) -> None:
@@ -511,24 +540,24 @@ def test_close_is_idempotent_and_final(tmp_path: Path) -> None:
 
 
 def test_wire_body_is_written_with_the_point_set(tmp_path: Path) -> None:
-    """The body stored at commit decodes (schema.wire) to exactly the stored arrays, and its
+    """The body stored at commit decodes (schema.objects) to exactly the stored arrays, and its
     digest is the SHA-256 of its bytes (RFC 9530 §2; hashlib as the reference)."""
     import base64
     import hashlib
 
     from taprig.daemon.wirebody import encode_body
-    from taprig.schema import wire
+    from taprig.schema import codec, objects, records
 
     with Store(tmp_path, body_encoder=encode_body) as s:
         s.save_test("beam", GRID, RovingMode.HAMMER, "P1", 3, {})
         s.commit_point_set(make_point_set("beam", "P3", seed=9))
         pid = newest_id(s)
-        stored = s.get_wire_body(pid, wire.SCHEMA_VERSION)
-        assert stored is not None and s.get_wire_body(pid, wire.SCHEMA_VERSION + 1) is None
+        stored = s.get_wire_body(pid, records.SCHEMA_VERSION)
+        assert stored is not None and s.get_wire_body(pid, records.SCHEMA_VERSION + 1) is None
         digest, body = stored
         sha = base64.b64encode(hashlib.sha256(body).digest()).decode()
         assert digest == f"sha-256=:{sha}:"
-        got = wire.point_set_from_obj(wire.unpack(body, max_bytes=1 << 26))
+        got = objects.point_set_from_obj(codec.unpack(body, max_bytes=1 << 26))
         ref = s.get_point_set(pid)
         for name in ("freq_hz", "h1", "h2", "coherence", "gff", "gxx", "gfx"):
             a, b = getattr(got, name), getattr(ref, name)

@@ -190,8 +190,8 @@ def check_store(data_dir: Path, seen_ids: set[int]) -> int:
     complete: all its accepted hits, decodable arrays, and a wire body matching its digest.
     """
     from taprig.daemon.wirebody import encode_body
-    from taprig.schema import wire
-    from taprig.schema.wire import content_digest
+    from taprig.schema import records
+    from taprig.schema.http import content_digest
 
     with Store(data_dir, body_encoder=encode_body) as store:
         assert store.integrity_check() == "ok"
@@ -203,7 +203,7 @@ def check_store(data_dir: Path, seen_ids: set[int]) -> int:
             assert sum(h.accepted for h in ps.hits) == ps.n_averages == s.n_averages
             assert all(h.data is not None for h in ps.hits)
             assert ps.h1.shape[-1] == ps.freq_hz.shape[0]
-            stored = store.get_wire_body(s.id, wire.SCHEMA_VERSION)
+            stored = store.get_wire_body(s.id, records.SCHEMA_VERSION)
             assert stored is not None, f"point set {s.id} has no wire body"
             digest, body = stored
             assert digest == content_digest(body)

@@ -27,7 +27,7 @@ from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
 from taprig.firmware_protocol.virtual import ModalModel, accelerance, demo_panel
 from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
-from taprig.schema import wire
+from taprig.schema import records
 
 from ..conftest import LoopThread, ServedRig
 from .pg import PgServer, cluster_folder
@@ -166,7 +166,7 @@ def rig_bodies(served: ServedRig) -> dict[int, tuple[str, bytes]]:
     store = served.running.store
     out = {}
     for s in store.list_point_sets():
-        got = store.get_wire_body(s.id, wire.SCHEMA_VERSION)
+        got = store.get_wire_body(s.id, *records.READ_VERSIONS)  # as served, whatever schema
         assert got is not None
         out[s.id] = (got[0], bytes(got[1]))
     return out

@@ -8,19 +8,32 @@ from __future__ import annotations
 
 import hashlib
 import math
+import shutil
 from collections.abc import Callable
+from pathlib import Path
 
 import numpy as np
 import psycopg
 import pytest
 
+from schema import old_files  # tests/ is on sys.path (tests/conftest.py)
 from taprig.client.archive import Archive, ArchiveError, Archiver, get_model, put_model, trend
 from taprig.client.archive.db import SCHEMA_VERSION, migrate, migrations
 from taprig.client.archive.store import part_of
-from taprig.schema import wire
+from taprig.daemon.store import FILE_NAME
+from taprig.schema import http, records
 
 from ..conftest import ServedRig
-from .conftest import commit_panel, commit_sets, config, follow_once, rig_bodies, stiffer, until
+from .conftest import (
+    commit_panel,
+    commit_sets,
+    config,
+    follow_once,
+    rig_bodies,
+    serve_rig,
+    stiffer,
+    until,
+)
 from .pg import PgServer
 
 
@@ -38,7 +51,7 @@ def assert_archive_is_rigs(dsn: str, served: list[ServedRig]) -> None:
     assert held.keys() == want.keys()
     for key, (digest, body) in held.items():
         assert (digest, body) == want[key], key
-        assert wire.digest_matches(digest, body)
+        assert http.digest_matches(digest, body)
     with psycopg.connect(dsn) as conn:
         cursors = dict(conn.execute("SELECT rig_id, cursor FROM rigs").fetchall())
     for r in served:
@@ -117,8 +130,8 @@ def test_reader_has_the_mirrors_interface_and_queries_across_rigs(
 
 
 def test_part_type_is_meta_part_else_the_name_without_its_serial() -> None:
-    def named(name: str, meta: dict[str, object]) -> wire.WireTest:
-        return wire.WireTest(name, "hammer", "P0", 3, "2026-12-03T00:00:00Z", 1, (), meta)
+    def named(name: str, meta: dict[str, object]) -> records.WireTest:
+        return records.WireTest(name, "hammer", "P0", 3, "2026-12-03T00:00:00Z", 1, (), meta)
 
     assert part_of(named("bracket-A7-2026-12-03", {})) == "bracket-A7"
     assert part_of(named("housing_0017", {})) == "housing"
@@ -196,3 +209,28 @@ def test_other_bytes_under_an_archived_key_are_refused_and_the_cursor_stays(
         digest = conn.execute("SELECT digest FROM point_sets WHERE id = 2").fetchone()
     seq_of_1 = next(s.seq for s in served.running.store.list_point_sets() if s.id == 1)
     assert cursor == (seq_of_1,) and digest == ("sha-256=:other:",)
+
+
+def test_a_rig_with_schema_1_bodies_is_archived_as_served(archive_dsn: str, tmp_path: Path) -> None:
+    """A rig whose store was written by schema 1 (tests/schema/golden/v1/) and has since
+    committed a schema 2 point set: the archive keeps each body as the rig served it, records
+    the schema each is written in, and reads both (spectra in today's dtypes)."""
+    folder = tmp_path / "old-rig"
+    folder.mkdir()
+    shutil.copyfile(old_files.STORE, folder / FILE_NAME)
+    served = serve_rig(folder, "old-rig")
+    try:
+        commit_sets(served.running, "plate-new", 1)
+        follow_once(archive_dsn, [served])
+        assert_archive_is_rigs(archive_dsn, [served])
+        with psycopg.connect(archive_dsn) as conn:
+            schemas = dict(conn.execute("SELECT id, schema_version FROM point_sets").fetchall())
+        assert schemas == {1: 1, 2: records.SCHEMA_VERSION}
+        with Archive(archive_dsn) as archive:
+            old = archive.load(old_files.TEST)
+            new = archive.load("plate-new")
+        assert old.h1.shape[-1] == 9 and new.h1.shape[-1] == 4097
+        assert old.h1.dtype == new.h1.dtype == np.complex128  # TestData's dtype, both schemas
+    finally:
+        served.loop.close()
+        served.running.close()

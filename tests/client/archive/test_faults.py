@@ -23,7 +23,7 @@ from web.lossy_proxy import LossyProxy  # tests/ is on sys.path (tests/conftest.
 
 from taprig.client.archive import Archiver
 from taprig.client.archive.config import ArchiveConfig
-from taprig.schema import wire
+from taprig.schema import http
 
 from ..conftest import ServedRig
 from .conftest import commit_sets, config, is_root, rig_bodies, source, until
@@ -46,7 +46,7 @@ def assert_whole_up_to_cursor(dsn: str, served: ServedRig) -> int:
     assert set(held) == want, (cursor, sorted(set(held) ^ want))
     bodies = rig_bodies(served)
     for i, (digest, body) in held.items():
-        assert (digest, body) == bodies[i] and wire.digest_matches(digest, body)
+        assert (digest, body) == bodies[i] and http.digest_matches(digest, body)
     return len(held)
 
 
