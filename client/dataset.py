@@ -54,6 +54,8 @@ class TestData:
     grid: the test's whole grid (label, x, y, z, direction), measured or not.
     planned_averages: the averages per point the test asked for (0 when unknown).
     completed_utc: per row, when its point set completed on the rig (ISO 8601 UTC).
+    test_meta: the test's own metadata as the rig keeps it (``sensor_points``, and the
+    ``outline`` text of its faces and lines when one came with the grid).
     """
 
     rig: str
@@ -94,6 +96,7 @@ class TestData:
         """How much of the grid is measured, e.g. "15 of 30 points"."""
         return f"{len(self.points)} of {len(self.grid)} point{'' if len(self.grid) == 1 else 's'}"
     completed_utc: tuple[str, ...] = ()  # per row: when its point set completed, ISO 8601 UTC
+    test_meta: dict[str, Any] = field(default_factory=dict)  # the test's own (sensors, outline)
 
     def driving_point_rows(self) -> list[tuple[int, int]]:
         """(row, response) pairs where the hammer struck the sensor's own point."""
@@ -182,6 +185,7 @@ def assemble(
               **{k: test.meta[k] for k in _TEST_META if k in test.meta}},
         planned_averages=test.averages,
         completed_utc=tuple(ps.completed_utc for ps in rows),
+        test_meta=dict(test.meta),
     )
 
 

@@ -241,10 +241,17 @@ def _fit(data: TestData, result: DemoResult, say: Say) -> None:
 
 def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -> None:
     try:
+        from .modal import ModalModel
         from .plots import write_plots
+        from .view.pictures import write_model_pictures
 
         result.plots = write_plots(data, checked, result.folder / "plots")
-        say(f"   {count(len(result.plots), 'plot')} in {result.folder / 'plots'}")
+        assert result.modes is not None  # the fit ran before the plots
+        moving = write_model_pictures(data, ModalModel.load(result.modes), result.folder / "plots")
+        result.plots += moving
+        say(f"   {count(len(result.plots), 'plot')} in {result.folder / 'plots'}, "
+            f"{count(len(moving) - 1, 'mode shape')} moving (GIF), one a sheet of every mode "
+            "(PNG)")  # fmt: skip
     except ClientError as exc:  # matplotlib missing: the rest of the demo stands
         say(f"   no plots: {exc}")
 

@@ -26,6 +26,11 @@ meta           ()          unicode     JSON (NaN, inf as null): the point sets' 
                                        points, rejections, and per row the point-set id,
                                        version and seq; coverage ("15 of 30 points") and
                                        unmeasured_points; sensors (each response's place)
+geometry       ()          unicode     JSON (npz and HDF5): the structure's points (label,
+                                       xyz m, direction vector), faces (name, triangles
+                                       of point indices, unit normal) and lines: the
+                                       test's outline over its grid, else the grid alone
+                                       (client/view/geometry.py, Geometry.to_dict)
 =============  ==========  ==========  ====================================================
 
 * npz: ``numpy.savez``, uncompressed: measured FRF floats compress only to about 0.6 of
@@ -67,7 +72,7 @@ from .dataset import TestData, jsonable
 from .errors import ClientError
 from .words import extra_hint
 
-__all__ = ["FORMATS", "QUANTITIES", "UNITS", "export", "frf_arrays", "meta_json"]
+__all__ = ["FORMATS", "QUANTITIES", "UNITS", "export", "frf_arrays", "geometry_json", "meta_json"]
 
 Format = Literal["npz", "hdf5", "csv"]
 Quantity = Literal["accelerance", "mobility", "receptance"]
@@ -225,6 +230,13 @@ def _common(data: TestData) -> dict[str, np.ndarray]:
     }
 
 
+def geometry_json(data: TestData) -> str:
+    """The test's geometry as one JSON text (its outline over its grid, else the grid)."""
+    from .view.outline import geometry_of
+
+    return json.dumps(geometry_of(data).to_dict(), sort_keys=True, allow_nan=False)
+
+
 def _write_npz(data: TestData, arrays: dict[str, Any], path: Path) -> None:
     # Typed as Any: numpy's stub also has a bool keyword (allow_pickle) among the names.
     named: dict[str, Any] = {
@@ -233,6 +245,7 @@ def _write_npz(data: TestData, arrays: dict[str, Any], path: Path) -> None:
         "H2": arrays["H2"],
         "coherence": arrays["coherence"],
         "meta": np.array(arrays["meta"], dtype=np.str_),
+        "geometry": np.array(geometry_json(data), dtype=np.str_),
         **_common(data),
     }
     with open(path, "wb") as fh:
@@ -257,6 +270,7 @@ def _write_hdf5(data: TestData, arrays: dict[str, Any], path: Path) -> None:
             else:
                 fh.create_dataset(name, data=value)
         fh.create_dataset("meta", data=arrays["meta"], dtype=text)
+        fh.create_dataset("geometry", data=geometry_json(data), dtype=text)
         fh.attrs["quantity"] = meta["quantity"]
         fh.attrs["unit"] = meta["unit"]
         fh.attrs["meta"] = arrays["meta"]

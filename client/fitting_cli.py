@@ -1,4 +1,6 @@
-"""`taprig fit`: a mirrored test's modes (client/modal/), as a table, JSON, a file, plots.
+"""`taprig fit`: a mirrored or archived test's modes (client/modal/), as a table, JSON, a
+file, plots (with a GIF of each mode moving, client/view/pictures.py); with
+`--archive DSN --keep`, the model is also kept in the archive.
 
 Registered on the command line by `register(app)` from client/cli.py, which shares its
 load helper, option types, error guard and output helper with every other command. The
@@ -13,12 +15,16 @@ from typing import Annotated
 import numpy as np
 import typer
 
+from .dataset import TestData
 from .modal.model import ModalModel
 from .words import count
 
 __all__ = ["mode_table", "parse_orders", "parse_pick", "register"]
 
 SHOW_AFTER_S = 1.0  # a fit that takes longer than this shows a progress bar
+KeepOption = Annotated[
+    bool, typer.Option("--keep", help="store the model in the archive (with --archive)")
+]
 
 
 def parse_orders(text: str | None) -> tuple[int, int] | None:
@@ -77,6 +83,7 @@ def mode_table(model: ModalModel) -> list[str]:
 def register(app: typer.Typer) -> None:
     """Add `fit` to the client's command line."""
     from .cli import (
+        ArchiveOption,
         BandOption,
         JsonOption,
         RigOption,
@@ -105,23 +112,44 @@ def register(app: typer.Typer) -> None:
             Path | None, typer.Option(help="draw PNG plots into this folder (plots extra)")
         ] = None,
         rig: RigOption = None,
+        archive: ArchiveOption = None,
+        keep: KeepOption = False,
         as_json: JsonOption = False,
     ) -> None:
-        """Modes of a mirrored test: frequency, damping, shape (pLSCF, LSFD; offline)."""
+        """Modes of a mirrored or archived test: frequency, damping, shape (pLSCF, LSFD)."""
+        from .errors import ClientError
         from .modal import fit
 
         with _guard():
-            data = _load(rig, test)
+            if keep and archive is None:
+                raise ClientError("--keep stores the model in an archive: add --archive DSN")
+            data = _load(rig, test, archive)
             with _progress(as_json, "fitting", 1, SHOW_AFTER_S) as bar:
                 model = fit(data, _band(band), parse_orders(orders), parse_pick(pick), bar)
             saved = model.save(out) if out is not None else None
+            kept = _keep(archive, rig, test, model) if keep and archive is not None else None
             drawn: list[Path] = []
             if plots is not None:
-                from .modal_plots import write_modal_plots
-
-                drawn = write_modal_plots(model, plots)
+                drawn = _draw(data, model, plots)
         obj = {**model.to_dict(), "file": None if saved is None else str(saved),
-               "plots": [str(p) for p in drawn]}  # fmt: skip
+               "plots": [str(p) for p in drawn], "archived": kept}  # fmt: skip
         _emit(as_json, obj, lambda: [*mode_table(model),
                                      *([f"model {saved}"] if saved else []),
+                                     *([f"kept in the archive, made {kept['created_utc']}, "
+                                        f"sha256 {kept['sha256'][:16]}"] if kept else []),
                                      *(f"plot {p}" for p in drawn)])  # fmt: skip
+
+
+def _draw(data: TestData, model: ModalModel, folder: Path) -> list[Path]:
+    """The fit's PNG plots, then each mode moving on the structure (GIF) and their sheet."""
+    from .modal_plots import write_modal_plots
+    from .view.pictures import write_model_pictures
+
+    return [*write_modal_plots(model, folder), *write_model_pictures(data, model, folder)]
+
+
+def _keep(dsn: str, rig: str | None, test: str, model: ModalModel) -> dict[str, str]:
+    """Store `model` beside `test` in the archive; when and under which digest (JSON-ready)."""
+    from .archive.cli import keep_model
+
+    return keep_model(dsn, rig, test, model.npz_bytes(), model.to_dict())

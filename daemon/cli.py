@@ -234,6 +234,15 @@ class Roving(StrEnum):
     sensor = "sensor"
 
 
+OutlineOption = Annotated[
+    Path | None,
+    typer.Option(
+        help="the structure's faces and lines for the new test (outline text; default: "
+        "<grid>.outline beside the --grid file, when there is one)"
+    ),
+]
+
+
 @app.command()
 def run(
     config: ConfigOption = None,
@@ -246,6 +255,7 @@ def run(
             "on the virtual device a new test takes the virtual structure's grid"
         ),
     ] = None,
+    outline: OutlineOption = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
     reference: ReferenceOption = None,
     sensor_at: SensorAtOption = None,
@@ -287,7 +297,8 @@ def run(
         places = tuple(_sensor_flag(text) for text in sensor_at or [])
         options = RunOptions(test, grid, RovingMode(roving.value), reference, duration,
                              virtual_taps, virtual_double_hits, truth, json_events,
-                             virtual_control, virtual_speed, places)  # fmt: skip
+                             virtual_control, outline=outline, virtual_speed=virtual_speed,
+                             sensor_at=places)  # fmt: skip
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))
 

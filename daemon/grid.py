@@ -1,7 +1,10 @@
-"""Grid CSV: the points of a test from text with header ``label,x,y,z[,direction]``.
+"""Grid CSV: the points of a test from text with header ``label,x,y,z[,direction]``, and
+the outline (the structure's faces and lines, taprig.schema.outline) that may come with it.
 
-Used by `taprigd run --grid FILE` and by the service's ``grid_csv`` body field. Coordinates
-in metres; the direction one of +x -x +y -y +z -z ("+z" when left out).
+Used by `taprigd run --grid FILE [--outline FILE]` (an outline named like the grid, with
+the suffix ``.outline``, is taken from beside it) and by the service's ``grid_csv`` and
+``outline`` body fields. Coordinates in metres; the direction one of +x -x +y -y +z -z
+("+z" when left out).
 """
 
 from __future__ import annotations
@@ -10,6 +13,9 @@ import csv
 import io
 import math
 import re
+from pathlib import Path
+
+from taprig.schema.outline import META_KEY, OutlineError, parse_outline
 
 from .errors import GridError
 from .records import GridPoint
@@ -89,3 +95,40 @@ def _grid_number(line: int, field: str, cell: str) -> float:
     if not math.isfinite(value):
         raise GridError(f"grid CSV line {line}, field {field!r}: {cell!r} is not finite")
     return value
+
+
+OUTLINE_SUFFIX = ".outline"  # <grid CSV's stem>.outline beside the grid is its outline
+
+
+def outline_beside(grid_csv: Path) -> Path | None:
+    """The outline file named like `grid_csv` beside it, None when there is none."""
+    path = grid_csv.with_suffix(OUTLINE_SUFFIX)
+    return path if path.is_file() else None
+
+
+def check_outline(text: str, grid: list[GridPoint], source: str = "outline") -> str:
+    """`text` when it is an outline of `grid`; GridError "<source> line N: ..." otherwise."""
+    rows = [(p.label, p.x, p.y, p.z, p.direction) for p in grid]
+    try:
+        parse_outline(text, rows, source)
+    except OutlineError as exc:
+        raise GridError(str(exc)) from None
+    return text
+
+
+def read_outline(path: Path, grid: list[GridPoint]) -> str:
+    """The text of outline file `path`, checked against `grid` (GridError naming its line)."""
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise GridError(f"outline {path}: cannot read it ({exc})") from None
+    return check_outline(text, grid, str(path))
+
+
+def test_meta(sensor_points: dict[str, str] | None, outline: str | None) -> dict[str, object]:
+    """A new test's metadata: the point each response sensor sits on and, when one came with
+    the grid, the outline's text (checked by `check_outline`), so it travels with the test."""
+    meta: dict[str, object] = {"sensor_points": sensor_points or {}}
+    if outline is not None:
+        meta[META_KEY] = outline
+    return meta

@@ -40,6 +40,7 @@ from .capture.spectra import single_average_warning
 from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
+from .grid import test_meta
 from .records import GridPoint, HitRecord, PointSet, RovingMode
 from .rigstate import RigEvent, RigStats, RigView, hit_fields
 from .room import Room
@@ -139,14 +140,17 @@ class Rig:
 
     def create_test(self, name: str, grid: list[GridPoint],
                     roving_mode: RovingMode = RovingMode.HAMMER, reference: str | None = None,
-                    averages: int | None = None, sensor_points: Places | None = None) -> list[str]:
+                    averages: int | None = None, sensor_points: Places | None = None,
+                    outline: str | None = None) -> list[str]:  # fmt: skip
         """Store a new test; returns the response channels whose place is still unknown
-        (`placement.test_meta`: sensor places, never guessed; the grid's warnings, logged)."""
+        (`placement.test_meta`: sensor places, never guessed; the grid's warnings, logged;
+        the outline's text, when one came with the grid)."""
         try:
             ref, meta = placement.test_meta(roving_mode is RovingMode.HAMMER, grid, reference,
                                             self.config.response_channels, sensor_points or {})
         except ValueError as exc:
             raise SessionError(f"test {name!r}: {exc}") from None
+        meta = {**test_meta(None, outline), **meta}
         for text in meta["grid_warnings"]:
             log.warning("test %s: %s", name, text)
         avg = averages if averages is not None else self.config.capture.averages

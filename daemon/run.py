@@ -18,9 +18,9 @@ from pathlib import Path
 
 from . import placement
 from .config import Config
-from .errors import DiskLowError, SessionError
+from .errors import DiskLowError, GridError, SessionError
 from .eventtext import event_text
-from .grid import import_grid_csv
+from .grid import import_grid_csv, outline_beside, read_outline
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
 from .rig import Rig
@@ -46,6 +46,7 @@ class RunOptions:
     truth: Path | None = None
     json_events: bool = False
     virtual_control: int | None = None
+    outline: Path | None = None  # default: <grid>.outline beside the grid, when there is one
     virtual_speed: float = 1.0  # simulated seconds per wall second (virtual device only)
     sensor_at: tuple[tuple[str, str, str], ...] = ()  # (label, where, direction) per --sensor-at
 
@@ -122,8 +123,9 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
         points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
     else:
         points = []
+    outline = _outline(opt, points)
     if points:
-        _create(running, name, points, opt)
+        _create(running, name, points, opt, outline)
     wait_for_device(rig)
     rig.select_test(name)
     try:
@@ -132,7 +134,9 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
         log.warning("%s", exc)
 
 
-def _create(running: RunningRig, name: str, points: list[GridPoint], opt: RunOptions) -> None:
+def _create(
+    running: RunningRig, name: str, points: list[GridPoint], opt: RunOptions, outline: str | None
+) -> None:
     """Create the test; a roving-hammer test whose sensor places are not all known is
     refused before anything is stored (the virtual structure knows where its own sit)."""
     given: dict[str, str | tuple[str, str]] = {}
@@ -153,7 +157,20 @@ def _create(running: RunningRig, name: str, points: list[GridPoint], opt: RunOpt
             raise SessionError(f"test {name!r}: {exc}") from None
         if missing:
             raise SessionError(placement.missing_message(name, missing))
-    running.rig.create_test(name, points, opt.roving, opt.reference, sensor_points=given)
+    running.rig.create_test(name, points, opt.roving, opt.reference, sensor_points=given,
+                            outline=outline)  # fmt: skip
+
+
+def _outline(opt: RunOptions, points: list[GridPoint]) -> str | None:
+    """The outline text for a new test: --outline, else the one beside --grid; checked."""
+    path = opt.outline
+    if path is None and opt.grid is not None:
+        path = outline_beside(opt.grid)
+    if path is None:
+        return None
+    if not points:
+        raise GridError(f"outline {path}: it describes a new test's grid; give --grid too")
+    return read_outline(path, points)
 
 
 def simulated_tap(running: RunningRig) -> None:

@@ -39,7 +39,7 @@ NOT_YET_IMPORTED = {}
 # Extras whose own package may import them at module level: nothing outside it imports it.
 EXTRA_HOMES = {"psycopg": "taprig.client.archive"}
 # What each import name is installed as (import name → distribution).
-DISTRIBUTIONS = {"serial": "pyserial"}
+DISTRIBUTIONS = {"serial": "pyserial", "PIL": "pillow"}
 
 BASE = ["__init__", "errors", "records", "placement", "wirebody", "grid", "identity", "display",
         "notify", "txt", "redact", "room", "resume", "config.__init__", "config.setting",

@@ -2,7 +2,8 @@
 
 run (follow rigs into the database until stopped, or one pass with --once), migrate,
 status, find (tests by rig, name, date, part type) and trend (peak frequencies of one part
-type over time). `archived_tests` and `load` serve `taprig tests/export/check --archive`.
+type over time). `archived_tests` and `load` serve `taprig tests/export/check/fit --archive`,
+`keep_model` serves `taprig fit --keep`.
 Every command takes `--json`; a DSN is only ever printed without its password.
 """
 
@@ -14,6 +15,7 @@ import os
 import signal
 import threading
 from collections.abc import Callable
+from datetime import UTC
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any, TypeVar
 
@@ -265,6 +267,18 @@ def load(dsn: str, rig: str | None, test: str) -> TestData:
 
     with Archive(_dsn(dsn), rig) as archive:
         return archive.load(test)
+
+
+def keep_model(dsn: str, rig: str | None, test: str, npz: bytes,
+               summary: dict[str, Any]) -> dict[str, str]:  # fmt: skip
+    """`taprig fit --archive DSN --keep`: the model's npz bytes stored beside `test`."""
+    from .models import put_model
+    from .reader import Archive
+
+    with Archive(_dsn(dsn), rig) as archive:
+        kept = put_model(archive, test, npz, summary)
+    return {"rig_id": kept.rig_id, "test": kept.test, "sha256": kept.digest,
+            "created_utc": kept.created.astimezone(UTC).isoformat()}  # fmt: skip
 
 
 def archived_tests(dsn: str, rig: str | None) -> tuple[dict[str, Any], list[str]]:

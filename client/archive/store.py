@@ -11,6 +11,7 @@ a point set already there with the same digest is skipped, with another digest r
 
 from __future__ import annotations
 
+import contextlib
 import json
 import re
 from typing import Final
@@ -83,7 +84,17 @@ class RigWriter:
             raise
 
     def close(self) -> None:
-        """Close the connection (the server releases the lock with the session)."""
+        """Release the rig's lock, then close the connection.
+
+        Unlocked explicitly: the server would release it with the session, but only once it
+        has noticed that the session ended, so a follower started right after this one could
+        still find the lock held and give up its pass.
+        """
+        if self._locked and not self._conn.closed:
+            with contextlib.suppress(psycopg.Error):  # then the session's end releases it
+                self._conn.execute(
+                    "SELECT pg_advisory_unlock(%s, hashtext(%s))", (LOCK_SPACE, self.rig_id)
+                )
         self._conn.close()
         self._locked = False
 

@@ -249,4 +249,19 @@ def _assemble(p: _Problem, chosen: stability.Chosen, diagram: stability.Diagram)
         measured=h,
         synthesized=res.synthesized,
         meta=meta,
+        geometry=_geometry(data, notes),
     )
+
+
+def _geometry(data: TestData, notes: list[str]) -> dict[str, Any] | None:
+    """The test's geometry for the model (its outline, else its grid); a note when the
+    outline it carries cannot be drawn (the rig checked it, so only a geometry the
+    workstation cannot triangulate gets here)."""
+    from ..view.geometry import GeometryError
+    from ..view.outline import geometry_of
+
+    try:
+        return geometry_of(data).to_dict()
+    except GeometryError as exc:
+        notes.append(f"no geometry: {exc}")
+        return None

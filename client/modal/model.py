@@ -8,6 +8,7 @@ the same keys in npz and HDF5 (h5py, the ``hdf5`` extra), and `to_dict` gives th
 
 from __future__ import annotations
 
+import io
 import json
 import math
 import os
@@ -25,6 +26,8 @@ ComplexArray = NDArray[np.complex128]
 IntArray = NDArray[np.int64]
 
 _STRINGS = ("point", "reference", "scaling")
+_JSON = ("meta", "geometry")
+_OPTIONAL = ("geometry",)  # files written before the field existed read without it
 
 
 class ModelFileError(ValueError):
@@ -59,6 +62,8 @@ class ModalModel:
     measured                  (P, R, F)  the accelerance fitted, (m/s²)/N
     synthesized               (P, R, F)  the model's accelerance, (m/s²)/N
     meta                      JSON       test, band, orders, tolerances, τ, scaling, notes
+    geometry                  JSON       the test's geometry (Geometry.to_dict of client/view:
+                                         points, faces, lines) or null; optional in files
     ========================  =========  ====================================================
     """
 
@@ -83,6 +88,7 @@ class ModalModel:
     measured: ComplexArray
     synthesized: ComplexArray
     meta: dict[str, Any] = field(default_factory=dict)
+    geometry: dict[str, Any] | None = None
 
     @property
     def n_modes(self) -> int:
@@ -121,8 +127,7 @@ class ModalModel:
         suffix = path.suffix.lower()
         try:
             if suffix == ".npz":
-                with path.open("wb") as fh:
-                    np.savez_compressed(fh, **arrays)  # type: ignore[arg-type]
+                path.write_bytes(self.npz_bytes())
             elif suffix in (".h5", ".hdf5"):
                 h5py = _h5py()
                 with h5py.File(path, "w") as f:
@@ -137,6 +142,12 @@ class ModalModel:
         except OSError as exc:
             raise ModelFileError(f"{path}: {exc.strerror or exc}") from None
         return path
+
+    def npz_bytes(self) -> bytes:
+        """The model as the bytes of its .npz file (what `save` writes; the archive keeps it)."""
+        buffer = io.BytesIO()
+        np.savez_compressed(buffer, **self._arrays())  # type: ignore[arg-type]
+        return buffer.getvalue()
 
     @classmethod
     def load(cls, path: str | os.PathLike[str]) -> ModalModel:
@@ -160,7 +171,7 @@ class ModalModel:
         out: dict[str, np.ndarray] = {}
         for f in fields(self):
             value = getattr(self, f.name)
-            if f.name == "meta":
+            if f.name in _JSON:
                 out[f.name] = np.array(json.dumps(value, default=str))
             elif f.name == "flags":
                 out[f.name] = np.array([",".join(v) for v in value], dtype=str).reshape(-1)
@@ -172,13 +183,15 @@ class ModalModel:
 
     @classmethod
     def _from_arrays(cls, arrays: dict[str, np.ndarray], path: Path) -> ModalModel:
-        missing = [f.name for f in fields(cls) if f.name not in arrays]
+        missing = [f.name for f in fields(cls) if f.name not in arrays and f.name not in _OPTIONAL]
         if missing:
             raise ModelFileError(f"{path}: not a modal model (missing {', '.join(missing)})")
         kw: dict[str, Any] = {}
         for f in fields(cls):
+            if f.name not in arrays:  # an optional field a file written before it lacks
+                continue
             value = arrays[f.name]
-            if f.name == "meta":
+            if f.name in _JSON:
                 kw[f.name] = json.loads(str(value))
             elif f.name == "flags":
                 kw[f.name] = tuple(tuple(c for c in str(v).split(",") if c) for v in value)

@@ -33,10 +33,9 @@ def _latest_test(rig: str | None) -> str:
 
 
 def _geometry(data: TestData, path: Path | None) -> Geometry:
-    from .geometry import from_grid
-    from .outline import read_outline
+    from .outline import geometry_of, read_outline
 
-    return from_grid(data.grid) if path is None else read_outline(path, data.grid)
+    return geometry_of(data) if path is None else read_outline(path, data.grid)
 
 
 def view(
@@ -49,7 +48,10 @@ def view(
     port: Annotated[int, typer.Option(min=0, max=65535, help="loopback port (0: any free)")] = 0,
     geometry: Annotated[
         Path | None,
-        typer.Option(help="outline file of the structure's faces and lines (default: the grid)"),
+        typer.Option(
+            help="outline file of the structure's faces and lines (default: the "
+            "test's own outline, else its grid)"
+        ),
     ] = None,
     save: Annotated[
         Path | None,

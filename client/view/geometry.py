@@ -20,6 +20,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from taprig.schema.outline import PLANAR_TOLERANCE, OutlineError, in_plane, plane_of
+
 from ..errors import ClientError
 
 __all__ = [
@@ -35,7 +37,6 @@ __all__ = [
 FloatArray = NDArray[np.float64]
 IntArray = NDArray[np.int64]
 
-PLANAR_TOLERANCE = 1e-3  # largest distance from the face's plane, as a share of its size
 _AXES = {"x": 0, "y": 1, "z": 2}
 
 
@@ -155,28 +156,6 @@ def direction_vector(direction: str) -> FloatArray:
     return v
 
 
-def plane_of(xyz: FloatArray) -> tuple[FloatArray, FloatArray, float]:
-    """(centroid (3,), frame (3, 3) whose rows are e1, e2, normal, out-of-plane share).
-
-    The least-squares plane through the points (singular value decomposition of the centred
-    coordinates); the share is the largest distance from it over the points' largest
-    in-plane extent. e1 follows the global x axis where the plane allows (else y), so a
-    face in the xy plane keeps its x and y.
-    """
-    centre = xyz.mean(axis=0)
-    _, _, vt = np.linalg.svd(xyz - centre)
-    normal = vt[2] / np.linalg.norm(vt[2])
-    e1 = np.eye(3)[0] - normal * normal[0]
-    if np.linalg.norm(e1) < 0.5:
-        e1 = np.eye(3)[1] - normal * normal[1]
-    e1 /= np.linalg.norm(e1)
-    e2 = np.cross(normal, e1)
-    local = (xyz - centre) @ np.stack([e1, e2]).T
-    extent = float(np.ptp(local, axis=0).max()) if len(xyz) else 0.0
-    off = float(np.abs((xyz - centre) @ normal).max()) if len(xyz) else 0.0
-    return centre, np.stack([e1, e2, normal]), off / extent if extent > 0 else np.inf
-
-
 def triangulate(name: str, xyz: FloatArray, members: IntArray) -> IntArray:
     """Triangles (T, 3) over `members` (indices into `xyz`, (P, 3) m) of a planar face.
 
@@ -187,19 +166,11 @@ def triangulate(name: str, xyz: FloatArray, members: IntArray) -> IntArray:
     """
     from scipy.spatial import Delaunay, QhullError
 
-    if len(members) < 3:
-        raise GeometryError(f"face {name!r} has {len(members)} points; a face needs 3 or more")
-    pts = xyz[members]
-    centre, frame, off = plane_of(pts)
-    local = (pts - centre) @ frame[:2].T
+    try:
+        local = in_plane(name, xyz[members])
+    except OutlineError as exc:
+        raise GeometryError(str(exc)) from None
     extent = np.ptp(local, axis=0)
-    if extent.min() <= 1e-9 * max(float(extent.max()), 1e-12):
-        raise GeometryError(f"face {name!r} is degenerate: its points lie on one line")
-    if off > PLANAR_TOLERANCE:
-        raise GeometryError(
-            f"face {name!r} is not planar (a point lies {off:.1%} of its size off its plane); "
-            "give its triangles or quads"
-        )
     try:
         simplices = Delaunay(local).simplices
     except QhullError as exc:  # coincident points and the like

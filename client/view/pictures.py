@@ -3,21 +3,27 @@
 Entry point: ``write_mode_pictures(data, modes, geometry, folder) -> list[Path]`` writes
 
 * ``mode-<n>-<f>Hz.gif``: the mode moving on the structure through one cycle in `frames`
-  frames (matplotlib.animation with its Pillow writer), a fixed oblique view of the 3-D
-  geometry, faces coloured by displacement, nodal lines in black;
+  frames (FRAMES, at DPI), a fixed oblique view of the 3-D geometry, faces coloured by
+  displacement, nodal lines in black (scene.py draws them);
 * ``modes-sheet.png``: every mode at its largest deflection, side by side.
 
 Every picture carries the test's name and date, the mode's frequency (Hz) and damping
 ratio (%), where the modes come from (a fit, or the quick-look peaks), and the point labels
 when there are at most `LABELS_UP_TO` points. The fit command can call the same function.
 matplotlib (the ``plots`` extra) is imported only inside these functions, as in plots.py.
+
+Speed: a GIF's titles, colour bar, labels and rest mesh are drawn once; each frame restores
+that background and draws only the moving artists over it (matplotlib's blitting: Agg's
+``copy_from_bbox``/``restore_region`` and ``Axes.draw_artist``), and Pillow writes the
+frames with one palette made from the first (no dithering: flat colours stay flat).
+tests/bench/bench_view.py times it per mode.
 """
 
 from __future__ import annotations
 
 import math
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -26,82 +32,22 @@ from ..dataset import TestData
 from ..plots import _figure
 from .geometry import Geometry
 from .modes import ModeSet
-from .payload import AMPLITUDE_SHARE, normalise, spread
+from .payload import normalise, spread
+from .scene import Scene, deformed
 
-if TYPE_CHECKING:
-    from matplotlib.axes import Axes
-    from matplotlib.colors import Colormap
-
-__all__ = ["LABELS_UP_TO", "deformed", "write_mode_pictures"]
+__all__ = [
+    "DPI",
+    "FRAMES",
+    "LABELS_UP_TO",
+    "deformed",
+    "write_mode_pictures",
+    "write_model_pictures",
+]
 
 LABELS_UP_TO = 60
-YAW, PITCH = -0.6, 0.75  # rad: the oblique view the page also opens with
-# The page's diverging scale (web/palette.js): deep teal, pale sand, rust.
-SCALE = ((22 / 255, 92 / 255, 107 / 255), (238 / 255, 229 / 255, 205 / 255),
-         (176 / 255, 64 / 255, 38 / 255))  # fmt: skip
-FloatArray = NDArray[np.float64]
-
-
-def deformed(
-    geometry: Geometry, phi: NDArray[np.complex128], phase: float, amp: float
-) -> FloatArray:
-    """Positions (G, 3), m: x + amp·scale·Re(φ e^{iθ})·direction, scale = AMPLITUDE_SHARE
-    of the structure's size, φ over the geometry's points (largest magnitude 1)."""
-    value = (phi * np.exp(1j * phase)).real
-    scale = AMPLITUDE_SHARE * geometry.size_m
-    out: FloatArray = geometry.xyz + amp * scale * value[:, None] * geometry.directions
-    return out
-
-
-def _project(xyz: FloatArray, centre: FloatArray) -> FloatArray:
-    """Screen x, y and depth (N, 3) of the page's orthographic view (web/shape.js)."""
-    x, y, z = (xyz - centre).T
-    a = math.cos(YAW) * x - math.sin(YAW) * y
-    b = math.sin(YAW) * x + math.cos(YAW) * y
-    return np.stack([a, math.cos(PITCH) * z + math.sin(PITCH) * b,
-                     math.sin(PITCH) * z - math.cos(PITCH) * b], axis=1)  # fmt: skip
-
-
-def _colormap() -> Colormap:
-    from matplotlib.colors import LinearSegmentedColormap
-
-    return LinearSegmentedColormap.from_list("taprig-signed", list(SCALE))
-
-
-def _draw(ax: Axes, geometry: Geometry, phi: NDArray[np.complex128], phase: float,
-          labels: bool) -> Any:  # fmt: skip
-    """One frame on `ax`: faces far to near, coloured; nodal lines; points; the mappable."""
-    centre = geometry.xyz.mean(axis=0)
-    rest = _project(geometry.xyz, centre)
-    screen = _project(deformed(geometry, phi, phase, 1.0), centre)
-    value = (phi * np.exp(1j * phase)).real
-    ax.clear()
-    ax.set_axis_off()
-    ax.set_aspect("equal")
-    lim = 0.62 * geometry.size_m
-    ax.set_xlim(-lim, lim)
-    ax.set_ylim(-lim, lim)
-    tri = geometry.triangles
-    mappable = None
-    if len(tri):
-        from matplotlib.tri import Triangulation
-
-        order = np.argsort(-screen[tri, 2].sum(axis=1))
-        mesh = Triangulation(screen[:, 0], screen[:, 1], tri[order])
-        mappable = ax.tripcolor(mesh, facecolors=value[tri[order]].mean(axis=1), cmap=_colormap(),
-                                vmin=-1, vmax=1, edgecolors="face", linewidth=0.3)  # fmt: skip
-        ax.triplot(Triangulation(rest[:, 0], rest[:, 1], tri), color="0.75", lw=0.4, ls=":")
-        re = phi.real
-        if re.min() < 0 < re.max():
-            ax.tricontour(mesh, re, levels=[0.0], colors="black", linewidths=1.6)
-    for a, b in geometry.lines:
-        ax.plot(screen[[a, b], 0], screen[[a, b], 1], color="#1f2b30", lw=1.2)
-    dots = ax.scatter(screen[:, 0], screen[:, 1], c=value, cmap=_colormap(), vmin=-1, vmax=1,
-                      s=10, edgecolors="#1f2b30", linewidths=0.5, zorder=3)  # fmt: skip
-    if labels:
-        for (x, y, _), label in zip(screen, geometry.labels, strict=True):
-            ax.annotate(label, (x, y), xytext=(3, 3), textcoords="offset points", fontsize=6)
-    return mappable if mappable is not None else dots
+FRAMES = 24  # frames per cycle of a mode's GIF
+DPI = 100  # the GIF's resolution: 640 × 520 pixels
+FPS = 12  # GIF frames a second: one cycle in 2 s
 
 
 def _caption(data: TestData, modes: ModeSet, m: int) -> str:
@@ -118,25 +64,53 @@ def _heading(data: TestData, modes: ModeSet) -> str:
 
 def _gif(data: TestData, modes: ModeSet, geometry: Geometry, phi: NDArray[np.complex128],
          m: int, path: Path, frames: int) -> Path:  # fmt: skip
-    from matplotlib.animation import PillowWriter
+    from PIL import Image
 
     fig = _figure(6.4, 5.2, fixed=True)
-    fig.subplots_adjust(left=0.02, right=0.86, top=0.88, bottom=0.02)
+    fig.set_dpi(DPI)
     ax = fig.add_axes((0.02, 0.02, 0.8, 0.84))
     bar = fig.add_axes((0.86, 0.2, 0.025, 0.5))
-    labels = len(geometry.labels) <= LABELS_UP_TO
-    fig.colorbar(_draw(ax, geometry, phi, 0.0, labels), cax=bar,
+    scene = Scene(ax, geometry, phi, len(geometry.labels) <= LABELS_UP_TO, animated=True)
+    fig.colorbar(scene.mappable, cax=bar,
                  label="displacement along the point's direction, largest = 1")  # fmt: skip
     fig.suptitle(f"{_heading(data, modes)}\n{_caption(data, modes, m)} "
                  f"(deflection exaggerated; structure {geometry.size_m:.2f} m across)",
                  fontsize=8)  # fmt: skip
-    # The writer grabs one frame per draw: one draw per frame, not FuncAnimation's three.
-    writer = PillowWriter(fps=12)
-    with writer.saving(fig, str(path), dpi=80):
-        for k in range(frames):
-            _draw(ax, geometry, phi, 2 * math.pi * k / frames, labels)
-            writer.grab_frame()
+    canvas = fig.canvas
+    canvas.draw()  # everything but the moving artists and the labels
+    background = canvas.copy_from_bbox(fig.bbox)  # type: ignore[attr-defined]
+    canvas.get_renderer().clear()  # type: ignore[attr-defined]  # transparent
+    for label in scene.labels:  # drawn once, laid over every frame
+        ax.draw_artist(label)
+    labels = _rgba(canvas).copy()
+    images = []
+    for k in range(frames):
+        canvas.restore_region(background)  # type: ignore[attr-defined]
+        for artist in scene.show(2 * math.pi * k / frames):
+            ax.draw_artist(artist)
+        frame = _rgba(canvas)
+        if scene.labels:
+            frame = Image.alpha_composite(frame, labels)
+        images.append(frame.convert("RGB"))
+    _write_gif(images, path)
     return path
+
+
+def _rgba(canvas: Any) -> Any:
+    """The canvas's pixels as a Pillow RGBA image, read in place."""
+    from PIL import Image
+
+    width, height = canvas.get_width_height()
+    return Image.frombuffer("RGBA", (width, height), canvas.buffer_rgba(), "raw", "RGBA", 0, 1)
+
+
+def _write_gif(images: list[Any], path: Path) -> None:
+    """Frames into one looping GIF, all on the first frame's palette (made once)."""
+    from PIL import Image
+
+    first = images[0].quantize(colors=255, method=Image.Quantize.MEDIANCUT)
+    rest = [im.quantize(palette=first, dither=Image.Dither.NONE) for im in images[1:]]
+    first.save(path, save_all=True, append_images=rest, duration=round(1000 / FPS), loop=0)
 
 
 def _sheet(data: TestData, modes: ModeSet, geometry: Geometry, shapes: NDArray[np.complex128],
@@ -152,7 +126,7 @@ def _sheet(data: TestData, modes: ModeSet, geometry: Geometry, shapes: NDArray[n
         if m >= len(modes):
             ax.set_axis_off()
             continue
-        _draw(ax, geometry, shapes[m], 0.0, labels)
+        Scene(ax, geometry, shapes[m], labels and m == 0)  # the points named once
         ax.set_title(_caption(data, modes, m), fontsize=9)
     fig.suptitle(f"{_heading(data, modes)}\ncolour: displacement along each point's direction "
                  "(teal −, rust +, largest = 1); black: nodal lines", fontsize=9)  # fmt: skip
@@ -161,7 +135,7 @@ def _sheet(data: TestData, modes: ModeSet, geometry: Geometry, shapes: NDArray[n
 
 
 def write_mode_pictures(data: TestData, modes: ModeSet, geometry: Geometry,
-                        folder: str | Path, frames: int = 16) -> list[Path]:  # fmt: skip
+                        folder: str | Path, frames: int = FRAMES) -> list[Path]:  # fmt: skip
     """Write one GIF per mode (`frames` frames a cycle) and the PNG sheet into `folder`
     (made if missing); the paths written, GIFs first."""
     out = Path(folder)
@@ -174,3 +148,14 @@ def write_mode_pictures(data: TestData, modes: ModeSet, geometry: Geometry,
     ]  # fmt: skip
     written.append(_sheet(data, modes, geometry, shapes, out / "modes-sheet.png"))
     return written
+
+
+def write_model_pictures(data: TestData, model: Any, folder: str | Path) -> list[Path]:
+    """`write_mode_pictures` of a fitted modal model (client/modal's ModalModel) of `data`,
+    on the geometry the model carries (else the test's own: its outline, else its grid)."""
+    from .geometry import Geometry as Shape
+    from .modes import from_model
+    from .outline import geometry_of
+
+    geometry = Shape.from_dict(model.geometry) if model.geometry else geometry_of(data)
+    return write_mode_pictures(data, from_model(model, data), geometry, folder)

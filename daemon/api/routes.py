@@ -14,6 +14,7 @@ from typing import Any, Final
 from aiohttp import web
 
 from taprig.schema import http
+from taprig.schema.outline import MAX_CHARS as OUTLINE_MAX_CHARS
 
 from ..records import RovingMode
 
@@ -80,6 +81,12 @@ CREATE_TEST: Final[Payload] = {
             "type": "string",
             "maxLength": 1 << 20,
             "description": "CSV text with header label,x,y,z[,direction], metres",
+        },
+        "outline": {
+            "type": "string",
+            "maxLength": OUTLINE_MAX_CHARS,
+            "description": "the structure's faces and lines over the grid (outline text: "
+            "point, face, points, tri, quad, line records); kept with the test",
         },
         "roving_mode": {"type": "string", "enum": [m.value for m in RovingMode]},
         "reference": {

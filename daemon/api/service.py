@@ -329,6 +329,7 @@ class Service:
 
     async def _create(self, body: Payload) -> Outcome:
         grid = validate.grid(body)
+        outline = validate.outline(body, grid)
         mode = RovingMode(body.get("roving_mode", "hammer"))
         reference = body.get("reference")
         if mode is RovingMode.SENSOR and reference not in {None, *(p.label for p in grid)}:
@@ -345,6 +346,7 @@ class Service:
         name = body["name"]
         await asyncio.to_thread(  # AlreadyExists: 409
             self.rig.create_test, name, grid, mode, reference, body.get("averages"), sensors,
+            outline,
         )  # fmt: skip
         self._feed.wake()
         plan = await asyncio.to_thread(self.store.get_test, name)

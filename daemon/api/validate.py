@@ -15,7 +15,7 @@ from typing import Any
 from aiohttp import web
 
 from ..errors import GridError
-from ..grid import import_grid_csv
+from ..grid import check_outline, import_grid_csv
 from ..records import GridPoint
 from .errors import ApiError, invalid
 from .routes import COORD, JSON, LABEL, Param, Payload, Route
@@ -155,6 +155,17 @@ async def body(route: Route, request: web.Request) -> dict[str, Any]:
     check(value, route.body, "body")
     assert isinstance(value, dict)
     return value
+
+
+def outline(body: Payload, grid: list[GridPoint]) -> str | None:
+    """The body's outline text checked against its grid; 400 naming the line otherwise."""
+    text = body.get("outline")
+    if text is None:
+        return None
+    try:
+        return check_outline(text, grid, "body.outline")
+    except GridError as exc:
+        raise invalid(str(exc)) from None
 
 
 def grid(body: Payload) -> list[GridPoint]:

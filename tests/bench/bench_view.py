@@ -11,6 +11,12 @@ be drawn before its data is there. The frame rate is counted over `seconds`; its
 is the browser's animation-frame rate (what an empty requestAnimationFrame loop gets in
 the same browser), and the time one frame's drawing takes is printed beside it.
 
+The report pictures: the time to write one mode's GIF (FRAMES frames at DPI, one cycle)
+for the demo-sized panel (30 points) and the 500-point test, per mode over several modes,
+beside the goal of 1 s and beside its floor, Pillow alone writing the same frames (already
+drawn) into a GIF; its CPU time too (on a machine others share, the wall time is mostly
+waiting for a core); and the PNG sheet of every mode.
+
 Run: python tests/bench/bench_view.py [--opens 3]
 """
 
@@ -30,15 +36,18 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
+from taprig.client.view import pictures  # noqa: E402
 from taprig.client.view.geometry import from_grid  # noqa: E402
+from taprig.client.view.payload import normalise, spread  # noqa: E402
 from taprig.client.view.server import ViewServer, ViewThread  # noqa: E402
 from taprig.firmware_protocol.virtual import simply_supported_plate  # noqa: E402
 from tests.client.analytic import analytic_test_data  # noqa: E402
 from tests.view.browser import desktop, wait  # noqa: E402
-from tests.view.conftest import truth_modes  # noqa: E402
+from tests.view.conftest import FREQ, PANEL, TAU_S, truth_modes  # noqa: E402
 
 GOAL_OPEN_MS = 1000.0
 GOAL_FPS = 30.0
+GOAL_GIF_S = 1.0  # one mode's GIF
 COLS, ROWS = 25, 20
 
 ARRIVED = """
@@ -71,8 +80,46 @@ def panel_500() -> tuple[object, object]:
     return data, truth_modes(model, data)
 
 
+def gif_rows(data: object, modes: object, what: str, n_modes: int) -> list[Row]:
+    """Seconds per mode's GIF over the first `n_modes` modes, its floor and the sheet."""
+    from PIL import Image, ImageSequence
+
+    geometry = from_grid(data.grid)  # type: ignore[attr-defined]
+    shapes = normalise(spread(modes.shape, modes.point, geometry))  # type: ignore[attr-defined]
+    times, cpus, floors = [], [], []
+    with tempfile.TemporaryDirectory(prefix="taprig-bench-") as tmp:
+        for m in range(n_modes):
+            path = Path(tmp) / f"mode-{m}.gif"
+            t0, c0 = time.perf_counter(), time.process_time()
+            pictures._gif(data, modes, geometry, shapes[m], m, path,  # type: ignore[arg-type]
+                          pictures.FRAMES)  # fmt: skip
+            times.append(time.perf_counter() - t0)
+            cpus.append(time.process_time() - c0)
+            with Image.open(path) as gif:
+                frames = [f.convert("RGB") for f in ImageSequence.Iterator(gif)]
+            t0 = time.perf_counter()
+            pictures._write_gif(frames, Path(tmp) / "again.gif")
+            floors.append(time.perf_counter() - t0)
+        t0 = time.perf_counter()
+        pictures._sheet(data, modes, geometry, shapes, Path(tmp) / "sheet.png")  # type: ignore[arg-type]
+        sheet = time.perf_counter() - t0
+    size = f"{pictures.FRAMES} frames at {pictures.DPI} dpi"
+    return [
+        (f"one mode's GIF, {what}, median", statistics.median(times), "s",
+         f"goal <= {GOAL_GIF_S:g} s; floor: Pillow writing its frames, "
+         f"{statistics.median(floors):.2f} s; {size}, {n_modes} modes"),
+        (f"GIF floor, {what}: Pillow writing the frames", statistics.median(floors), "s", size),
+        (f"one mode's GIF, {what}, CPU time", statistics.median(cpus), "s",
+         "this process's CPU: what the wall time would be on an idle core"),
+        (f"PNG sheet of {len(modes)} modes, {what}", sheet, "s", ""),  # type: ignore[arg-type]
+    ]  # fmt: skip
+
+
 def run(opens: int = 3, seconds: float = 3.0) -> list[Row]:
+    demo = analytic_test_data(PANEL, FREQ, TAU_S)
+    rows = gif_rows(demo, truth_modes(PANEL, demo), "30 points", 6 if opens > 1 else 2)
     data, modes = panel_500()
+    rows += gif_rows(data, modes, "500 points", 3 if opens > 1 else 1)
     geometry = from_grid(data.grid)  # type: ignore[attr-defined]
     server = ViewServer(data, modes, geometry)  # type: ignore[arg-type]
     weight_files = sum(len(b) for b in server.files.values())
@@ -96,6 +143,7 @@ def run(opens: int = 3, seconds: float = 3.0) -> list[Row]:
     fps = (n1 - n0) / ((t1 - t0) / 1000)
     floor = statistics.median(arrived)
     return [
+        *rows,
         ("page open to first animated frame, median", statistics.median(first), "ms",
          f"goal <= {GOAL_OPEN_MS:g} ms; floor: page and data arrived, {floor:.0f} ms"),
         ("page and data arrived (floor), median", floor, "ms", f"of {opens} opens"),
@@ -117,6 +165,10 @@ def headline(rows: list[Row]) -> list[Figure]:
         Figure("view: animation frame rate (500 points)", pick(rows, "animation frame rate"),
                "fps", ">=", GOAL_FPS, pick(rows, "empty animation loop"),
                "the browser's empty animation loop"),
+        Figure("view: one mode's GIF (30 points)", pick(rows, "one mode's GIF, 30"), "s", "<=",
+               GOAL_GIF_S, pick(rows, "GIF floor, 30"), "Pillow writing its frames alone"),
+        Figure("view: one mode's GIF (500 points)", pick(rows, "one mode's GIF, 500"), "s",
+               "<=", GOAL_GIF_S, pick(rows, "GIF floor, 500"), "Pillow writing its frames alone"),
     ]  # fmt: skip
 
 

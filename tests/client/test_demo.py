@@ -18,11 +18,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from PIL import Image
 
 from taprig.client import dataset
 from taprig.client.check import check
 from taprig.client.mirror import Mirror
 from taprig.client.modal import ModalModel
+from taprig.client.view.pictures import FRAMES
 from taprig.firmware_protocol.virtual import load_truth
 
 from .test_check import assert_modes_match, judged_modes
@@ -69,6 +71,12 @@ def test_demo_runs_the_whole_job_and_stops_what_it_started(demo: tuple[Path, str
     assert "modes (" in report and "driving points" in report
     pngs = sorted((out / "plots").glob("*.png"))
     assert len(pngs) > 30 and all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in pngs)
+    # The modes moving: one GIF a fitted mode, one cycle each, and the sheet of them all.
+    gifs = sorted((out / "plots").glob("mode-*.gif"))
+    assert len(gifs) >= 5 and (out / "plots" / "modes-sheet.png").is_file()
+    for gif in gifs:
+        with Image.open(gif) as image:
+            assert image.format == "GIF" and image.n_frames == FRAMES
 
 
 @pytest.mark.slow

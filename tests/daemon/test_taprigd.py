@@ -24,22 +24,34 @@ def get(url: str, token: str | None = None) -> tuple[int, dict[str, object]]:
         return exc.code, json.loads(exc.read())
 
 
-def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
+def start(tmp_path: Path, *args: str) -> tuple[subprocess.Popen[bytes], Path]:
+    """`taprigd run` on the virtual device, serving on a free loopback port, data and log in
+    `tmp_path`, with `args` added; the process and its log file."""
     log = tmp_path / "taprigd.log"
     with log.open("w") as err:
         proc = subprocess.Popen(
             [sys.executable, "-m", "taprig.daemon", "run", "--set", f"store.data_dir={tmp_path}",
              "--set", "store.min_free_mb=1", "--set", "service.bind=127.0.0.1",
-             "--set", "service.port=0", "--set", "service.advertise=false", "--test", "shop-1"],
+             "--set", "service.port=0", "--set", "service.advertise=false", *args],
             stdout=subprocess.DEVNULL, stderr=err,
         )  # fmt: skip
+    return proc, log
+
+
+def served_at(proc: subprocess.Popen[bytes], log: Path) -> str:
+    """The service's base URL once its log names it (the process must stay up meanwhile)."""
+    deadline = time.monotonic() + 30
+    while not (m := re.search(r"service on (http://127\.0\.0\.1:\d+)/v1", log.read_text())):
+        assert proc.poll() is None, log.read_text()
+        assert time.monotonic() < deadline, "the service never came up"
+        time.sleep(0.05)
+    return m.group(1)
+
+
+def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
+    proc, log = start(tmp_path, "--test", "shop-1")
     try:
-        deadline = time.monotonic() + 30
-        while not (m := re.search(r"service on (http://127\.0\.0\.1:\d+)/v1", log.read_text())):
-            assert proc.poll() is None, log.read_text()
-            assert time.monotonic() < deadline, "the service never came up"
-            time.sleep(0.05)
-        base = m.group(1)
+        base = served_at(proc, log)
         status, info = get(f"{base}/v1/info")
         assert status == 200 and info["rig"] == "taprig"
         assert get(f"{base}/v1/state")[0] == 401
@@ -60,15 +72,7 @@ def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None
     """run.json appears while serving (port and control port), and goes when taprigd stops."""
     from taprig.firmware_protocol.virtual.control import ControlClient
 
-    log = tmp_path / "taprigd.log"
-    with log.open("w") as err:
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "taprig.daemon", "run", "--set", f"store.data_dir={tmp_path}",
-             "--set", "store.min_free_mb=1", "--set", "service.bind=127.0.0.1",
-             "--set", "service.port=0", "--set", "service.advertise=false", "--test", "shop-2",
-             "--virtual-control", "0"],
-            stdout=subprocess.DEVNULL, stderr=err,
-        )  # fmt: skip
+    proc, log = start(tmp_path, "--test", "shop-2", "--virtual-control", "0")
     run_file = tmp_path / "run.json"
     try:
         deadline = time.monotonic() + 30
@@ -87,3 +91,45 @@ def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None
         code = proc.wait(timeout=15)
     assert code == 0
     assert not run_file.exists()
+
+
+BOX_CSV = "label,x,y,z\nA1,0,0,0\nA2,0.1,0,0\nB1,0,0.1,0\nB2,0.1,0.1,0\n"
+BOX_OUTLINE = "face top\nquad A1 A2 B2 B1\nline A1 B2\n"
+
+
+def _run_box(tmp_path: Path, outline: str) -> tuple[subprocess.Popen[bytes], Path]:
+    """`taprigd run --test box --grid box.csv` with `outline` in box.outline beside it."""
+    (tmp_path / "box.csv").write_text(BOX_CSV)
+    (tmp_path / "box.outline").write_text(outline)
+    return start(tmp_path, "--test", "box", "--grid", str(tmp_path / "box.csv"))
+
+
+def test_run_keeps_the_outline_beside_the_grid_with_the_new_test(tmp_path: Path) -> None:
+    """box.outline beside box.csv is the new test's outline: served with the test."""
+    proc, log = _run_box(tmp_path, BOX_OUTLINE)
+    try:
+        base = served_at(proc, log)
+        token = (tmp_path / "token").read_text().strip()
+        status, test = get(f"{base}/v1/tests/box", token)
+        assert status == 200
+        meta = test["meta"]
+        assert isinstance(meta, dict) and meta["outline"] == BOX_OUTLINE
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(timeout=15)
+    assert code == 0, log.read_text()
+
+
+def test_run_refuses_a_bad_outline_with_its_line(tmp_path: Path) -> None:
+    """An outline naming a point the grid lacks: exit 2, one line naming the file and line."""
+    proc, log = _run_box(tmp_path, "face top\nquad A1 A2 B2 C9\n")
+    try:
+        code = proc.wait(timeout=30)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    text = log.read_text()
+    assert code == 2, text
+    assert f"{tmp_path / 'box.outline'} line 2: unknown point 'C9'" in text
+    assert "Traceback" not in text

@@ -18,6 +18,7 @@ from PIL import Image
 from selenium.webdriver.common.by import By
 
 from taprig.client.rigs import Places
+from taprig.client.view.pictures import FRAMES
 from tests.client.conftest import ServedRig, pair
 from tests.client.test_cli import taprig
 
@@ -84,7 +85,8 @@ def test_view_serves_a_mirrored_test(mirrored: Places, tmp_path: Path) -> None:
 
 
 def test_view_save_writes_valid_pictures(mirrored: Places, tmp_path: Path) -> None:
-    """One GIF per mode of 16 frames (one cycle) and one PNG sheet, all opened by Pillow."""
+    """One GIF per mode of FRAMES frames (one cycle), consecutive frames different, and one
+    PNG sheet, all opened by Pillow."""
     out = tmp_path / "pictures"
     done = taprig(mirrored, "view", "analytic-panel", "--save", str(out), timeout=300)
     assert done.returncode == 0, done.stderr
@@ -93,8 +95,11 @@ def test_view_save_writes_valid_pictures(mirrored: Places, tmp_path: Path) -> No
     assert done.stdout.count("picture ") == len(gifs) + 1
     for gif in gifs:
         with Image.open(gif) as image:
-            assert image.format == "GIF" and image.n_frames == 16
+            assert image.format == "GIF" and image.n_frames == FRAMES
             assert image.size[0] >= 400
+            first = np.asarray(image.convert("RGB"))
+            image.seek(FRAMES // 4)  # a quarter cycle on: the shape has moved
+            assert (np.asarray(image.convert("RGB")) != first).any()
     with Image.open(out / "modes-sheet.png") as sheet:
         sheet.verify()
         assert sheet.format == "PNG"

@@ -11,6 +11,7 @@ from taprig.client.view.geometry import from_grid
 from taprig.client.view.modes import auto_mac, from_peaks, mpc
 from taprig.client.view.payload import deflection, normalise, page_data, point_frf, spread
 from taprig.client.view.pictures import deformed
+from taprig.client.view.scene import nodal_crossings
 
 from .conftest import Known
 
@@ -107,3 +108,23 @@ def test_deformed_positions_follow_each_points_direction(known: Known) -> None:
     np.testing.assert_allclose(moved[0], [0, 0, -step])
     np.testing.assert_allclose(moved[1], [0, 0, step])
     assert deformed(geo, phi, math.pi / 2, 1.0) == pytest.approx(geo.xyz)
+
+
+def test_nodal_lines_of_a_linear_field_lie_on_its_zero() -> None:
+    """On a triangulated grid, a field linear in x and y is linear on every triangle, so the
+    zero found by linear interpolation along the edges lies exactly on the field's zero line
+    (the plane a + b x + c y = 0); each triangle the line cuts holds one segment, whose ends
+    are on two of its edges (linear interpolation: Burden & Faires, Numerical Analysis,
+    2011, §3.1)."""
+    grid = [(f"P{i}{j}", 0.1 * i, 0.07 * j, 0.0, "+z") for i in range(7) for j in range(5)]
+    geo = from_grid(grid)
+    x, y = geo.xyz[:, 0], geo.xyz[:, 1]
+    value = 0.31 - x + 0.4 * y  # no grid point exactly on the line
+    ends, t = nodal_crossings(geo.triangles, value)
+    a, b = geo.xyz[ends[..., 0]], geo.xyz[ends[..., 1]]
+    at = a + t[..., None] * (b - a)  # (S, 2, 3)
+    np.testing.assert_allclose(0.31 - at[..., 0] + 0.4 * at[..., 1], 0.0, atol=1e-12)
+    assert ((t > 0) & (t < 1)).all()
+    cut = (value[geo.triangles].min(axis=1) < 0) & (value[geo.triangles].max(axis=1) > 0)
+    assert len(ends) == int(cut.sum()) > 0
+    assert len(nodal_crossings(geo.triangles, value + 10.0)[0]) == 0  # no zero, no line

@@ -19,7 +19,7 @@ import pytest
 from schema import old_files  # tests/ is on sys.path (tests/conftest.py)
 from taprig.client.archive import Archive, ArchiveError, Archiver, get_model, put_model, trend
 from taprig.client.archive.db import SCHEMA_VERSION, migrate, migrations
-from taprig.client.archive.store import part_of
+from taprig.client.archive.store import RigWriter, part_of
 from taprig.daemon.store import FILE_NAME
 from taprig.schema import http, records
 
@@ -234,3 +234,21 @@ def test_a_rig_with_schema_1_bodies_is_archived_as_served(archive_dsn: str, tmp_
     finally:
         served.loop.close()
         served.running.close()
+
+
+def test_a_closed_writer_hands_its_rig_lock_over_at_once(archive_dsn: str) -> None:
+    """A follower that closes releases the rig's advisory lock before it returns, so the next
+    one takes it at the first try (PostgreSQL docs, "Advisory Locks": a session-level lock is
+    held until released explicitly or the session ends, and the server ends a session only
+    once it has read the client's goodbye)."""
+    for _ in range(20):
+        first = RigWriter(archive_dsn, "0123456789ab", "first")
+        assert first.try_lock()
+        second = RigWriter(archive_dsn, "0123456789ab", "second")
+        try:
+            assert not second.try_lock()
+            first.close()
+            assert second.try_lock()
+        finally:
+            first.close()
+            second.close()

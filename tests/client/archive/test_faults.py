@@ -34,15 +34,33 @@ BIG = 300  # point sets of 4097 lines × 2 responses (about 0.6 MB each): second
 CUT_S = 5.0  # how long a rig stays cut off (the issue says a minute; 5 s keeps the test short)
 
 
+def server_sessions(dsn: str) -> int:
+    """Sessions of other clients on the archive's database (a killed archiver's included)."""
+    with psycopg.connect(dsn) as conn:
+        row = conn.execute(
+            "SELECT count(*) FROM pg_stat_activity"
+            " WHERE datname = current_database() AND pid <> pg_backend_pid()"
+        ).fetchone()
+    return int(row[0]) if row else 0
+
+
 def assert_whole_up_to_cursor(dsn: str, served: ServedRig) -> int:
     """The archive holds exactly the rig's point sets whose change is at or before the
-    archived cursor, each with the rig's bytes; the number held."""
-    with psycopg.connect(dsn) as conn:
+    archived cursor, each with the rig's bytes; the number held.
+
+    A killed archiver's server session may still be finishing a COMMIT it sent: wait until
+    the server has ended it, then read the cursor and the point sets in one snapshot."""
+    until(lambda: server_sessions(dsn) == 0, "the killed archiver's sessions to end")
+    with psycopg.connect(dsn) as conn, conn.transaction():
+        conn.execute("SET TRANSACTION ISOLATION LEVEL REPEATABLE READ")
         row = conn.execute("SELECT cursor FROM rigs WHERE rig_id = %s", (served.rig_id,)).fetchone()
+        rows = conn.execute(
+            "SELECT id, digest, body FROM point_sets WHERE rig_id = %s", (served.rig_id,)
+        ).fetchall()
     cursor = int(row[0]) if row else 0
     store = served.running.store
     want = {s.id for s in store.list_point_sets() if s.seq <= cursor}
-    held = {i: body for (r, i), body in archived(dsn).items() if r == served.rig_id}
+    held = {int(i): (str(d), bytes(b)) for i, d, b in rows}
     assert set(held) == want, (cursor, sorted(set(held) ^ want))
     bodies = rig_bodies(served)
     for i, (digest, body) in held.items():

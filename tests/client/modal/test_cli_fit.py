@@ -53,7 +53,8 @@ def mirrored(served: ServedRig, places: Places) -> Places:
 
 def test_fit_prints_writes_and_draws(mirrored: Places, tmp_path: Path) -> None:
     """The six modes of the model, as JSON, as a file (npz and HDF5 read back the same) and
-    as a table; plots drawn (the stabilization diagram, auto-MAC, one FRF per point)."""
+    as a table; plots drawn (the stabilization diagram, auto-MAC, one FRF per point, a GIF
+    per mode and their sheet)."""
     npz = tmp_path / "beam.npz"
     report = as_json(taprig(mirrored, "fit", "beam", "--band", "20:800", "--out", str(npz),
                             "--plots", str(tmp_path / "plots"), "--json"))  # fmt: skip
@@ -65,7 +66,10 @@ def test_fit_prints_writes_and_draws(mirrored: Places, tmp_path: Path) -> None:
     model = ModalModel.load(npz)
     assert np.allclose(model.freq_hz, freqs) and model.shape.shape == (6, 12)
     names = sorted(p.name for p in (tmp_path / "plots").iterdir())
-    assert names[:2] == ["auto-mac.png", "stabilization.png"] and len(names) == 14
+    gifs = [n for n in names if n.endswith(".gif")]
+    pngs = [n for n in names if n.endswith(".png") and n != "modes-sheet.png"]
+    assert pngs[:2] == ["auto-mac.png", "stabilization.png"] and len(pngs) == 14
+    assert len(gifs) == 6 and "modes-sheet.png" in names  # each mode moving, and all
     h5 = tmp_path / "beam.h5"
     as_json(taprig(mirrored, "fit", "beam", "--band", "20:800", "--out", str(h5), "--json"))
     again = ModalModel.load(h5)
