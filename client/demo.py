@@ -239,15 +239,28 @@ def _fit(data: TestData, result: DemoResult, say: Say) -> None:
     say(f"   {result.modes.name}: {count(model.n_modes, 'mode')}")
 
 
-def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -> None:
-    try:
-        from .modal import ModalModel
-        from .plots import write_plots
-        from .view.pictures import write_model_pictures
+def _mode_pictures(data: TestData, modes: Path, folder: Path) -> list[Path]:
+    """The fitted modes moving (GIF) and their sheet; run in a process of its own."""
+    from .modal import ModalModel
+    from .view.pictures import write_model_pictures
 
-        result.plots = write_plots(data, checked, result.folder / "plots")
-        assert result.modes is not None  # the fit ran before the plots
-        moving = write_model_pictures(data, ModalModel.load(result.modes), result.folder / "plots")
+    return write_model_pictures(data, ModalModel.load(modes), folder)
+
+
+def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -> None:
+    """The FRF and shape PNGs here, the mode GIFs meanwhile in a second process: each is a
+    few seconds of drawing, and a two-core machine draws both at once."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    from .plots import write_plots
+
+    assert result.modes is not None  # the fit ran before the plots
+    folder = result.folder / "plots"
+    try:
+        with ProcessPoolExecutor(max_workers=1) as pool:
+            gifs = pool.submit(_mode_pictures, data, result.modes, folder)
+            result.plots = write_plots(data, checked, folder)
+            moving = gifs.result()
         result.plots += moving
         say(f"   {count(len(result.plots), 'plot')} in {result.folder / 'plots'}, "
             f"{count(len(moving) - 1, 'mode shape')} moving (GIF), one a sheet of every mode "
