@@ -70,13 +70,17 @@ def _setup_logging(verbose: bool) -> None:
     """Log to stderr (stdout carries --json-events). Under systemd, whose journal stamps the
     time itself, each line starts with its syslog priority (``<4>`` for a warning), which the
     journal records as the entry's level (sd-daemon(3))."""
+    from .logrepeat import RepeatFilter
+
     level = logging.DEBUG if verbose else logging.INFO
+    handler = logging.StreamHandler()
     if _stderr_is_journal():
-        handler = logging.StreamHandler()
         handler.setFormatter(_JournalFormatter("%(levelname)s %(name)s: %(message)s"))
-        logging.basicConfig(level=level, handlers=[handler])
     else:
-        logging.basicConfig(level=level, format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: %(message)s"))
+    # Repeated warnings and errors, and every line of the service's door, folded per minute.
+    handler.addFilter(RepeatFilter(loggers=("taprig.daemon.api.gate",)))
+    logging.basicConfig(level=level, handlers=[handler])
 
 
 def _stderr_is_journal() -> bool:

@@ -25,14 +25,18 @@ _DIRECTION = re.compile(r"[+-][xyz]")
 # an instrumented hammer covers a part or a panel, a machine or a car body at most (common
 # practice; a bridge deck tested by hammer would pass this by a lot, hence only a warning).
 PLAUSIBLE_EXTENT_M = 20.0
+MAX_POINTS = 4096  # points in one test's grid, however the grid arrives
 
 
-def import_grid_csv(text: str) -> list[GridPoint]:
+def import_grid_csv(text: str, max_points: int | None = None) -> list[GridPoint]:
     """Grid points from CSV text with header `label,x,y,z[,direction]` (metres, "+z" default).
 
-    Blank lines are skipped. Raises GridError naming the line and the field.
+    Blank lines are skipped. Raises GridError naming the line and the field, or when there
+    are more than `max_points` points (counted before any is parsed).
     """
     rows = [(n, r) for n, r in enumerate(csv.reader(io.StringIO(text)), 1) if any(r)]
+    if max_points is not None and len(rows) - 1 > max_points:
+        raise GridError(f"grid CSV has {len(rows) - 1} points; at most {max_points} are allowed")
     if not rows:
         raise GridError("grid CSV is empty")
     header = [h.strip().lower() for h in rows[0][1]]

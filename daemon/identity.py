@@ -15,6 +15,8 @@ import secrets
 from pathlib import Path
 from typing import Any, Final
 
+from .private import tighten, write_private
+
 RIG_ID_FILE: Final = "rig-id"
 RUN_FILE: Final = "run.json"
 
@@ -33,16 +35,16 @@ def rig_id(state_dir: Path) -> str:
         text = ""
     if not text:
         text = new_rig_id()
-        path.write_text(text + "\n", encoding="ascii")
+        write_private(path, text + "\n")
+    else:
+        tighten(path)  # left readable by an older version: not a secret, but the folder is private
     return text
 
 
 def write_run_file(state_dir: Path, bind: str, port: int, control_port: int | None) -> None:
     """Record where this process serves, atomically (see the module docstring)."""
     record = {"pid": os.getpid(), "bind": bind, "port": port, "control_port": control_port}
-    tmp = state_dir / (RUN_FILE + ".tmp")
-    tmp.write_text(json.dumps(record) + "\n", encoding="utf-8")
-    os.replace(tmp, state_dir / RUN_FILE)
+    write_private(state_dir / RUN_FILE, json.dumps(record) + "\n")  # 0600, atomic
 
 
 def remove_run_file(state_dir: Path) -> None:

@@ -21,10 +21,13 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from . import identity
+from .api.gate import Limits
 from .auth import Auth
 from .config import Config
 from .errors import ConfigError, StoreError
+from .logrepeat import WINDOW_S, report_folded
 from .notify import Notifier
+from .private import private_dir
 from .rig import Rig
 from .rigstate import RigEvent
 from .running import RunningRig
@@ -114,7 +117,7 @@ def _open_instrument(
     # Behind a stable name in the data folder, as udev gives a USB device, so the link finds
     # it again after an unplug.
     link = str(config.store.data_dir / "virtual-tty") if transport == "pty" else None
-    config.store.data_dir.mkdir(parents=True, exist_ok=True)
+    private_dir(config.store.data_dir)
     instrument = open_virtual(transport, link=link, settings=settings, model=model)
     log.info("virtual instrument on %s", instrument.url)
     return instrument
@@ -159,8 +162,10 @@ async def lifespan(
         data_dir = cfg.store.data_dir
         auth = Auth(data_dir)
         rig_id = identity.rig_id(data_dir)
-        service = Service(running, auth, host=cfg.service.bind, port=cfg.service.port,
-                          rig_id=rig_id, max_body=cfg.service.max_request_kb * 1024)  # fmt: skip
+        s = cfg.service
+        service = Service(running, auth, host=s.bind, port=s.port, rig_id=rig_id,
+                          max_body=s.max_request_kb * 1024, limits=_limits(cfg),
+                          body_timeout_s=s.body_timeout_s)  # fmt: skip
         stack.push_async_callback(service.async_close)
         await service.async_start()
         stack.callback(identity.remove_run_file, data_dir)
@@ -174,7 +179,15 @@ async def lifespan(
         if notify.active:
             reporter = asyncio.create_task(report(running.rig, notify))
             stack.push_async_callback(_cancelled, reporter)
+        stack.push_async_callback(_cancelled, asyncio.create_task(_report_folded()))
         yield Daemon(running, auth, service, advertiser, notify)
+
+
+def _limits(cfg: Config) -> Limits:
+    """The service's connection limits from the [service] settings."""
+    s = cfg.service
+    return Limits(total=s.max_connections, per_address=s.connections_per_address,
+                  header_s=s.header_timeout_s)  # fmt: skip
 
 
 async def _advertise(
@@ -227,6 +240,13 @@ def _log_failure(future: concurrent.futures.Future[None]) -> None:
     exc = future.exception()
     if exc is not None:
         log.warning("could not update the announcement: %s", exc)
+
+
+async def _report_folded() -> None:
+    """Once a minute, the counts of log lines folded by the log's repeat filter."""
+    while True:
+        await asyncio.sleep(WINDOW_S)
+        report_folded()
 
 
 async def _cancelled(task: asyncio.Task[None]) -> None:

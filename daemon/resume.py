@@ -6,9 +6,10 @@ from __future__ import annotations
 
 import json
 import logging
-import os
 from pathlib import Path
 from typing import Any, Final
+
+from .private import write_private
 
 log = logging.getLogger(__name__)
 
@@ -18,13 +19,8 @@ SESSION_FILE: Final = "session.json"
 def keep(data_dir: Path, test: str | None, wanted: bool) -> None:
     """Record `test` and whether capture is `wanted`; a failure (a full disk) is logged."""
     path = data_dir / SESSION_FILE
-    tmp = path.with_name(SESSION_FILE + ".tmp")
-    try:
-        with tmp.open("w", encoding="utf-8") as f:
-            f.write(json.dumps({"test": test, "armed": wanted}) + "\n")
-            f.flush()
-            os.fsync(f.fileno())  # survives a power cut: the rename never names an empty file
-        os.replace(tmp, path)
+    try:  # durable: after a power cut the rename never names an empty file
+        write_private(path, json.dumps({"test": test, "armed": wanted}) + "\n", durable=True)
     except OSError as exc:
         log.warning("cannot keep the session in %s: %s", path, exc)
 

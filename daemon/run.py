@@ -12,7 +12,7 @@ import functools
 import json
 import logging
 import signal
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -20,7 +20,7 @@ from . import placement
 from .config import Config
 from .errors import DiskLowError, GridError, SessionError
 from .eventtext import event_text
-from .grid import import_grid_csv, outline_beside, read_outline
+from .grid import MAX_POINTS, import_grid_csv, outline_beside, read_outline
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
 from .rig import Rig
@@ -116,13 +116,15 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
     assert name is not None
     known = {t.name for t in running.store.list_tests()}
     if opt.grid is not None:
-        points = import_grid_csv(opt.grid.read_text(encoding="utf-8"))
+        points = import_grid_csv(opt.grid.read_text(encoding="utf-8"), max_points=MAX_POINTS)
     elif vi is not None and name not in known:
         m = vi.model
         xyz = [tuple(float(v) for v in m.coords[m.index(p)]) for p in m.grid]
         points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
     else:
         points = []
+    if opt.virtual_taps > 0 and vi is not None:
+        _check_tappable(name, points or running.store.get_test(name).grid, vi.model.grid)
     outline = _outline(opt, points)
     if points:
         _create(running, name, points, opt, outline)
@@ -161,6 +163,18 @@ def _create(
                             outline=outline)  # fmt: skip
 
 
+def _check_tappable(test: str, points: Sequence[GridPoint], on_piece: Sequence[str]) -> None:
+    """SessionError unless the simulated operator can tap every point of the test."""
+    missing = [p.label for p in points if p.label not in set(on_piece)]
+    if missing:
+        raise SessionError(
+            f"--virtual-taps: test {test!r} has {len(missing)} points that are not on the "
+            f"simulated piece ({', '.join(missing[:5])}{', ...' if len(missing) > 5 else ''}); "
+            f"its points are {on_piece[0]}..{on_piece[-1]}. Tap by hand, or use a test whose "
+            "grid is the simulated piece's"
+        )
+
+
 def _outline(opt: RunOptions, points: list[GridPoint]) -> str | None:
     """The outline text for a new test: --outline, else the one beside --grid; checked."""
     path = opt.outline
@@ -174,10 +188,17 @@ def _outline(opt: RunOptions, points: list[GridPoint]) -> str | None:
 
 
 def simulated_tap(running: RunningRig) -> None:
-    """The virtual operator: in roving-sensor mode move the sensor, then tap."""
+    """The virtual operator: in roving-sensor mode move the sensor, then tap. A point that
+    is not on the simulated piece (a test selected later from the API) is skipped, logged."""
     vi, plan = running.instrument, running.rig.view().plan
     assert vi is not None and plan is not None
     point = running.rig.snapshot()["point"]
+    wanted = {point, plan.reference} if plan.roving_mode is RovingMode.SENSOR else {point}
+    off_piece = sorted(str(p) for p in wanted if p not in set(vi.model.grid))
+    if off_piece:
+        log.warning("simulated operator: %s of test %r not on the simulated piece; not tapping",
+                    ", ".join(off_piece), plan.name)  # fmt: skip
+        return
     if plan.roving_mode is RovingMode.SENSOR:
         vi.move_sensor(next(iter(vi.model.sensors)), point)
         point = plan.reference

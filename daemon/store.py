@@ -47,6 +47,7 @@ from taprig.schema.pointset import (
 from taprig.schema.records import WirePointSetSummary
 
 from .errors import AlreadyExists, DiskFullError, NotFound, StoreError
+from .private import private_dir, private_file, tighten
 from .records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 
 T = TypeVar("T")
@@ -274,8 +275,8 @@ class Store:
         timeout_s: float = DEFAULT_TIMEOUT_S,
         body_encoder: BodyEncoder | None = None,
     ) -> None:
-        Path(data_dir).mkdir(parents=True, exist_ok=True)
-        self.path = Path(data_dir).resolve() / FILE_NAME
+        self.path = private_dir(data_dir).resolve() / FILE_NAME
+        self._private_files()
         self.timeout_s = timeout_s
         self._body_encoder = body_encoder
         self._conn = self._open_writer()
@@ -290,6 +291,15 @@ class Store:
         self._thread.start()
 
     # -- opening and migrating
+
+    def _private_files(self) -> None:
+        # 0600 whatever the umask: SQLite makes -wal and -shm with the database file's mode.
+        try:
+            private_file(self.path)
+            for suffix in ("-wal", "-shm", "-journal"):
+                tighten(f"{self.path}{suffix}")
+        except OSError as exc:
+            raise StoreError(f"cannot make {self.path} private: {exc}") from exc
 
     def _open_writer(self) -> sqlite3.Connection:
         # Opened here, then used by the writer thread alone (its start orders the hand-over).

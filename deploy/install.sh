@@ -7,7 +7,7 @@
 # What goes where:
 #   /opt/taprig                    a Python virtual environment with taprig installed
 #   /etc/taprig/taprigd.toml       the configuration (kept if it exists; the example beside it)
-#   /var/lib/taprig                the point-set store, token and rig id (user taprig, 0750)
+#   /var/lib/taprig                the point-set store, token and rig id (user taprig, 0700)
 #   /etc/systemd/system/taprigd.service, /etc/udev/rules.d/70-taprig-device.rules (example)
 #   user and group taprig (system account, no login), member of dialout
 # Running it again upgrades taprig and keeps the configuration and the data.
@@ -67,7 +67,7 @@ if [[ ! -e "$root/etc/taprig/taprigd.toml" ]]; then
 fi
 
 step "state in /var/lib/taprig"
-install -d -m 0750 -o "$uid" -g "$gid" "$root/var/lib/taprig"
+install -d -m 0700 -o "$uid" -g "$gid" "$root/var/lib/taprig"
 
 step "systemd unit and udev rule"
 install -D -m 0644 "$source_dir/deploy/taprigd.service" "$root/etc/systemd/system/taprigd.service"

@@ -42,10 +42,10 @@ EXTRA_HOMES = {"psycopg": "taprig.client.archive"}
 DISTRIBUTIONS = {"serial": "pyserial", "PIL": "pillow"}
 
 BASE = ["__init__", "errors", "records", "placement", "wirebody", "grid", "identity", "display",
-        "notify", "txt", "redact", "room", "resume", "config.__init__", "config.setting",
-        "config.table", "config.channels", "config.problems"]  # fmt: skip
+        "notify", "txt", "redact", "room", "private", "resume", "logrepeat", "config.__init__",
+        "config.setting", "config.table", "config.channels", "config.problems"]  # fmt: skip
 API = ["__init__", "__main__", "routes", "errors", "bodies", "validate", "openapi", "once", "feed",
-       "service"]  # fmt: skip
+       "gate", "site", "service"]  # fmt: skip
 # The daemon's modules in the order data flows through them: a module may import only
 # modules of a lower or equal rank (type-only imports under TYPE_CHECKING too).
 DAEMON_RANKS: dict[str, int] = {

@@ -7,10 +7,11 @@ never changes, so its encoded forms are kept in a `BodyCache` for the next reade
 
 from __future__ import annotations
 
+import asyncio
 import collections
 import json
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from typing import TYPE_CHECKING, Any, Final
 
 import numpy as np
@@ -79,6 +80,19 @@ def reply(call: Call, obj: Payload) -> web.Response:
     if http.wants_msgpack(call.request.headers.get("Accept")):
         return web.Response(body=codec.pack(obj), content_type=http.MSGPACK)
     return json_response(obj)
+
+
+async def reply_built(call: Call, build: Callable[[], Payload]) -> web.Response:
+    """`build()` answered as `reply` would, built and encoded on a worker thread (for answers
+    that may be large, such as every test with its grid)."""
+    as_msgpack = http.wants_msgpack(call.request.headers.get("Accept"))
+
+    def encoded() -> tuple[bytes, str]:
+        obj = build()
+        return (codec.pack(obj), http.MSGPACK) if as_msgpack else (dumps(obj).encode(), JSON)
+
+    body, media = await asyncio.to_thread(encoded)
+    return web.Response(body=body, content_type=media)
 
 
 def stored_body(store: Store, pid: int, with_hits: bool, as_msgpack: bool) -> Encoded | None:

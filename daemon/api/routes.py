@@ -16,6 +16,7 @@ from aiohttp import web
 from taprig.schema import http
 from taprig.schema.outline import MAX_CHARS as OUTLINE_MAX_CHARS
 
+from ..grid import MAX_POINTS
 from ..records import RovingMode
 
 PREFIX: Final = "/v1"
@@ -76,11 +77,12 @@ CREATE_TEST: Final[Payload] = {
     "properties": {
         "request_id": REQUEST_ID,
         "name": NAME,
-        "grid": {"type": "array", "minItems": 1, "maxItems": 4096, "items": GRID_POINT},
+        "grid": {"type": "array", "minItems": 1, "maxItems": MAX_POINTS, "items": GRID_POINT},
         "grid_csv": {
             "type": "string",
             "maxLength": 1 << 20,
-            "description": "CSV text with header label,x,y,z[,direction], metres",
+            "description": "CSV text with header label,x,y,z[,direction], metres; "
+            f"at most {MAX_POINTS} points",
         },
         "outline": {
             "type": "string",

@@ -26,7 +26,7 @@ from taprig.schema import API_VERSION, http, objects, records
 
 from .. import __version__, identity, page, placement
 from ..errors import TaprigError
-from ..records import ChannelSpec, RovingMode
+from ..records import ChannelSpec, GridPoint, RovingMode
 from . import validate
 from .bodies import (
     BODY_CACHE_BYTES,
@@ -37,14 +37,17 @@ from .bodies import (
     json_response,
     outcome_json,
     reply,
+    reply_built,
     stored_body,
     test_obj,
 )
 from .errors import ApiError, Outcome, error_of, invalid
 from .feed import Feed
+from .gate import Gate, Limits
 from .once import Once
 from .openapi import openapi_text
 from .routes import HEARTBEAT_S, JSON, PREFIX, ROUTES, Call, Payload, Route
+from .site import GatedSite, fit_to_open_files
 
 if TYPE_CHECKING:
     from ..auth import Auth, AuthResult
@@ -55,6 +58,7 @@ log = logging.getLogger(__name__)
 
 CHANGES_LIMIT: Final = 1000  # entries per /v1/changes answer
 SHUTDOWN_S: Final = 2.0  # how long close waits for requests in flight
+KEEPALIVE_S: Final = 75.0  # an idle kept-alive connection is closed after this, seconds
 # The access log names the peer, the request line, the status, the size and the time;
 # never a header, so the Authorization header (the token) cannot reach a log.
 ACCESS_LOG_FORMAT: Final = '%a "%r" %s %b %Tfs'
@@ -81,7 +85,9 @@ class Service:
     rig_id: the rig's stable id, reported by /v1/info (default: daemon/identity.py's, kept in
     the state folder).
     heartbeat_s: comment interval on idle event streams. body_cache_bytes: encoded point sets
-    kept for the next reader (0: none).
+    kept for the next reader (0: none). limits: the connection cap, the share per client
+    address and the header deadline (daemon/api/gate.py). body_timeout_s: time a request
+    has to send its body (408 beyond).
     """
 
     def __init__(
@@ -96,10 +102,13 @@ class Service:
         rig_id: str | None = None,
         heartbeat_s: float = HEARTBEAT_S,
         body_cache_bytes: int = BODY_CACHE_BYTES,
+        limits: Limits | None = None,
+        body_timeout_s: float = 30.0,
     ) -> None:
         self.running, self.auth = running, auth
         self.store, self.rig = running.store, running.rig
         self.host, self.port, self.max_body = host, port, max_body
+        self.body_timeout_s = body_timeout_s
         self.rig_name = rig_name if rig_name is not None else running.config.rig.name
         data_dir = running.config.store.data_dir
         self.rig_id = rig_id if rig_id is not None else identity.rig_id(data_dir)
@@ -111,6 +120,8 @@ class Service:
         self._log_filter = auth.log_filter()
         self._bodies = BodyCache(body_cache_bytes)
         self._web: dict[str, page.StaticFile] = {}
+        self._limits = limits if limits is not None else Limits()
+        self.gate = Gate(self._limits)
 
     # -- lifecycle (event loop)
 
@@ -127,11 +138,16 @@ class Service:
         for name in REDACTED_LOGGERS:
             logging.getLogger(name).addFilter(self._log_filter)
         self._web = await asyncio.to_thread(page.load)  # the phone page, read once
-        runner = web.AppRunner(self.make_app(), access_log_format=ACCESS_LOG_FORMAT,
-                               shutdown_timeout=SHUTDOWN_S)  # fmt: skip
+        self.gate.limits = fit_to_open_files(self._limits)
+        runner = web.AppRunner(
+            self.make_app(),
+            access_log_format=ACCESS_LOG_FORMAT,
+            shutdown_timeout=SHUTDOWN_S,
+            keepalive_timeout=KEEPALIVE_S,
+        )
         await runner.setup()
         try:
-            await web.TCPSite(runner, self.host, self.port).start()
+            await GatedSite(runner, self.gate, self.host, self.port).start()
         except BaseException:
             await runner.cleanup()
             raise
@@ -152,7 +168,8 @@ class Service:
 
     def make_app(self) -> web.Application:
         """The aiohttp application of `ROUTES` (subclasses may add routes before start)."""
-        app = web.Application(client_max_size=self.max_body, middlewares=[self._errors])
+        app = web.Application(client_max_size=self.max_body,
+                              middlewares=[self._in_flight, self._errors])  # fmt: skip
         for route in ROUTES:
             app.router.add_route(route.method, route.path, self._bind(route))
         if self._web:
@@ -165,6 +182,17 @@ class Service:
         return self._feed.polls_waiting
 
     # -- plumbing
+
+    @web.middleware
+    async def _in_flight(
+        self, request: web.Request, handler: Callable[[web.Request], Awaitable[web.StreamResponse]]
+    ) -> web.StreamResponse:
+        # While a request is handled its connection has no header deadline (gate.py).
+        self.gate.request_started(request.protocol)
+        try:
+            return await handler(request)
+        finally:
+            self.gate.request_finished(request.protocol)
 
     @web.middleware
     async def _errors(
@@ -192,7 +220,8 @@ class Service:
                 if route.token_in_worker:  # a stranger learns nothing of the parameters
                     await self.authorize(request)
                 raise
-            body = await validate.body(route, request) if route.body is not None else {}
+            body = (await validate.body(route, request, self.body_timeout_s)
+                    if route.body is not None else {})  # fmt: skip
             return await serve(Call(request, route, args, body))
 
         return handler
@@ -269,12 +298,14 @@ class Service:
         return json_response(last)
 
     async def _on_tests(self, call: Call) -> web.StreamResponse:
-        plans = await asyncio.to_thread(self.store.list_tests)
-        return reply(call, {"tests": [test_obj(t) for t in plans]})
+        # Every test with its grid (up to 4,096 points each): read and encoded off the loop.
+        return await reply_built(
+            call, lambda: {"tests": [test_obj(t) for t in self.store.list_tests()]}
+        )
 
     async def _on_test(self, call: Call) -> web.StreamResponse:
-        plan = await asyncio.to_thread(self.store.get_test, call.args["name"])  # NotFound: 404
-        return reply(call, test_obj(plan))
+        name = call.args["name"]  # NotFound: 404
+        return await reply_built(call, lambda: test_obj(self.store.get_test(name)))
 
     async def _on_points(self, call: Call) -> web.StreamResponse:
         test = call.args.get("test")
@@ -328,8 +359,11 @@ class Service:
         return await self._answer_once("create_test", call.body, lambda: self._create(call.body))
 
     async def _create(self, body: Payload) -> Outcome:
-        grid = validate.grid(body)
-        outline = validate.outline(body, grid)
+        def parsed() -> tuple[list[GridPoint], str | None]:  # up to 4,096 points: off the loop
+            grid = validate.grid(body)
+            return grid, validate.outline(body, grid)
+
+        grid, outline = await asyncio.to_thread(parsed)
         mode = RovingMode(body.get("roving_mode", "hammer"))
         reference = body.get("reference")
         if mode is RovingMode.SENSOR and reference not in {None, *(p.label for p in grid)}:

@@ -6,6 +6,7 @@ it; a value that does not fit is refused with ApiError 400 naming where it was f
 
 from __future__ import annotations
 
+import asyncio
 import json
 import math
 import re
@@ -15,10 +16,12 @@ from typing import Any
 from aiohttp import web
 
 from ..errors import GridError
-from ..grid import check_outline, import_grid_csv
+from ..grid import MAX_POINTS, check_outline, import_grid_csv
 from ..records import GridPoint
 from .errors import ApiError, invalid
 from .routes import COORD, JSON, LABEL, Param, Payload, Route
+
+INLINE_BODY_BYTES = 16 * 1024  # bodies up to this size are parsed on the event loop
 
 
 def check(value: Any, schema: Mapping[str, Any], where: str) -> None:
@@ -49,12 +52,19 @@ def check(value: Any, schema: Mapping[str, Any], where: str) -> None:
         if "pattern" in schema and not re.fullmatch(schema["pattern"], value):
             raise invalid(f"{where}: {value[:80]!r} is not {schema.get('description', 'valid')}")
     elif kind in ("integer", "number"):
-        ok = isinstance(value, int) or (kind == "number" and isinstance(value, float))
-        if not ok or isinstance(value, bool) or not math.isfinite(value):
-            raise invalid(f"{where}: must be {'an integer' if kind == 'integer' else 'a number'}")
-        lo, hi = schema.get("minimum", -math.inf), schema.get("maximum", math.inf)
-        if not lo <= value <= hi:
-            raise invalid(f"{where}: {value} is outside {lo:g}..{hi:g}")
+        _check_number(value, schema, where)
+
+
+def _check_number(value: Any, schema: Mapping[str, Any], where: str) -> None:
+    kind = schema.get("type")
+    ok = isinstance(value, int) or (kind == "number" and isinstance(value, float))
+    # An int is finite however large (math.isfinite would overflow converting 10**400).
+    if not ok or isinstance(value, bool) or (isinstance(value, float) and not math.isfinite(value)):
+        raise invalid(f"{where}: must be {'an integer' if kind == 'integer' else 'a number'}")
+    lo, hi = schema.get("minimum", -math.inf), schema.get("maximum", math.inf)
+    if not lo <= value <= hi:  # Python compares int and float exactly, at any size
+        shown = str(value) if abs(value) < 10**15 else f"a number of {len(str(abs(value)))} digits"
+        raise invalid(f"{where}: {shown} is outside {lo:g}..{hi:g}")
 
 
 def _same(value: Any, allowed: Any) -> bool:
@@ -145,14 +155,32 @@ def params(route: Route, request: web.Request) -> dict[str, Any]:
     return out
 
 
-async def body(route: Route, request: web.Request) -> dict[str, Any]:
-    """The JSON body, checked against the route's schema (413 beyond client_max_size)."""
-    assert route.body is not None
-    raw = await request.read()
+async def body(route: Route, request: web.Request, timeout_s: float) -> dict[str, Any]:
+    """The JSON body, checked against the route's schema (413 beyond client_max_size).
+
+    The whole body must arrive within `timeout_s` seconds (408 otherwise: a client dribbling
+    it out holds a connection for nothing). A large body is parsed and checked on a worker
+    thread, so the event loop stays free.
+    """
+    schema = route.body
+    assert schema is not None
+    try:
+        async with asyncio.timeout(timeout_s):
+            raw = await request.read()
+    except TimeoutError:
+        raise ApiError(
+            408, "request_timeout", f"the request body did not arrive within {timeout_s:g} s"
+        ) from None
     if raw and request.content_type != JSON:
         raise ApiError(415, "unsupported_media_type", f"send the body as {JSON}")
+    if len(raw) > INLINE_BODY_BYTES:
+        return await asyncio.to_thread(_parsed, raw, schema)
+    return _parsed(raw, schema)
+
+
+def _parsed(raw: bytes, schema: Payload) -> dict[str, Any]:
     value = parse_json(raw) if raw else {}  # no body: then the schema says what is missing
-    check(value, route.body, "body")
+    check(value, schema, "body")
     assert isinstance(value, dict)
     return value
 
@@ -169,6 +197,10 @@ def outline(body: Payload, grid: list[GridPoint]) -> str | None:
 
 
 def grid(body: Payload) -> list[GridPoint]:
+    """The grid of a create-test body, from its list or its CSV text (at most MAX_POINTS).
+
+    Blocking work for a large grid: call it on a worker thread.
+    """
     if "grid" in body:
         grid = [GridPoint(p["label"], float(p["x"]), float(p["y"]), float(p["z"]),
                           p.get("direction", "+z")) for p in body["grid"]]  # fmt: skip
@@ -177,7 +209,7 @@ def grid(body: Payload) -> list[GridPoint]:
             raise invalid("body.grid: labels must be distinct")
         return grid
     try:
-        grid = import_grid_csv(body["grid_csv"])
+        grid = import_grid_csv(body["grid_csv"], max_points=MAX_POINTS)
     except GridError as exc:
         raise invalid(f"body.grid_csv: {exc}") from None
     for i, p in enumerate(grid):

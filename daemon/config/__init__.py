@@ -136,13 +136,18 @@ class StoreConfig:
 
 @dataclass(frozen=True, slots=True)
 class ServiceConfig:
-    """[service]: where the HTTP service listens, its request size limit (KiB), mDNS on/off."""
+    """[service]: where the HTTP service listens, its request size limit (KiB), mDNS on/off,
+    its connection cap and share per client address, its header and body deadlines (s)."""
 
     bind: str
     port: int
     max_request_kb: int
     advertise: bool
     announce_on: str
+    max_connections: int
+    connections_per_address: int
+    header_timeout_s: float
+    body_timeout_s: float
 
     @property
     def announce_addresses(self) -> list[str]:

@@ -206,6 +206,28 @@ SETTINGS: tuple[Setting, ...] = (
         allowed="empty, or IPv4 addresses separated by commas",
         check=lambda s: all(_is_ip(a.strip()) for a in s.split(",")) if s.strip() else True,
     ),
+    Setting(
+        "service", "max_connections", Kind.INT, 512, "",
+        "client connections served at once (each is an open file; the service unit's "
+        "LimitNOFILE must leave room)",
+        allowed="an integer from 1 to 65536", check=lambda n: 1 <= n <= 65536,
+    ),
+    Setting(
+        "service", "connections_per_address", Kind.INT, 32, "",
+        "connections one client address may hold at once, so that one neighbour cannot "
+        "take them all",
+        allowed="an integer from 1 to 65536", check=lambda n: 1 <= n <= 65536,
+    ),
+    Setting(
+        "service", "header_timeout_s", Kind.FLOAT, 10.0, "s",
+        "time a connection has to send a request's headers before it is closed",
+        allowed="a number from 0.1 to 600", check=lambda x: 0.1 <= x <= 600,
+    ),
+    Setting(
+        "service", "body_timeout_s", Kind.FLOAT, 30.0, "s",
+        "time a request has to send its body before it is answered 408",
+        allowed="a number from 0.1 to 600", check=lambda x: 0.1 <= x <= 600,
+    ),
 )  # fmt: skip
 
 

@@ -22,6 +22,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import logging
+import math
 import socket
 import socketserver
 import threading
@@ -42,8 +43,12 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
     op = request["op"]
     try:
         if op == "tap":
+            point = str(request["point"])
+            if point not in set(vi.model.grid):
+                return {"ok": False, "error": f"tap: point {point[:64]!r} is not on the simulated "
+                        f"piece (its points: {', '.join(vi.model.grid)})"}  # fmt: skip
             rec = vi.strike(
-                str(request["point"]),
+                point,
                 _opt_float(request, "force_n"),
                 _opt_float(request, "width_s"),
                 double_hit=_opt_bool(request, "double_hit"),
@@ -78,7 +83,7 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
             }
     except KeyError as exc:
         return {"ok": False, "error": f"{op}: missing field {exc}"}
-    except (ValueError, TimeoutError) as exc:
+    except (ValueError, TimeoutError, ArithmeticError) as exc:  # 10**400: OverflowError
         return {"ok": False, "error": f"{op}: {exc}"}
     return {
         "ok": False,
@@ -91,8 +96,14 @@ def _opt_float(request: dict[str, Any], key: str) -> float | None:
     if value is None:
         return None
     if isinstance(value, bool) or not isinstance(value, int | float):
-        raise ValueError(f"{key} must be a number, got {value!r}")
-    return float(value)
+        raise ValueError(f"{key} must be a number, got {str(value)[:64]}")
+    try:
+        number = float(value)
+    except OverflowError:
+        raise ValueError(f"{key} is too large") from None
+    if not math.isfinite(number):
+        raise ValueError(f"{key} must be finite")
+    return number
 
 
 def _opt_bool(request: dict[str, Any], key: str) -> bool | None:

@@ -16,6 +16,7 @@ from typing import Any
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+import bench_abuse
 import bench_archive
 import bench_capture
 import bench_client
@@ -54,6 +55,9 @@ BENCHES = [
     Bench("service: pulls over loopback, empty changes poll",
           lambda q: bench_service.run(20 if q else 200), bench_service.show,
           bench_service.headline),
+    Bench("service under abuse: a paired client beside idle connections, the log's growth",
+          lambda q: bench_abuse.run(3.0 if q else 10.0, 10.0 if q else 70.0),
+          bench_abuse.show, bench_abuse.headline),
     Bench("point-set size: 2 responses, 16k block", lambda q: bench_size.run(),
           lambda rows: bench_size.show(rows, decimals=3), bench_size.headline),
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.

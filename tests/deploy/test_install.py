@@ -70,7 +70,7 @@ def test_install_verify_run_uninstall(tmp_path: Path) -> None:
     dialout = next(x for x in groups if x.startswith("dialout:"))
     assert "taprig" in dialout.split(":")[3].split(",")
     state = (root / "var/lib/taprig").stat()
-    assert (state.st_uid, state.st_gid, state.st_mode & 0o777) == (uid, gid, 0o750)
+    assert (state.st_uid, state.st_gid, state.st_mode & 0o777) == (uid, gid, 0o700)
     config = root / "etc/taprig/taprigd.toml"
     assert config.read_text() == (DEPLOY / "taprigd.example.toml").read_text()
     assert (config.stat().st_gid, config.stat().st_mode & 0o777) == (gid, 0o640)
@@ -116,3 +116,17 @@ def test_install_verify_run_uninstall(tmp_path: Path) -> None:
     sh(DEPLOY / "uninstall.sh", "--root", root, "--purge")
     assert not (root / "etc/taprig").exists() and not (root / "var/lib/taprig").exists()
     assert passwd_entry(root, "taprig") is None
+
+
+def test_unit_open_file_limit_carries_the_connection_cap() -> None:
+    """LimitNOFILE leaves room for the default connection cap and the daemon's own files
+    (daemon/api/site.py: one descriptor per connection plus FD_RESERVE)."""
+    from taprig.daemon.api.site import FD_RESERVE
+    from taprig.daemon.config.table import SETTINGS
+
+    unit = (DEPLOY / "taprigd.service").read_text()
+    limit = re.search(r"^LimitNOFILE=(\d+)$", unit, re.MULTILINE)
+    assert limit is not None, "no LimitNOFILE in the unit"
+    cap = next(s.default for s in SETTINGS if s.name == "service.max_connections")
+    assert isinstance(cap, int) and int(limit.group(1)) >= cap + FD_RESERVE
+    assert re.search(r"^StateDirectoryMode=0700$", unit, re.MULTILINE)

@@ -435,7 +435,11 @@ def test_control_interface(vi: VirtualInstrument) -> None:
                 return reply
 
             assert ask({"op": "tap", "point": "B3", "force_n": 12.5})["ok"] is True
-            assert "unknown" in str(ask({"op": "tap", "point": "Z9"})["error"])
+            off = ask({"op": "tap", "point": "Z9"})
+            assert off["ok"] is False and "'Z9' is not on the simulated piece" in str(off["error"])
+            for huge in (10**400, -(10**400), 1e308 * 10):  # JSON keeps big ints exact
+                reply = ask({"op": "tap", "point": "B3", "force_n": huge})
+                assert reply["ok"] is False and "force_n" in str(reply["error"]), reply
             assert ask({"op": "fault", "name": "stalled", "value": "yes"})["ok"] is False
             assert ask({"op": "fault", "name": "nope", "value": 1})["ok"] is False
             assert ask({"op": "frobnicate"})["ok"] is False
