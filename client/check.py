@@ -224,6 +224,20 @@ class CheckResult:
     driving_points: tuple[DrivingPointCheck, ...]
     settings: CheckSettings = field(default_factory=CheckSettings)
     fitted: FittedView | None = None  # the modal fit against the peaks (check_modes.py)
+    unmeasured: tuple[str, ...] = ()  # grid points with no point set yet: to tap too
+    grid_points: int = 0  # points in the test's grid (0: unknown)
+    sensors_unplaced: tuple[str, ...] = ()  # responses whose place the test never got
+
+    @property
+    def coverage(self) -> str:
+        """e.g. "15 of 30 points"."""
+        total = self.grid_points or len(self.points)
+        return f"{len(self.points)} of {total} point{'' if total == 1 else 's'}"
+
+    @property
+    def tap_again(self) -> tuple[str, ...]:
+        """Flagged points, then the points not measured yet, in grid order."""
+        return tuple(pc.point for pc in self.point_checks if pc.needs_tap) + self.unmeasured
 
     def to_dict(self) -> dict[str, Any]:
         """A JSON-able dict (NaN and inf become None)."""
@@ -234,6 +248,7 @@ class CheckResult:
             row["ok"] = dp.ok
         for mode, row in zip(self.modes, out["modes"], strict=True):
             row["shape"] = list(mode.shape)
+        out["coverage"], out["tap_again"] = self.coverage, list(self.tap_again)
         cleaned: dict[str, Any] = jsonable(out)
         return cleaned
 
@@ -384,6 +399,9 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
         driving_points=driving,
         settings=s,
         fitted=fitted,
+        unmeasured=data.unmeasured,
+        grid_points=len(data.grid),
+        sensors_unplaced=tuple(data.meta.get("sensors_missing", ())),
     )
 
 
@@ -508,6 +526,11 @@ def _num(value: float, fmt: str) -> str:
     return "-" if not math.isfinite(value) else format(value, fmt)
 
 
+def _coh_width(result: CheckResult) -> int:
+    """Width of one coherence column: its header "coh <label>" and a space."""
+    return max(7, *(len(r) + 5 for r in result.responses))
+
+
 def report_text(result: CheckResult) -> str:
     """The check as plain text (check.txt): points, modes, driving points, in that order."""
     s = result.settings
@@ -518,18 +541,24 @@ def report_text(result: CheckResult) -> str:
         f"analysis band {result.band_hz[0]:.1f} to {result.band_hz[1]:.1f} Hz; "
         f"exponential window tau {tau}",
         "",
-        f"points ({len(result.point_checks)}): force band = Gff within {s.force_drop_db:g} dB "
-        f"of its low-frequency level; flags need another tap",
-        f"  {'point':<8}{'avg':>4}  {'rejected':<24}{'coherence':<18}{'force to':>10}  flags",
+        f"points ({result.coverage}): force band = Gff within {s.force_drop_db:g} dB "
+        f"of its low-frequency level; coherence = its mean over the analysis band, one column "
+        f"per response; flags need another tap",
+        f"  {'point':<8}{'avg':>4}  {'rejected':<24}"
+        + "".join(f"{'coh ' + r:<{_coh_width(result)}}" for r in result.responses)
+        + f"{'force to':>10}  flags",
     ]
     for pc in result.point_checks:
         rejected = ", ".join(f"{k} {v}" for k, v in pc.rejections.items()) or "-"
-        coh = " ".join(_num(c, ".3f") for c in pc.mean_coherence)
+        coh = "".join(f"{_num(c, '.3f'):<{_coh_width(result)}}" for c in pc.mean_coherence)
         lines.append(
-            f"  {pc.point:<8}{pc.n_averages:>4}  {rejected:<24}{coh:<18}"
+            f"  {pc.point:<8}{pc.n_averages:>4}  {rejected:<24}{coh}"
             f"{pc.force_band_top_hz:>8.0f} Hz  {' '.join(pc.flags) or 'ok'}"
         )
-    again = [pc.point for pc in result.point_checks if pc.needs_tap]
+    if result.unmeasured:
+        lines.append(f"  not measured yet ({len(result.unmeasured)}): "
+                     f"{' '.join(result.unmeasured)}")  # fmt: skip
+    again = result.tap_again
     lines.append(f"  tap again: {' '.join(again) if again else 'none'}")
     lines += [
         "",
@@ -547,7 +576,10 @@ def report_text(result: CheckResult) -> str:
     if result.fitted is not None:
         lines += ["", *report_lines(result.fitted, len(result.modes))]
     lines += ["", "driving points:"]
-    if not result.driving_points:
+    if result.sensors_unplaced:
+        lines.append(f"  unknown: the test never got the place of "
+                     f"{', '.join(result.sensors_unplaced)}")  # fmt: skip
+    elif not result.driving_points:
         lines.append("  none in this test")
     for dp in result.driving_points:
         verdict = "ok" if dp.ok else "SUSPECT"

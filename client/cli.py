@@ -23,6 +23,7 @@ import typer
 
 from .archive.cli import app as archive_app
 from .errors import ClientError
+from .words import count
 
 if TYPE_CHECKING:
     from .dataset import TestData
@@ -73,6 +74,10 @@ def _guard() -> Iterator[None]:
     except ValueError as exc:  # bad option values found past typer (bands, addresses, data)
         typer.echo(f"taprig: {exc}", err=True)
         raise typer.Exit(code=2) from None
+    except OSError as exc:  # a file the system refused (e.g. --out in a missing folder)
+        where = f"{exc.filename}: " if exc.filename else ""
+        typer.echo(f"taprig: {where}{exc.strerror or exc}", err=True)
+        raise typer.Exit(code=1) from None
 
 
 def _emit(as_json: bool, obj: Any, lines: Callable[[], list[str]]) -> None:
@@ -178,7 +183,7 @@ def status(rig: RigArgument = None, as_json: JsonOption = False) -> None:
             f"link     CRC errors {link['crc_errors']}, samples lost {link['samples_lost']}, "
             f"resyncs {link['resyncs']}, reconnects {link['reconnects']}",
             f"test     {s['test'] or '-'}; point {s['point'] or '-'} "
-            f"({s['averages']}/{s['required']} averages), {len(s['done'])} points done, "
+            f"({s['averages']}/{s['required']} averages), {count(len(s['done']), 'point')} done, "
             + ("armed" if s["armed"] else "not armed"),
             f"changes  last seq {state['last_seq']}",
         ]
@@ -207,14 +212,15 @@ def tests(
     on_rig: dict[str, int] = {}
     for p in points:
         on_rig[p.test] = on_rig.get(p.test, 0) + 1
-    rows = [{"name": t.name, "roving_mode": t.roving_mode, "reference": t.reference,
+    rows: list[dict[str, Any]] = [
+            {"name": t.name, "roving_mode": t.roving_mode, "reference": t.reference,
              "grid_points": len(t.grid), "averages": t.averages, "created_utc": t.created_utc,
              "point_sets_on_rig": on_rig.get(t.name, 0),
              "point_sets_mirrored": here.get(t.name, 0)} for t in found]  # fmt: skip
 
     def lines() -> list[str]:
-        out = [f"{r['name']:<24} {r['roving_mode']:<7} {r['grid_points']:>4} points  "
-               f"{r['point_sets_on_rig']:>4} point sets on the rig, "
+        out = [f"{r['name']:<24} {r['roving_mode']:<7} {count(r['grid_points'], 'point'):>11}  "
+               f"{count(r['point_sets_on_rig'], 'point set'):>14} on the rig, "
                f"{r['point_sets_mirrored']:>4} mirrored" for r in rows]  # fmt: skip
         return out or ["no tests yet"]
 
@@ -251,9 +257,9 @@ def pull(
             path = mirror.path
     obj = _report_json(report, path)
     _emit(as_json, obj, lambda: [
-        f"{report.point_sets} new point sets ({report.bytes / 1e6:.1f} MB, "
-        f"{report.mb_per_s:.1f} MB/s), {report.tests} tests, {report.already_here} already "
-        f"here; mirror {path}"])  # fmt: skip
+        f"{count(report.point_sets, 'new point set')} ({report.bytes / 1e6:.1f} MB, "
+        f"{report.mb_per_s:.1f} MB/s), {count(report.tests, 'test')}, "
+        f"{report.already_here} already here; mirror {path}"])  # fmt: skip
 
 
 @contextlib.contextmanager
@@ -387,10 +393,15 @@ def export(
     with _guard():
         data = _load(rig, test, archive)
         suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
-        path = write(data, out or Path(f"{test}{suffix}"), fmt.value, quantity.value, _band(band))
+        target = out or Path(f"{test}{suffix}")
+        if not target.absolute().parent.is_dir():
+            raise ClientError(f"cannot write {target}: the folder {target.parent} does not exist")
+        path = write(data, target, fmt.value, quantity.value, _band(band))
     obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
-           "quantity": quantity.value, "format": fmt.value}  # fmt: skip
-    _emit(as_json, obj, lambda: [f"{len(data.points)} points of {test} as {quantity.value} "
+           "quantity": quantity.value, "format": fmt.value, "coverage": data.coverage,
+           "unmeasured": list(data.unmeasured)}  # fmt: skip
+    partial = f" (partial: {len(data.unmeasured)} not measured)" if data.unmeasured else ""
+    _emit(as_json, obj, lambda: [f"{data.coverage} of {test}{partial} as {quantity.value} "
                                  f"-> {path}"])  # fmt: skip
 
 

@@ -48,7 +48,9 @@ class TestData:
     ("operator" for a hit rejected by hand with no finding).
     exp_tau_s: the exponential window's time constant, s (inf: none); one value per test
     (the rows must agree). meta: the first row's point-set metadata plus ``rig``,
-    ``rig_id``, ``test``; point_set_ids / versions / seqs: per row, from the rig.
+    ``rig_id``, ``test``, and from the test ``sensors`` (response label -> point, xyz m,
+    direction, unit vector) and ``sensors_missing`` (labels never placed);
+    point_set_ids / versions / seqs: per row, from the rig.
     grid: the test's whole grid (label, x, y, z, direction), measured or not.
     planned_averages: the averages per point the test asked for (0 when unknown).
     completed_utc: per row, when its point set completed on the rig (ISO 8601 UTC).
@@ -82,6 +84,17 @@ class TestData:
     grid: tuple[tuple[str, float, float, float, str], ...]
     meta: dict[str, Any] = field(default_factory=dict)
     planned_averages: int = 0  # averages per point the test asked for (0: unknown)
+
+    @property
+    def unmeasured(self) -> tuple[str, ...]:
+        """Grid points without a completed point set, in grid order."""
+        have = set(self.points)
+        return tuple(row[0] for row in self.grid if row[0] not in have)
+
+    @property
+    def coverage(self) -> str:
+        """How much of the grid is measured, e.g. "15 of 30 points"."""
+        return f"{len(self.points)} of {len(self.grid)} point{'' if len(self.grid) == 1 else 's'}"
     completed_utc: tuple[str, ...] = ()  # per row: when its point set completed, ISO 8601 UTC
     test_meta: dict[str, Any] = field(default_factory=dict)  # the test's own (sensors, outline)
 
@@ -168,11 +181,16 @@ def assemble(
         versions=tuple(ps.version for ps in rows),
         seqs=tuple(ps.seq for ps in rows),
         grid=tuple(test.grid),
-        meta={**first.meta, "rig": rig, "rig_id": rig_id, "test": test.name},
+        meta={**first.meta, "rig": rig, "rig_id": rig_id, "test": test.name,
+              **{k: test.meta[k] for k in _TEST_META if k in test.meta}},
         planned_averages=test.averages,
         completed_utc=tuple(ps.completed_utc for ps in rows),
         test_meta=dict(test.meta),
     )
+
+
+# The test's own metadata a fitter needs: where the sensors sit, what the grid looked like.
+_TEST_META = ("sensors", "sensors_missing", "grid_warnings")
 
 
 def _rejections(ps: WirePointSet) -> dict[str, int]:

@@ -16,13 +16,16 @@ coord          (P, 3)      float64     m, x y z of each row's point
 direction      (P,)        unicode     "+z" ...: the direction measured at each row's point
 response       (R,)        unicode     sensor channel labels
 n_averages     (P,)        int64       accepted hits per point set
-exp_tau_s      ()          float64     exponential window time constant, s (inf: none)
+exp_tau_s      ()          float64     exponential window time constant, s (inf: none);
+                                       H1/H2 carry its added decay 1/tau: σ_true =
+                                       σ_measured − 1/tau (``meta.exponential_window``)
 meta           ()          unicode     JSON (NaN, inf as null): the point sets' metadata
                                        (rig, test, sample rate, block, windows, channels
                                        and sensitivities, device), plus quantity, unit,
                                        band_hz, roving mode, reference, drive and response
                                        points, rejections, and per row the point-set id,
-                                       version and seq
+                                       version and seq; coverage ("15 of 30 points") and
+                                       unmeasured_points; sensors (each response's place)
 geometry       ()          unicode     JSON (npz and HDF5): the structure's points (label,
                                        xyz m, direction vector), faces (name, triangles
                                        of point indices, unit normal) and lines: the
@@ -67,6 +70,7 @@ import numpy as np
 
 from .dataset import TestData, jsonable
 from .errors import ClientError
+from .words import extra_hint
 
 __all__ = ["FORMATS", "QUANTITIES", "UNITS", "export", "frf_arrays", "geometry_json", "meta_json"]
 
@@ -153,6 +157,15 @@ def frf_arrays(
     }
 
 
+WINDOW_NOTE = (
+    "H1 and H2 are computed from records multiplied by an exponential window "
+    "exp(-t/exp_tau_s) (force and responses alike, from the trigger on), so every mode carries "
+    "the window's added decay rate 1/exp_tau_s (exp_decay_per_s, 1/s). To remove it from a "
+    "fitted pole: sigma_true = sigma_measured - 1/exp_tau_s, where sigma = zeta*omega_n; "
+    "for damping ratios zeta_true = zeta_measured - 1/(2*pi*f_n*exp_tau_s)"
+)
+
+
 def meta_json(data: TestData, quantity: str, band: tuple[float, float] | None) -> str:
     """The export's metadata as one JSON text (NaN and inf written as null)."""
     meta = {
@@ -171,6 +184,12 @@ def meta_json(data: TestData, quantity: str, band: tuple[float, float] | None) -
         "seqs": list(data.seqs),
         "completed_utc": list(data.completed_utc),
         "planned_averages": data.planned_averages,
+        "coverage": data.coverage,
+        "points_measured": len(data.points),
+        "points_in_grid": len(data.grid),
+        "unmeasured_points": list(data.unmeasured),
+        "exp_decay_per_s": 0.0 if math.isinf(data.exp_tau_s) else 1.0 / data.exp_tau_s,
+        "exponential_window": WINDOW_NOTE,
     }
     return json.dumps(jsonable(meta), sort_keys=True, allow_nan=False)
 
@@ -238,7 +257,7 @@ def _write_hdf5(data: TestData, arrays: dict[str, Any], path: Path) -> None:
         import h5py
     except ImportError:
         raise ClientError(
-            "HDF5 export needs h5py: install the extra with  pip install 'taprig[hdf5]'"
+            f"HDF5 export needs h5py: install the extra with  {extra_hint('hdf5')}"
         ) from None
     text = h5py.string_dtype("utf-8")
     meta = json.loads(arrays["meta"])
@@ -264,7 +283,9 @@ def _write_csv(data: TestData, arrays: dict[str, Any], path: Path) -> None:
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(f"# taprig export of test {data.test!r} from rig {data.rig!r}\n")
         fh.write(f"# quantity: {meta['quantity']}; unit: {meta['unit']}\n")
-        fh.write(f"# exp_tau_s: {data.exp_tau_s!r}\n")
+        fh.write(f"# points: {data.coverage} measured\n")
+        fh.write(f"# exp_tau_s: {data.exp_tau_s!r} (H1, H2 carry the added decay 1/tau; "
+                 "sigma_true = sigma_measured - 1/tau)\n")
         fh.write(f"# meta: {arrays['meta']}\n")
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(_CSV_COLUMNS)

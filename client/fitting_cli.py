@@ -17,6 +17,7 @@ import typer
 
 from .dataset import TestData
 from .modal.model import ModalModel
+from .words import count
 
 __all__ = ["mode_table", "parse_orders", "parse_pick", "register"]
 
@@ -57,7 +58,7 @@ def mode_table(model: ModalModel) -> list[str]:
     """The model as lines of text: one row per mode, then the notes."""
     refs = " ".join(f"{r[:8]:>8}" for r in model.reference)
     lines = [
-        f"{model.n_modes} modes of {model.meta.get('test', '?')} in "
+        f"{count(model.n_modes, 'mode')} of {model.meta.get('test', '?')} in "
         f"{model.meta['band_hz'][0]:.1f} to {model.meta['band_hz'][1]:.1f} Hz "
         f"(pLSCF orders {model.meta['orders'][0]}..{model.meta['orders'][1]}, LSFD); "
         f"scaling: {model.meta['scaling']}",

@@ -58,6 +58,10 @@ def _guard() -> Iterator[None]:
     except ValueError as exc:  # e.g. a pairing host that is no host
         typer.echo(f"taprigd: {exc}", err=True)
         raise typer.Exit(code=2) from None
+    except OSError as exc:  # a file or port the system refused: say which, never a traceback
+        where = f"{exc.filename}: " if exc.filename else ""
+        typer.echo(f"taprigd: {where}{exc.strerror or exc}", err=True)
+        raise typer.Exit(code=1) from None
     except KeyboardInterrupt:
         pass
 
@@ -203,6 +207,32 @@ def instrument(
         vi.close()
 
 
+# `taprigd run`'s options about the test and the simulated piece, declared apart so that the
+# command reads as its list of parts.
+ReferenceOption = Annotated[
+    str | None,
+    typer.Option(help="hammer point (sensor mode); in hammer mode where the first response "
+                 "sensor sits, the same as --sensor-at for it"),
+]  # fmt: skip
+SensorAtOption = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--sensor-at",
+        help="hammer mode, a new test: where a response sensor sits, LABEL=WHERE[/DIR]: "
+        "a grid label or x,y,z in metres, then +x..-z or a vector (default +z); e.g. "
+        "acc1=B3/+z; once per sensor (the [[channels]] location is the default)",
+    ),
+]
+VirtualSpeedOption = Annotated[
+    float,
+    typer.Option(
+        min=0.1, max=16.0,
+        help="virtual device only: simulated seconds per wall second (above 1: faster "
+        "than real time, for demonstrations)",
+    ),
+]  # fmt: skip
+
+
 class Roving(StrEnum):
     hammer = "hammer"
     sensor = "sensor"
@@ -231,9 +261,8 @@ def run(
     ] = None,
     outline: OutlineOption = None,
     roving: Annotated[Roving, typer.Option(help="what moves between points")] = Roving.hammer,
-    reference: Annotated[
-        str | None, typer.Option(help="fixed sensor (hammer mode) or hammer point (sensor mode)")
-    ] = None,
+    reference: ReferenceOption = None,
+    sensor_at: SensorAtOption = None,
     duration: Annotated[float, typer.Option(help="stop after this many seconds (0: run on)")] = 0.0,
     virtual_taps: Annotated[
         float, typer.Option(help="virtual device only: a simulated operator taps every N s")
@@ -253,6 +282,7 @@ def run(
             "loopback port (0: any free port; recorded in <data_dir>/run.json)",
         ),
     ] = None,
+    virtual_speed: VirtualSpeedOption = 1.0,
     json_events: Annotated[
         bool, typer.Option("--json-events", help="print every rig event as a JSON line")
     ] = False,
@@ -267,12 +297,24 @@ def run(
     from .run import run as run_daemon
 
     _setup_logging(verbose)
-    options = RunOptions(test, grid, RovingMode(roving.value), reference, duration, virtual_taps,
-                         virtual_double_hits, truth, json_events, virtual_control,
-                         outline)  # fmt: skip
     with _guard():
+        places = tuple(_sensor_flag(text) for text in sensor_at or [])
+        options = RunOptions(test, grid, RovingMode(roving.value), reference, duration,
+                             virtual_taps, virtual_double_hits, truth, json_events,
+                             virtual_control, outline=outline, virtual_speed=virtual_speed,
+                             sensor_at=places)  # fmt: skip
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))
+
+
+def _sensor_flag(text: str) -> tuple[str, str, str]:
+    from . import placement
+    from .errors import ConfigError
+
+    try:
+        return placement.split_flag(text)
+    except ValueError as exc:
+        raise ConfigError(str(exc)) from None
 
 
 @app.command()

@@ -21,6 +21,10 @@ from .errors import GridError
 from .records import GridPoint
 
 _DIRECTION = re.compile(r"[+-][xyz]")
+# A grid wider than this, in metres, is more likely written in millimetres: a tap test with
+# an instrumented hammer covers a part or a panel, a machine or a car body at most (common
+# practice; a bridge deck tested by hammer would pass this by a lot, hence only a warning).
+PLAUSIBLE_EXTENT_M = 20.0
 MAX_POINTS = 4096  # points in one test's grid, however the grid arrives
 
 
@@ -54,6 +58,19 @@ def import_grid_csv(text: str, max_points: int | None = None) -> list[GridPoint]
     if not points:
         raise GridError("grid CSV has a header but no points")
     return points
+
+
+def grid_warnings(points: list[GridPoint]) -> list[str]:
+    """Warnings about a grid that is valid but probably not what was meant (units)."""
+    if not points:
+        return []
+    spans = [max(c) - min(c) for c in zip(*((p.x, p.y, p.z) for p in points), strict=True)]
+    extent = max(spans)
+    if extent <= PLAUSIBLE_EXTENT_M:
+        return []
+    return [f"the grid spans {extent:g} m across, implausible for a tap test: coordinates are "
+            f"in metres; did you mean millimetres? ({extent:g} mm would be {extent / 1000:g} m; "
+            "divide the coordinates by 1000)"]  # fmt: skip
 
 
 def _grid_row(line: int, header: list[str], row: list[str]) -> GridPoint:

@@ -13,7 +13,9 @@ from __future__ import annotations
 import asyncio
 import concurrent.futures
 import contextlib
+import dataclasses
 import logging
+import os
 from collections.abc import AsyncIterator, Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
@@ -22,7 +24,7 @@ from . import identity
 from .api.gate import Limits
 from .auth import Auth
 from .config import Config
-from .errors import ConfigError
+from .errors import ConfigError, StoreError
 from .logrepeat import WINDOW_S, report_folded
 from .notify import Notifier
 from .private import private_dir
@@ -48,19 +50,24 @@ def start_rig(
     instrument_settings: InstrumentSettings | None = None,
     model: ModalModel | None = None,
     control_port: int | None = None,
+    virtual_speed: float = 1.0,
 ) -> RunningRig:
     """Start the capture parts the configuration names, in order, and start capturing.
 
     instrument_settings, model: for a virtual device, how to build it (default: the demo panel).
     control_port: serve the virtual device's control interface on this loopback port (0: any).
+    virtual_speed: simulated seconds per wall second of a virtual device (1: real time).
     """
+    usable_data_dir(config)
     if control_port is not None and not config.device.is_virtual:
         raise ConfigError("--virtual-control needs a virtual device (device.url=virtual...)")
+    if virtual_speed != 1.0 and not config.device.is_virtual:
+        raise ConfigError("--virtual-speed needs a virtual device (device.url=virtual...)")
     with contextlib.ExitStack() as stack:
         instrument = control = None
         url = config.device.url
         if config.device.is_virtual:
-            instrument = _open_instrument(config, instrument_settings, model)
+            instrument = _open_instrument(config, instrument_settings, model, virtual_speed)
             stack.callback(instrument.close)
             url = instrument.url
             if control_port is not None:
@@ -77,8 +84,23 @@ def start_rig(
     raise AssertionError("unreachable")  # mypy: an ExitStack may swallow exceptions
 
 
+def usable_data_dir(config: Config) -> None:
+    """Make store.data_dir if missing; StoreError naming the key when it cannot be made or
+    written (checked first, so no part starts only to fail on it)."""
+    folder = config.store.data_dir
+    hint = ("; set store.data_dir (or TAPRIG_DATA_DIR) to a folder you may write, "
+            "or run as the user the install made for it")  # fmt: skip
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        reason = exc.strerror or str(exc)
+        raise StoreError(f"store.data_dir = {folder}: cannot be made ({reason}){hint}") from None
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise StoreError(f"store.data_dir = {folder}: not writable by this user{hint}")
+
+
 def _open_instrument(
-    config: Config, settings: InstrumentSettings | None, model: ModalModel | None
+    config: Config, settings: InstrumentSettings | None, model: ModalModel | None, speed: float
 ) -> VirtualInstrument:
     from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
 
@@ -90,6 +112,8 @@ def _open_instrument(
         settings = (
             InstrumentSettings(output="text", rate_hz=5_000.0) if text else InstrumentSettings()
         )
+    if speed != 1.0:
+        settings = dataclasses.replace(settings, speed=speed)
     # Behind a stable name in the data folder, as udev gives a USB device, so the link finds
     # it again after an unplug.
     link = str(config.store.data_dir / "virtual-tty") if transport == "pty" else None
@@ -117,6 +141,7 @@ async def lifespan(
     control_port: int | None = None,
     prepare: Callable[[RunningRig], None] | None = None,
     notifier: Notifier | None = None,
+    virtual_speed: float = 1.0,
 ) -> AsyncIterator[Daemon]:
     """Every part, in order: the capture parts (`start_rig`), then auth, service, run file,
     advertiser, notifier; on leaving, all of them stop in reverse.
@@ -124,12 +149,13 @@ async def lifespan(
     Entered inside the event loop. control_port: as for `start_rig`. prepare: run on a worker
     thread once the rig runs and before the service opens (e.g. to open a test), so that a
     tool that finds the run file finds the rig ready. notifier: where readiness and status go
-    (default: $NOTIFY_SOCKET, if set).
+    (default: $NOTIFY_SOCKET, if set). virtual_speed: as for `start_rig`.
     """
     from .api.service import Service
 
     async with contextlib.AsyncExitStack() as stack:
-        running = await asyncio.to_thread(start_rig, cfg, None, None, control_port)
+        running = await asyncio.to_thread(start_rig, cfg, None, None, control_port,
+                                          virtual_speed)
         stack.push_async_callback(asyncio.to_thread, running.close)  # joins threads: off the loop
         if prepare is not None:
             await asyncio.to_thread(prepare, running)

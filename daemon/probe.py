@@ -87,7 +87,8 @@ def probe(
         text_rate_hz = text_rate_hz or (rate if fmt == "text" else None)
         if truth_path is not None:
             write_truth(vi.model, truth_path)
-    decoder: Decoder = make_decoder(fmt, **({"rate_hz": text_rate_hz} if fmt == "text" else {}))
+    text_options = {"rate_hz": text_rate_hz, "rate_key": "--rate <Hz>"}
+    decoder: Decoder = make_decoder(fmt, **(text_options if fmt == "text" else {}))
     link = SerialLink(url).start()
     try:
         return _stream(link, decoder, url, fmt, (seconds, connect_s), taps, vi)

@@ -38,6 +38,8 @@ class ChannelSpec:
     sensitivity: float
     sensitivity_unit: str  # as entered: "mV/N", "mV/(m/s^2)" or "mV/g"
     si_per_volt: float
+    location: str = ""  # a response sensor's place as written (daemon/placement.py); "": unset
+    direction: str = "+z"  # the direction it measures in, as written
 
 
 @dataclass(frozen=True, slots=True)

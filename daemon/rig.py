@@ -20,13 +20,11 @@ from collections.abc import Callable
 from typing import Any
 
 from taprig.firmware_protocol import (
-    Command,
     DeviceInfo,
     DeviceInfoReceived,
     FrameEncoder,
     Gap,
     IndexReset,
-    Opcode,
     ProtocolViolation,
     SampleBlock,
     StatusReceived,
@@ -135,12 +133,13 @@ class Rig(Owner[RigEvent]):
         roving_mode: RovingMode = RovingMode.HAMMER,
         reference: str | None = None,
         averages: int | None = None,
-        sensor_points: dict[str, str] | None = None,
+        sensor_points: stages.Places | None = None,
         outline: str | None = None,
-    ) -> None:
-        """Store a new test (daemon/stages.py's `save_test`; any thread)."""
-        stages.save_test(self.config, self.store, name, grid, roving_mode, reference, averages,
-                         sensor_points, outline)  # fmt: skip
+    ) -> list[str]:
+        """Store a new test (daemon/stages.py's `save_test`; any thread); returns the response
+        channels whose place is still unknown."""
+        return stages.save_test(self.config, self.store, name, grid, roving_mode, reference,
+                                averages, sensor_points, outline)  # fmt: skip
 
     def select_test(self, name: str) -> None:
         self.call(lambda: self._select(name))
@@ -225,9 +224,8 @@ class Rig(Owner[RigEvent]):
         self._emit("device", {"state": change.state.value, "detail": change.detail})
         if change.state is LinkState.CONNECTED and change.detail.startswith("opened"):
             self._decoder.reset_link()
-            if self._decoder.name == "binary":
-                self._link.send(self._enc.command(Command(Opcode.IDENTIFY, 1)))
-                self._link.send(self._enc.command(Command(Opcode.START, 2)))
+            for data in stages.opening_bytes(self._decoder, self._enc):
+                self._link.send(data)
         elif change.state is LinkState.STALLED:
             self._link.reconnect("no data: reopening the device")
 

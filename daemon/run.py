@@ -16,9 +16,11 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
+from . import placement
 from .capture.link import LinkState
 from .config import Config
 from .errors import GridError, SessionError
+from .eventtext import event_text
 from .grid import MAX_POINTS, import_grid_csv, outline_beside, read_outline
 from .lifespan import lifespan
 from .records import GridPoint, RovingMode
@@ -46,6 +48,8 @@ class RunOptions:
     json_events: bool = False
     virtual_control: int | None = None
     outline: Path | None = None  # default: <grid>.outline beside the grid, when there is one
+    virtual_speed: float = 1.0  # simulated seconds per wall second (virtual device only)
+    sensor_at: tuple[tuple[str, str, str], ...] = ()  # (label, where, direction) per --sensor-at
 
 
 async def run(cfg: Config, opt: RunOptions) -> None:
@@ -57,7 +61,7 @@ async def run(cfg: Config, opt: RunOptions) -> None:
     for sig in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(sig, stop.set)
     try:
-        async with lifespan(cfg, control_port=opt.virtual_control,
+        async with lifespan(cfg, control_port=opt.virtual_control, virtual_speed=opt.virtual_speed,
                             prepare=functools.partial(_prepare, opt=opt)) as daemon:  # fmt: skip
             await _until_stopped(daemon.running, opt, stop)
     finally:
@@ -87,7 +91,7 @@ def _shower(json_events: bool) -> Callable[[RigEvent], None]:
         if json_events:
             print(json.dumps({"kind": event.kind, **event.data}, default=str), flush=True)
         else:
-            log.info("%s %s", event.kind, event.data)
+            log.info("%s", event_text(event))
 
     return show
 
@@ -124,13 +128,38 @@ def open_test(running: RunningRig, opt: RunOptions) -> None:
         _check_tappable(name, points or running.store.get_test(name).grid, vi.model.grid)
     outline = _outline(opt, points)
     if points:
-        sensor_points = dict(vi.model.sensors) if vi is not None else None
-        rig.create_test(name, points, opt.roving, opt.reference,
-                        sensor_points=sensor_points, outline=outline)  # fmt: skip
+        _create(running, name, points, opt, outline)
     # Opened and armed once the device identifies itself: the service and the page run
     # meanwhile and say what the rig waits for (a low disk only defers arming).
     rig.open_when_ready(name, arm=True)
     settle(rig, name)
+
+
+def _create(
+    running: RunningRig, name: str, points: list[GridPoint], opt: RunOptions, outline: str | None
+) -> None:
+    """Create the test; a roving-hammer test whose sensor places are not all known is
+    refused before anything is stored (the virtual structure knows where its own sit)."""
+    given: dict[str, str | tuple[str, str]] = {}
+    responses = {c.label for c in running.config.response_channels}
+    if running.instrument is not None:  # where the simulated piece's sensors sit, if used
+        m, labels = running.instrument.model, {p.label for p in points}
+        for label, at in m.sensors.items():
+            if label in responses:
+                xyz = ",".join(f"{c:g}" for c in m.coords[m.index(at)])
+                given[label] = at if at in labels else xyz
+    given.update({label: (where, direction) for label, where, direction in opt.sensor_at})
+    if opt.roving is RovingMode.HAMMER:
+        cfg = running.config
+        try:
+            _, missing, _ = placement.test_places(cfg.response_channels, given, points,
+                                                  opt.reference)  # fmt: skip
+        except ValueError as exc:
+            raise SessionError(f"test {name!r}: {exc}") from None
+        if missing:
+            raise SessionError(placement.missing_message(name, missing))
+    running.rig.create_test(name, points, opt.roving, opt.reference, sensor_points=given,
+                            outline=outline)  # fmt: skip
 
 
 def _check_tappable(test: str, points: Sequence[GridPoint], on_piece: Sequence[str]) -> None:

@@ -1,17 +1,27 @@
 """The capture stages built from the configuration and the device's own description.
 
 Pure construction, no state: the rig (daemon/rig.py) calls these when the device identifies
-itself (decoder, acquirer), at start (checks) and when a test is selected (session).
+itself (decoder, acquirer), at start (checks), when the link opens (what to ask the
+device) and when a test is selected (session).
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import logging
+from collections.abc import Mapping, Sequence
 from typing import Any
 
-from taprig.firmware_protocol import Decoder, DeviceInfo, make_decoder
+from taprig.firmware_protocol import (
+    Command,
+    Decoder,
+    DeviceInfo,
+    FrameEncoder,
+    Opcode,
+    make_decoder,
+)
+from taprig.firmware_protocol.text import RATE_QUERY
 
-from . import __version__
+from . import __version__, placement
 from .capture.acquire import Acquirer, TriggerSettings
 from .capture.hits import CheckSettings
 from .capture.session import Plan, Session
@@ -22,14 +32,26 @@ from .grid import test_meta
 from .records import GridPoint, Role, RovingMode
 from .store import Store, TestPlan
 
+log = logging.getLogger(__name__)
+Places = Mapping[str, str | tuple[str, str]]  # label -> where, or (where, direction)
 
 def decoder(config: Config) -> Decoder:
     """The input format's decoder, as device.format names it."""
     d = config.device
     if d.format == "text":
         return make_decoder("text", rate_hz=d.text_rate_hz or None,
-                            full_scale_v=d.text_full_scale_v)  # fmt: skip
+                            full_scale_v=d.text_full_scale_v,
+                            rate_key="device.text_rate_hz = <Hz> in the configuration")  # fmt: skip
     return make_decoder("binary")
+
+
+def opening_bytes(decoder: Decoder, enc: FrameEncoder) -> list[bytes]:
+    """What the host writes to a device it has just opened: a binary device is asked to
+    identify itself and start; a text device whose rate is unknown is asked to repeat it
+    (a board that printed it once, before the port was opened, lost that line on opening)."""
+    if decoder.name == "binary":
+        return [enc.command(Command(Opcode.IDENTIFY, 1)), enc.command(Command(Opcode.START, 2))]
+    return [RATE_QUERY] if decoder.info is None else []
 
 
 def check_settings(config: Config) -> CheckSettings:
@@ -46,6 +68,7 @@ def check_settings(config: Config) -> CheckSettings:
         decay_warning_fraction=cap.decay_warning_fraction,
         exponential_window=config.windows.exponential_end is not None,
         sign=1.0 if cap.trigger_slope == "rising" else -1.0,
+        labels=tuple(c.label for c in chans),
     )
 
 
@@ -86,17 +109,25 @@ def save_test(
     roving_mode: RovingMode,
     reference: str | None,
     averages: int | None,
-    sensor_points: dict[str, str] | None,
+    sensor_points: Places | None,
     outline: str | None = None,
-) -> None:
-    """Store a new test: reference default the first grid point (it must be on the grid in
-    roving-sensor mode), averages default the configuration's; its metadata from
-    daemon/grid.py's `test_meta` (sensor points, the outline's text)."""
-    ref = reference if reference is not None else grid[0].label
-    if ref not in {p.label for p in grid} and roving_mode is RovingMode.SENSOR:
-        raise SessionError(f"reference {ref!r} is not a point of the grid")
+) -> list[str]:
+    """Store a new test; returns the response channels whose place is still unknown.
+
+    Sensor places come from daemon/placement.py's `test_meta`, never guessed; the grid's
+    warnings are logged; the outline's text is kept when one came with the grid. Averages
+    default to the configuration's."""
+    try:
+        ref, meta = placement.test_meta(roving_mode is RovingMode.HAMMER, grid, reference,
+                                        config.response_channels, sensor_points or {})  # fmt: skip
+    except ValueError as exc:
+        raise SessionError(f"test {name!r}: {exc}") from None
+    meta = {**test_meta(None, outline), **meta}
+    for text in meta["grid_warnings"]:
+        log.warning("test %s: %s", name, text)
     avg = averages if averages is not None else config.capture.averages
-    store.save_test(name, grid, roving_mode, ref, avg, test_meta(sensor_points, outline))
+    store.save_test(name, grid, roving_mode, ref, avg, meta)
+    return list(meta.get("sensors_missing", []))
 
 
 def meta(config: Config, info: DeviceInfo) -> dict[str, Any]:

@@ -19,6 +19,7 @@ from typing import Any
 from .auth import TOKEN_FILE
 from .config import Config
 from .errors import StoreError
+from .eventtext import count
 from .identity import read_run_file
 from .store import peek_stats
 
@@ -86,8 +87,8 @@ def render(status: dict[str, Any]) -> list[str]:
     else:
         mb = (store["db_bytes"] + store["wal_bytes"]) / 1e6
         lines.append(
-            f"store       {store['path']}: {mb:.1f} MB, {store['tests']} tests, "
-            f"{store['point_sets']} point sets, last change {store['last_seq']}"
+            f"store       {store['path']}: {mb:.1f} MB, {count(store['tests'], 'test')}, "
+            f"{count(store['point_sets'], 'point set')}, last change {store['last_seq']}"
         )
     free = status["free_mb"]
     if free is not None:
@@ -103,7 +104,7 @@ def _test_line(s: dict[str, Any]) -> str:
     if s.get("disk", {}).get("waiting_for_room"):
         armed = "paused, waiting for disk room"
     return (f"{s['test']}, point {s['point']} ({s['averages']}/{s['required']} averages), "
-            f"{len(s['done'])} points done, {armed}")  # fmt: skip
+            f"{count(len(s['done']), 'point')} done, {armed}")  # fmt: skip
 
 
 def _alive(pid: int) -> bool:

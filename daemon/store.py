@@ -455,7 +455,10 @@ class Store:
         A test is never replaced (its point sets refer to its grid): a name in use is an error.
         """
         mode, labels = RovingMode(roving_mode), [p.label for p in grid]
-        if not name or not grid or len(set(labels)) != len(labels) or reference not in labels:
+        # Roving hammer: the reference is where the first sensor sits, on the grid or off it
+        # ("x,y,z"), or "" while unknown; roving sensor: the hammer's grid point.
+        on_grid = reference in labels or mode is RovingMode.HAMMER
+        if not name or not grid or len(set(labels)) != len(labels) or not on_grid:
             raise StoreError(
                 f"test {name!r}: needs a name, a grid of distinct labels and a "
                 f"reference in it (reference {reference!r}, {len(grid)} points)"

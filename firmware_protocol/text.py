@@ -61,10 +61,19 @@ _RATE = re.compile(rb"#\s*rate\s*=\s*(.*?)\s*(?:hz)?\s*", re.IGNORECASE)
 
 _RANGE = "1 Hz to 1 MHz"  # MIN_RATE_HZ to MAX_RATE_HZ, for messages
 
-_NO_RATE_MESSAGE = (
-    'text input has no sample rate: add a "# rate=<Hz>" comment line to the stream '
-    "or set rate_hz in the configuration"
-)
+# What the host writes to ask a text device to announce its rate again: a board that prints
+# "# rate=" once at power-up loses that line when the host opens the port later (opening a
+# serial port discards input waiting in the driver; pyserial does so on open).
+RATE_QUERY = b"?rate\n"
+
+
+def no_rate_message(rate_key: str) -> str:
+    """What the host says while a text stream has no rate; `rate_key` names the setting."""
+    return (
+        'text input has no sample rate yet: sample lines are dropped until a "# rate=<Hz>" '
+        "line arrives (the host asked for it with a ?rate line; a board that announced it "
+        f"once, before the port was opened, lost it and may not answer): set {rate_key}"
+    )
 
 # Lines parsed by one C call, and on the error path before one line at a time.
 _GROUP_LINES = 256
@@ -214,6 +223,8 @@ class TextDecoder:
     rate_hz: sample rate in Hz from the configuration; a `# rate=<Hz>` comment
         in the stream overrides it (the last one counts).
     device_id: the name given in the synthesized DeviceInfo (ASCII, <= 16 characters).
+    rate_key: how messages name the setting that gives the rate (the daemon's
+        "device.text_rate_hz", a command's option).
 
     Sample indexes count every line that is neither a comment nor blank,
     good or malformed, from 0 at the start of the link. Line numbers (in
@@ -229,7 +240,9 @@ class TextDecoder:
         full_scale_v: float | Sequence[float] = 10.0,
         rate_hz: float | None = None,
         device_id: str = "text-input",
+        rate_key: str = "the sample rate in the configuration",
     ) -> None:
+        self._rate_key = rate_key
         if isinstance(full_scale_v, int | float):
             scales: tuple[float, ...] | None = None
             self._full_scale_all = float(full_scale_v)
@@ -393,7 +406,7 @@ class TextDecoder:
         if self._rate is None:
             if not self._warned_no_rate:
                 self._warned_no_rate = True
-                self._violation(events, _NO_RATE_MESSAGE)
+                self._violation(events, no_rate_message(self._rate_key))
         else:
             self._announce(events)
         return events

@@ -281,11 +281,14 @@ def _grid(rows: Any, where: str) -> list[GridRow]:
 def _test_fields(get: Callable[[str], Any]) -> dict[str, Any]:
     grid = _grid(get("grid"), "grid")
     reference = text(get("reference"), "reference")
-    if reference not in {row[0] for row in grid}:
+    mode = choice(get("roving_mode"), "roving_mode", ROVING_MODES)
+    # Roving hammer: where the first sensor sits, which may be off the grid ("x,y,z", m) or
+    # not yet known (""); roving sensor: the struck point, always a label of the grid.
+    if mode != "hammer" and reference not in {row[0] for row in grid}:
         fail("reference", f"{reference!r} is not a label of the grid")
     return {
         "name": text(get("name"), "name", nonempty=True),
-        "roving_mode": choice(get("roving_mode"), "roving_mode", ROVING_MODES),
+        "roving_mode": mode,
         "reference": reference,
         "averages": integer(get("averages"), "averages", 1),
         "created_utc": text(get("created_utc"), "created_utc"),

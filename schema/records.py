@@ -80,7 +80,9 @@ class WireTest:
     """A test: its grid in measuring order, roving mode, reference point, averages per point.
 
     grid: (label, x, y, z, direction) per point, coordinates in metres, direction one of
-    "+x" "-x" "+y" "-y" "+z" "-z". reference: a label of the grid. created_utc: ISO 8601 UTC.
+    "+x" "-x" "+y" "-y" "+z" "-z". reference: roving sensor, the struck grid label;
+    roving hammer, where the first sensor sits (a grid label, "x,y,z" in m, or "" unknown).
+    created_utc: ISO 8601 UTC.
     seq: its number in the change feed. meta: plain JSON values.
     """
 

@@ -41,9 +41,10 @@ EXTRA_HOMES = {"psycopg": "taprig.client.archive"}
 # What each import name is installed as (import name → distribution).
 DISTRIBUTIONS = {"serial": "pyserial", "PIL": "pillow"}
 
-BASE = ["__init__", "errors", "records", "wirebody", "grid", "identity", "display", "notify",
-        "owner", "txt", "redact", "room", "private", "resume", "logrepeat", "config.__init__",
-        "config.setting", "config.table", "config.channels"]  # fmt: skip
+BASE = ["__init__", "errors", "records", "placement", "wirebody", "grid", "identity", "display",
+        "notify", "owner", "txt", "redact", "room", "private", "resume", "logrepeat",
+        "config.__init__", "config.setting", "config.table", "config.channels",
+        "config.problems"]  # fmt: skip
 API = ["__init__", "__main__", "routes", "errors", "bodies", "validate", "openapi", "once", "feed",
        "gate", "site", "service"]  # fmt: skip
 # The daemon's modules in the order data flows through them: a module may import only
@@ -60,6 +61,7 @@ DAEMON_RANKS: dict[str, int] = {
     "stages": 7,
     "rigstate": 7,
     "tally": 7,
+    "eventtext": 8,
     "rig": 8,
     "running": 8,
     "auth": 9,

@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING, Annotated, Any, TypeVar
 import typer
 
 from ..errors import ClientError
+from ..words import count, extra_hint
 
 if TYPE_CHECKING:
     from ..dataset import TestData
@@ -48,7 +49,7 @@ def _command(fn: F) -> F:
                 if exc.name != "psycopg":
                     raise
                 raise ClientError(
-                    "the archive needs psycopg: pip install 'taprig[archive]'"
+                    f"the archive needs psycopg: {extra_hint('archive')}"
                 ) from None
 
     app.command()(guarded)
@@ -188,7 +189,7 @@ def status(dsn: DsnOption = None, as_json: JsonOption = False) -> None:
     for r in rigs:
         who = f"followed by {r['follower']}" if r["followed_now"] else "not followed now"
         typer.echo(
-            f"{r['name']:<20} {r['rig_id']:<14} {r['point_sets']:>7} point sets "
+            f"{r['name']:<20} {r['rig_id']:<14} {count(r['point_sets'], 'point set'):>17} "
             f"{int(r['bytes']) / 1e6:9.1f} MB  cursor {r['cursor']:<8} {who}"
             + (f"; last error: {r['last_error']}" if r["last_error"] else "")
         )

@@ -210,7 +210,8 @@ def _h5py() -> Any:
     try:
         import h5py
     except ImportError:
-        raise ModelFileError("HDF5 needs h5py: pip install 'taprig[hdf5]'") from None
+        raise ModelFileError("HDF5 needs h5py: pip install 'taprig[hdf5]' (in a checkout of "
+                             "taprig: pip install '.[hdf5]')") from None
     return h5py
 
 

@@ -40,6 +40,18 @@ LABEL: Final[Payload] = {
     "pattern": r"^(?!\.+$)[A-Za-z0-9_.-]{1,64}$",
     "description": "a grid point label: 1..64 of A-Z a-z 0-9 _ . - (not dots alone)",
 }
+PLACE: Final[Payload] = {
+    "type": "string",
+    "maxLength": 96,
+    "pattern": r"^[A-Za-z0-9_.,+eE -]+$",
+    "description": "a grid point label, or coordinates x,y,z in metres",
+}
+DIRECTION: Final[Payload] = {
+    "type": "string",
+    "maxLength": 96,
+    "pattern": r"^[0-9xyzeE.,+ -]+$",
+    "description": "+x, -x, +y, -y, +z, -z, or a vector a,b,c",
+}
 REQUEST_ID: Final[Payload] = {
     "type": "string",
     "pattern": r"^[A-Za-z0-9_-]{8,64}$",
@@ -81,14 +93,33 @@ CREATE_TEST: Final[Payload] = {
             "point, face, points, tri, quad, line records); kept with the test",
         },
         "roving_mode": {"type": "string", "enum": [m.value for m in RovingMode]},
-        "reference": {**LABEL, "description": "reference point; default the first grid point"},
+        "reference": {
+            **PLACE,
+            "description": "roving sensor: the hammer point (default the first grid point); "
+            "roving hammer: where the first sensor sits (as `sensors` says it)",
+        },
         "averages": {"type": "integer", "minimum": 1, "maximum": 1000},
         "sensor_points": {
             "type": "object",
             "maxProperties": 64,
             "propertyNames": LABEL,
-            "additionalProperties": LABEL,
-            "description": "response channel label -> the point its sensor sits on",
+            "additionalProperties": PLACE,
+            "description": "response channel label -> where its sensor sits (a grid label, "
+            "or x,y,z in metres)",
+        },
+        "sensors": {
+            "type": "object",
+            "maxProperties": 64,
+            "propertyNames": LABEL,
+            "additionalProperties": {
+                "type": "object",
+                "additionalProperties": False,
+                "required": ["at"],
+                "properties": {"at": PLACE, "direction": DIRECTION},
+            },
+            "description": "response channel label -> {at: a grid label or x,y,z in metres, "
+            "direction: +x..-z or a,b,c}; a roving-hammer test without them is stored with "
+            "sensors_missing, never a guessed place",
         },
     },
 }

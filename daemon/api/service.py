@@ -17,16 +17,16 @@ import asyncio
 import functools
 import logging
 import math
-from collections.abc import Awaitable, Callable
+from collections.abc import Awaitable, Callable, Sequence
 from typing import TYPE_CHECKING, Final
 
 from aiohttp import web
 
 from taprig.schema import API_VERSION, http, objects, records
 
-from .. import __version__, identity, page
+from .. import __version__, identity, page, placement
 from ..errors import TaprigError
-from ..records import GridPoint, RovingMode
+from ..records import ChannelSpec, GridPoint, RovingMode
 from . import validate
 from .bodies import (
     BODY_CACHE_BYTES,
@@ -51,6 +51,7 @@ from .site import GatedSite, fit_to_open_files
 
 if TYPE_CHECKING:
     from ..auth import Auth, AuthResult
+    from ..capture.session import Plan
     from ..running import RunningRig
 
 log = logging.getLogger(__name__)
@@ -66,6 +67,14 @@ REDACTED_LOGGERS: Final = (
     "aiohttp.access", "aiohttp.server", "aiohttp.web", __name__, "taprig.daemon.api.errors",
     "taprig.daemon.api.feed",
 )  # fmt: skip
+
+
+def _unplaced(plan: Plan | None, responses: Sequence[ChannelSpec]) -> list[str]:
+    """The selected roving-hammer test's response channels whose place it never got (for
+    the page's prompt)."""
+    if plan is None or plan.roving_mode is not RovingMode.HAMMER:
+        return []
+    return [c.label for c in responses if not plan.sensor_points.get(c.label)]
 
 
 class Service:
@@ -279,6 +288,7 @@ class Service:
             "last_seq": last_seq, "accept": self.running.config.capture.accept.value,
             "channels": [{"label": c.label, "role": str(c.role)}
                          for c in sorted(self.running.config.channels, key=lambda c: c.index)],
+            "sensors_missing": _unplaced(view.plan, self.running.config.response_channels),
         })  # fmt: skip
 
     async def _on_last_hit(self, call: Call) -> web.StreamResponse:
@@ -354,19 +364,23 @@ class Service:
             return grid, validate.outline(body, grid)
 
         grid, outline = await asyncio.to_thread(parsed)
-        labels = {p.label for p in grid}
-        reference = body.get("reference", grid[0].label)
-        if reference not in labels:
+        mode = RovingMode(body.get("roving_mode", "hammer"))
+        reference = body.get("reference")
+        if mode is RovingMode.SENSOR and reference not in {None, *(p.label for p in grid)}:
             raise invalid(f"body.reference: {reference!r} is not a label of the grid")
-        known = {c.label for c in self.running.config.response_channels}
-        sensors = body.get("sensor_points", {})
-        if set(sensors) - known:
-            raise invalid(f"body.sensor_points: {sorted(set(sensors) - known)} are not "
-                          f"response channels (those are {sorted(known)})")  # fmt: skip
+        sensors: dict[str, str | tuple[str, str]] = dict(body.get("sensor_points", {}))
+        for label, where in body.get("sensors", {}).items():
+            sensors[label] = (where["at"], where.get("direction", "+z"))
+        if mode is RovingMode.HAMMER:
+            try:
+                placement.test_places(self.running.config.response_channels, sensors, grid,
+                                      reference)  # fmt: skip
+            except ValueError as exc:
+                raise invalid(f"body.sensors: {exc}") from None
         name = body["name"]
         await asyncio.to_thread(  # AlreadyExists: 409
-            self.rig.create_test, name, grid, RovingMode(body.get("roving_mode", "hammer")),
-            reference, body.get("averages"), sensors, outline,
+            self.rig.create_test, name, grid, mode, reference, body.get("averages"), sensors,
+            outline,
         )  # fmt: skip
         self._feed.wake()
         plan = await asyncio.to_thread(self.store.get_test, name)

@@ -41,6 +41,11 @@ class CheckSettings:
     decay_warning_fraction: float = 0.05
     exponential_window: bool = True
     sign: float = 1.0  # -1 for a hammer wired with negative polarity (falling trigger)
+    labels: tuple[str, ...] = ()  # each record row's channel label, for messages
+
+    def named(self, rows: list[int]) -> str:
+        """Channels by label ("hammer, acc2"); by row number where no label is known."""
+        return ", ".join(self.labels[i] if i < len(self.labels) else f"#{i}" for i in rows)
 
 
 @dataclass(frozen=True, slots=True)
@@ -78,7 +83,7 @@ def check_hit(record: HitRecord, settings: CheckSettings) -> HitVerdict:
     flags = zip(record.near_full_scale, record.device_overload, strict=True)
     clipped = [i for i, (near, flagged) in enumerate(flags) if near or flagged]
     if clipped:
-        rejections.append(Finding(OVERLOAD, f"{REASONS[OVERLOAD]} (channels {clipped})"))
+        rejections.append(Finding(OVERLOAD, f"{REASONS[OVERLOAD]} ({s.named(clipped)})"))
     second = _second_pulse(force, pulse, s.double_hit_fraction)
     if second is not None:
         delay_ms = (second - pulse.end) / record.rate_hz * 1e3
@@ -102,7 +107,7 @@ def check_hit(record: HitRecord, settings: CheckSettings) -> HitVerdict:
             else "use the exponential window or a longer block"
         )
         warnings.append(
-            Finding(UNDECAYED, f"{REASONS[UNDECAYED]} on channels {undecayed}; {advice}")
+            Finding(UNDECAYED, f"{REASONS[UNDECAYED]} on {s.named(undecayed)}; {advice}")
         )
     return HitVerdict(
         accepted=not rejections,

@@ -55,7 +55,8 @@ class Plan:
     reference: str
     averages: int
     sensor_points: dict[str, str] = field(default_factory=dict)
-    """Roving hammer: response label -> the point where that sensor sits (default reference)."""
+    """Roving hammer: response label -> where that sensor sits (grid label or "x,y,z" m);
+    a label missing here is recorded as "" (unknown)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -299,7 +300,8 @@ class Session:
         labels = tuple(c.label for c in resp)
         if plan.roving_mode is RovingMode.HAMMER:
             drive = self.cursor
-            points = tuple(plan.sensor_points.get(label, plan.reference) for label in labels)
+            # "" where the sensor's place was never given: unknown, not guessed
+            points = tuple(plan.sensor_points.get(label, "") for label in labels)
         else:
             drive = plan.reference
             points = (self.cursor,) * len(labels)

@@ -24,6 +24,7 @@ from typing import Any
 from ..errors import ConfigError
 from ..records import ChannelSpec, Role
 from .channels import channels
+from .problems import Problems
 from .setting import (
     DATA_DIR_ENV,
     STANDARD_GRAVITY,
@@ -35,6 +36,7 @@ from .setting import (
     TriggerSlope,
     _closest,
     _show,
+    default_data_dir,
 )
 from .table import (
     _BY_NAME,
@@ -64,6 +66,7 @@ __all__ = [
     "StreamFormat",
     "TriggerSlope",
     "WindowsConfig",
+    "default_data_dir",
     "load_config",
     "si_per_volt",
 ]
@@ -228,43 +231,60 @@ def load_config(
     raw: dict[str, _Raw] = {}
     channel_tables: list[object] | None = None
     file_where = ""
+    problems = Problems()
     if path is not None:
         file_where = f" (in {path})"
-        channel_tables = _gather_file(_read_toml(path), raw, file_where, path.absolute().parent)
+        channel_tables = _gather_file(_read_toml(path), raw, file_where,
+                                      path.absolute().parent, problems)  # fmt: skip
     env_dir = env.get(DATA_DIR_ENV, "")
     if env_dir:
         where = f" (from environment variable {DATA_DIR_ENV})"
         raw["store.data_dir"] = _Raw(env_dir, True, where, Path.cwd())
     for text in overrides:
-        setting, value = _split_override(text)
-        raw[setting.name] = _Raw(value, True, " (command-line override)", Path.cwd())
-
-    values: dict[str, dict[str, Any]] = {section: {} for section in _SECTION_TYPES}
-    where_of: dict[str, str] = {}
-    for s in SETTINGS:
-        r = raw.get(s.name)
-        if r is None:
-            values[s.section][s.key] = s.default
-            where_of[s.name] = " (default)"
-        else:
-            values[s.section][s.key] = s.parse(
-                r.value, from_text=r.from_text, where=r.where, base_dir=r.base_dir
-            )
-            where_of[s.name] = r.where
+        with problems.collect():
+            setting, value = _split_override(text)
+            raw[setting.name] = _Raw(value, True, " (command-line override)", Path.cwd())
+    values, where_of = _values(raw, problems)
+    if "store.data_dir" not in raw:
+        values["store"]["data_dir"] = default_data_dir(env)
     sections = {name: cls(**values[name]) for name, cls in _SECTION_TYPES.items()}
     device: DeviceConfig = sections["device"]
     capture: CaptureConfig = sections["capture"]
-    _check_together(device, capture, where_of)
+    _check_together(device, capture, where_of, problems)
+    chans: tuple[ChannelSpec, ...] = ()
+    with problems.collect():
+        chans = channels(channel_tables, device.is_virtual, device.url, file_where)
+    problems.raise_any()
     return Config(
         rig=sections["rig"],
         device=device,
-        channels=channels(channel_tables, device.is_virtual, device.url, file_where),
+        channels=chans,
         capture=capture,
         windows=sections["windows"],
         store=sections["store"],
         service=sections["service"],
         source=path,
     )
+
+
+def _values(
+    raw: Mapping[str, _Raw], problems: Problems
+) -> tuple[dict[str, dict[str, Any]], dict[str, str]]:
+    """Each setting's typed value (its default where the given one is wrong, so that the
+    checks of the rest still run), and where it came from."""
+    values: dict[str, dict[str, Any]] = {section: {} for section in _SECTION_TYPES}
+    where_of: dict[str, str] = {}
+    for s in SETTINGS:
+        r = raw.get(s.name)
+        values[s.section][s.key] = s.default
+        where_of[s.name] = " (default)"
+        if r is not None:
+            with problems.collect():
+                values[s.section][s.key] = s.parse(
+                    r.value, from_text=r.from_text, where=r.where, base_dir=r.base_dir
+                )
+                where_of[s.name] = r.where
+    return values, where_of
 
 
 def _read_toml(path: Path) -> dict[str, Any]:
@@ -280,38 +300,43 @@ def _read_toml(path: Path) -> dict[str, Any]:
 
 
 def _gather_file(
-    doc: dict[str, Any], raw: dict[str, _Raw], where: str, base_dir: Path
+    doc: dict[str, Any], raw: dict[str, _Raw], where: str, base_dir: Path, problems: Problems
 ) -> list[object] | None:
-    """Put the file's scalar settings into `raw`; return its [[channels]] tables, if any."""
+    """Put the file's scalar settings into `raw`; return its [[channels]] tables, if any.
+    Every mistake goes to `problems`, so one reading reports them all."""
     channel_tables: list[object] | None = None
     for section, body in doc.items():
-        if section == "channels":
-            if not isinstance(body, list):
-                raise ConfigError(
-                    f"channels = {_show(body)}: must be an array of tables, one [[channels]] "
-                    f"table per device channel (note the double brackets){where}"
-                )
-            channel_tables = body
-            continue
-        if section not in _SECTION_KEYS:
-            if not isinstance(body, dict):
-                raise ConfigError(
-                    f"{section} = {_show(body)}: unknown setting; settings belong in a section"
-                    f"{_suggest_name(section)}{where}"
-                )
-            raise ConfigError(f"[{section}]: unknown section{_suggest_section(section)}{where}")
+        with problems.collect():
+            if section == "channels":
+                if not isinstance(body, list):
+                    raise ConfigError(
+                        f"channels = {_show(body)}: must be an array of tables, one [[channels]] "
+                        f"table per device channel (note the double brackets){where}"
+                    )
+                channel_tables = body
+                continue
+            _check_section(section, body, where)
+            for key, value in body.items():
+                name = f"{section}.{key}"
+                with problems.collect():
+                    if name not in _BY_NAME:
+                        raise ConfigError(f"{name} = {_show(value)}: unknown setting"
+                                          f"{_suggest_key(section, key)}{where}")  # fmt: skip
+                    raw[name] = _Raw(value, False, where, base_dir)
+    return channel_tables
+
+
+def _check_section(section: str, body: object, where: str) -> None:
+    """A known section written as a table; ConfigError otherwise."""
+    if section not in _SECTION_KEYS:
         if not isinstance(body, dict):
             raise ConfigError(
-                f"{section} = {_show(body)}: must be a table, written [{section}]{where}"
+                f"{section} = {_show(body)}: unknown setting; settings belong in a section"
+                f"{_suggest_name(section)}{where}"
             )
-        for key, value in body.items():
-            name = f"{section}.{key}"
-            if name not in _BY_NAME:
-                raise ConfigError(
-                    f"{name} = {_show(value)}: unknown setting{_suggest_key(section, key)}{where}"
-                )
-            raw[name] = _Raw(value, False, where, base_dir)
-    return channel_tables
+        raise ConfigError(f"[{section}]: unknown section{_suggest_section(section)}{where}")
+    if not isinstance(body, dict):
+        raise ConfigError(f"{section} = {_show(body)}: must be a table, written [{section}]{where}")
 
 
 def _split_override(text: str) -> tuple[Setting, str]:
@@ -368,22 +393,24 @@ def _suggest_name(name: str) -> str:
     return f"; did you mean {best}?" if best is not None else ""
 
 
-def _check_together(device: DeviceConfig, capture: CaptureConfig, where: Mapping[str, str]) -> None:
-    """Checks of settings that depend on each other."""
+def _check_together(
+    device: DeviceConfig, capture: CaptureConfig, where: Mapping[str, str], problems: Problems
+) -> None:
+    """Checks of settings that depend on each other; each mistake goes to `problems`."""
     if not capture.pretrigger < capture.block // 2:
-        raise ConfigError(
+        problems.add(
             f"capture.pretrigger = {capture.pretrigger}: must be from 0 to "
             f"{capture.block // 2 - 1}, below half of capture.block = {capture.block}"
             f"{where['capture.pretrigger']}"
         )
     if not capture.hysteresis_n < capture.trigger_level_n:
-        raise ConfigError(
+        problems.add(
             f"capture.hysteresis_n = {_show(capture.hysteresis_n)}: must be ≥ 0 and below "
             f"capture.trigger_level_n = {_show(capture.trigger_level_n)}"
             f"{where['capture.hysteresis_n']}"
         )
     if device.url == "virtual:text" and device.format is not StreamFormat.TEXT:
-        raise ConfigError(
+        problems.add(
             f'device.format = "{device.format}": must be "text" with device.url = '
             f'"virtual:text", whose virtual instrument prints text{where["device.format"]}'
         )

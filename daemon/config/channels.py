@@ -34,10 +34,16 @@ def channels(
             f"{', '.join(_CHANNEL_KEYS)} (see deploy/taprigd.example.toml){where}"
         )
     specs: list[ChannelSpec] = []
+    wrong: list[str] = []  # every table's mistakes, reported together
     for i, table in enumerate(tables):
-        spec = _one(f"channels[{i}]", table, where)
-        _check_unique(f"channels[{i}]", spec, specs, where)
-        specs.append(spec)
+        try:
+            spec = _one(f"channels[{i}]", table, where)
+            _check_unique(f"channels[{i}]", spec, specs, where)
+            specs.append(spec)
+        except ConfigError as exc:
+            wrong.append(str(exc))
+    if wrong:
+        raise ConfigErrors(wrong)
     if not any(s.role is Role.FORCE for s in specs):
         raise ConfigError(
             f'channels: no channel has role "force"; exactly one must (the hammer){where}'
@@ -47,6 +53,14 @@ def channels(
             f'channels: no channel has role "response"; at least one must (an accelerometer){where}'
         )
     return tuple(sorted(specs, key=lambda s: s.index))
+
+
+class ConfigErrors(ConfigError):
+    """Several mistakes at once; `messages` one line each."""
+
+    def __init__(self, messages: list[str]) -> None:
+        super().__init__("\n".join(messages))
+        self.messages = messages
 
 
 def _one(label: str, table: object, where: str) -> ChannelSpec:
@@ -65,7 +79,10 @@ def _one(label: str, table: object, where: str) -> ChannelSpec:
     got: dict[str, Any] = {}
     for s in CHANNEL_SETTINGS:
         if s.key not in table:
-            raise ConfigError(f"{label}.{s.key}: missing; must be {s.allowed_text}{where}")
+            if s.default is None:
+                raise ConfigError(f"{label}.{s.key}: missing; must be {s.allowed_text}{where}")
+            got[s.key] = s.default
+            continue
         got[s.key] = s.parse(table[s.key], label=f"{label}.{s.key}", where=where)
     role: Role = got["role"]
     unit: str = got["unit"]
@@ -78,7 +95,12 @@ def _one(label: str, table: object, where: str) -> ChannelSpec:
             f"{label}.unit = {_show(unit)}: must be {'one of ' if ',' in allowed else ''}"
             f"{allowed} for a {role} channel{where}"
         )
-    return _channel(got["index"], role, got["label"], got["sensitivity"], unit)
+    if role is Role.FORCE and "location" in table:
+        raise ConfigError(f"{label}.location: only response channels have a location; the "
+                          f"hammer moves (or, roving the sensor, strikes the test's reference)"
+                          f"{where}")  # fmt: skip
+    return _channel(got["index"], role, got["label"], got["sensitivity"], unit,
+                    got["location"], got["direction"])  # fmt: skip
 
 
 def _check_unique(label: str, spec: ChannelSpec, specs: list[ChannelSpec], where: str) -> None:

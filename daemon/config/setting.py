@@ -10,11 +10,12 @@ from __future__ import annotations
 import difflib
 import enum
 import math
+import os
 import re
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Final
 
 from ..errors import ConfigError
 
@@ -248,3 +249,20 @@ def _valid_url(url: str) -> bool:
 def _closest(word: str, candidates: Sequence[str]) -> str | None:
     found = difflib.get_close_matches(word, candidates, n=1, cutoff=0.6)
     return found[0] if found else None
+
+
+SYSTEM_DATA_DIR: Final = Path("/var/lib/taprig")
+
+
+def default_data_dir(environ: Mapping[str, str], euid: int | None = None) -> Path:
+    """store.data_dir when nothing sets it: /var/lib/taprig for root (the systemd install's
+    unit names it too, as StateDirectory); for anyone else the XDG state folder,
+    $XDG_STATE_HOME/taprig (an absolute $XDG_STATE_HOME only, as the XDG Base Directory
+    Specification 0.8 says), else ~/.local/state/taprig. `euid`: default os.geteuid()."""
+    if (os.geteuid() if euid is None else euid) == 0:
+        return SYSTEM_DATA_DIR
+    state = environ.get("XDG_STATE_HOME", "")
+    if state and Path(state).is_absolute():
+        return Path(state) / "taprig"
+    home = environ.get("HOME") or str(Path.home())
+    return Path(home) / ".local" / "state" / "taprig"

@@ -8,10 +8,12 @@ converted here, once, into ChannelSpec.si_per_volt (N/V or (m/s²)/V).
 from __future__ import annotations
 
 import ipaddress
+from collections.abc import Callable
 from pathlib import Path
 
 from taprig.firmware_protocol.frames import MAX_CHANNELS
 
+from .. import placement
 from ..records import ChannelSpec, Role
 from .setting import (
     _CHANNEL_LABEL,
@@ -26,6 +28,20 @@ from .setting import (
     _is_power_of_two_block,
     _valid_url,
 )
+
+
+def _parses(parse: Callable[[str], object], text: str) -> bool:
+    """Whether `parse` takes `text` without a ValueError."""
+    try:
+        parse(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _is_direction(text: str) -> bool:
+    return _parses(placement.direction_vector, text)
+
 
 SETTINGS: tuple[Setting, ...] = (
     Setting(
@@ -153,7 +169,9 @@ SETTINGS: tuple[Setting, ...] = (
     Setting(
         "store", "data_dir", Kind.PATH, Path("/var/lib/taprig"), "",
         "folder of the point-set store; a relative path is taken from the config file's "
-        f"folder; the environment variable {DATA_DIR_ENV} replaces the file's value",
+        f"folder; the environment variable {DATA_DIR_ENV} replaces the file's value; unset, "
+        "it is /var/lib/taprig for root and $XDG_STATE_HOME/taprig (~/.local/state/taprig) "
+        "for anyone else",
         allowed="a non-empty path",
     ),
     Setting(
@@ -214,11 +232,7 @@ SETTINGS: tuple[Setting, ...] = (
 
 
 def _is_ip(text: str) -> bool:
-    try:
-        ipaddress.ip_address(text)
-    except ValueError:
-        return False
-    return True
+    return _parses(ipaddress.ip_address, text)
 
 
 _UNITS: dict[str, str] = {
@@ -264,6 +278,18 @@ CHANNEL_SETTINGS: tuple[Setting, ...] = (
         allowed="one of " + ", ".join(f'"{u}"' for u in _UNITS),
         check=lambda s: s in _UNITS,
     ),
+    Setting(
+        "channels", "location", Kind.STR, "", "m",
+        "response channels: where the sensor sits, for a roving-hammer test; optional here "
+        "(else given when the test is made), never guessed",
+        allowed=f"\"\" (not given here) or {placement.WHERE_HELP}",
+        check=lambda s: not s.strip() or placement.check_where(s) is None,
+    ),
+    Setting(
+        "channels", "direction", Kind.STR, "+z", "",
+        "response channels: the direction the sensor measures in",
+        allowed=placement.DIRECTION_HELP, check=_is_direction,
+    ),
 )  # fmt: skip
 
 _BY_NAME: dict[str, Setting] = {s.name: s for s in SETTINGS}
@@ -284,7 +310,10 @@ def si_per_volt(sensitivity: float, unit: str) -> float:
     return 1000.0 / per_unit_mv
 
 
-def _channel(index: int, role: Role, label: str, sensitivity: float, unit: str) -> ChannelSpec:
+def _channel(
+    index: int, role: Role, label: str, sensitivity: float, unit: str, location: str = "",
+    direction: str = "+z",
+) -> ChannelSpec:  # fmt: skip
     return ChannelSpec(
         index=index,
         role=role,
@@ -292,6 +321,8 @@ def _channel(index: int, role: Role, label: str, sensitivity: float, unit: str) 
         sensitivity=sensitivity,
         sensitivity_unit=_UNITS[unit],
         si_per_volt=si_per_volt(sensitivity, unit),
+        location=location.strip(),
+        direction=direction.strip(),
     )
 
 

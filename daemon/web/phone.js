@@ -280,8 +280,22 @@ function render() {
   $("remeasure").textContent = s && s.point ? `Measure ${s.point} again` : "Measure again";
   renderDevice();
 
+  renderPlaces();
   renderGrid();
   renderHealth();
+}
+
+// A roving-hammer test that does not know where its sensors sit cannot name its driving
+// point: ask for the places rather than let the taps pile up.
+function renderPlaces() {
+  const unplaced = (model.state && model.state.sensors_missing) || [];
+  const el = $("places");
+  el.hidden = unplaced.length === 0;
+  el.textContent = unplaced.length === 0 ? "" :
+    `Where ${unplaced.length > 1 ? "do" : "does"} ${unplaced.join(", ")} sit? This test does ` +
+    "not know, so no tap can be matched to its driving point. Make the test again with each " +
+    `sensor's place, e.g. taprigd run --sensor-at ${unplaced[0]}=B3/+z, or location in ` +
+    "its [[channels]] table.";
 }
 
 function status(label) {

@@ -26,7 +26,7 @@ from .. import frames as fr
 from ..binary import BinaryDecoder
 from ..encoder import FrameEncoder
 from ..events import BadCommand, CommandReceived
-from ..text import format_lines, rate_comment
+from ..text import RATE_QUERY, format_lines, rate_comment
 from .modal import ModalModel, demo_panel
 from .ports import Port, PtyPort, TcpPort
 from .synth import ResponseSynth, pulse_train
@@ -35,6 +35,7 @@ log = logging.getLogger(__name__)
 
 MAX_LAG_S = 5.0  # s of samples the simulated converter's FIFO holds while the host is starved
 
+MAX_SPEED = 16.0  # simulated seconds per wall second at most; beyond it a host cannot keep up
 MIN_RATE_HZ = 1000.0
 MAX_RATE_HZ = 204_800.0
 
@@ -56,13 +57,17 @@ class InstrumentSettings:
     firmware: str = "sim-1"
     default_force_n: float = 30.0
     default_width_s: float = 0.0008  # a medium (plastic) tip
-    info_interval_s: float = 1.0
+    info_interval_s: float = 1.0  # s between INFO (binary) or rate lines (text); inf: once
+    answers_rate_query: bool = True  # text: a "?rate" line from the host repeats the rate line
     status_interval_s: float = 0.25
     device_buffer_bytes: int = 262_144  # what the device can hold while the host is not reading
     seed: int = 0
     # The converter's linear-phase anti-alias filter on every channel (synth.converter_filter);
     # False point-samples the continuous signals, so content above Nyquist folds back.
     anti_alias: bool = True
+    # Simulated seconds per wall-clock second: above 1 the piece runs faster than real time
+    # (the demo), so a tap's record arrives in a fraction of its length. 1 is a real device.
+    speed: float = 1.0
 
 
 @dataclass
@@ -115,6 +120,8 @@ class VirtualInstrument:
         self.settings = settings if settings is not None else InstrumentSettings()
         if self.settings.output not in ("binary", "text"):
             raise ValueError(f"output {self.settings.output!r}; allowed binary, text")
+        if not 0.0 < self.settings.speed <= MAX_SPEED:
+            raise ValueError(f"speed {self.settings.speed!r}; allowed above 0 up to {MAX_SPEED:g}")
         self.port: Port = port if port is not None else PtyPort()
         self.faults = Faults()
         self.counters = InstrumentCounters()
@@ -345,7 +352,8 @@ class VirtualInstrument:
     def _wait_and_read(self) -> None:
         fd = self.port.fileno()
         if self._streaming:
-            due = self._t_start + (self._chunks + 1) * self.settings.frame_samples / self._rate_hz
+            period = self.settings.frame_samples / self._rate_hz / self.settings.speed
+            due = self._t_start + (self._chunks + 1) * period
             timeout = max(0.0, min(0.05, due - time.monotonic()))
         else:
             timeout = 0.05
@@ -360,6 +368,8 @@ class VirtualInstrument:
             data = self.port.read()
             if data and self.settings.output == "binary":
                 self._handle_input(data)
+            elif data and RATE_QUERY.strip() in data and self.settings.answers_rate_query:
+                self._send_info(time.monotonic())  # a text board asked to repeat its rate
 
     def _handle_input(self, data: bytes) -> None:
         for event in self._decoder.feed(data):
@@ -434,7 +444,13 @@ class VirtualInstrument:
 
     def _stream(self, now: float) -> None:
         period = self.settings.frame_samples / self._rate_hz
-        behind = int((now - self._t_start) / period) - self._chunks
+        speed = self.settings.speed
+        behind = int((now - self._t_start) * speed / period) - self._chunks
+        if speed != 1.0 and behind * period / speed > MAX_LAG_S:
+            # A sped-up piece on a host too busy for it slows down rather than lose samples:
+            # its clock is simulated, so falling behind has no physical meaning.
+            self._t_start = now - self._chunks * period / speed
+            behind = 1
         if behind * period > MAX_LAG_S:  # starved past the FIFO: the converter overran, skip
             with self._lock:
                 skipped_from = self._synth.next_index

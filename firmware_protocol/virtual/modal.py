@@ -157,6 +157,16 @@ class ModalModel:
         grid = set(self.grid)
         return {resp: point for resp, point in self.sensors.items() if point in grid}
 
+    def sensor_places(self) -> dict[str, str]:
+        """Where each sensor sits, as a rig is told it: response label -> the tap-grid label,
+        or "x,y,z" (m) for a sensor off the tap grid. All sensors measure along +z."""
+        grid = set(self.grid)
+        return {
+            resp: point if point in grid
+            else ",".join(f"{c:g}" for c in self.coords[self.index(point)])
+            for resp, point in self.sensors.items()
+        }  # fmt: skip
+
 
 # --------------------------------------------------------------------------
 # Simply supported Kirchhoff plate

@@ -89,9 +89,12 @@ class LoopThread:
         self.loop.close()
 
 
-def commit_synthetic(running: RunningRig, test: str, points: int, seed: int = 5) -> None:
-    """A test of `points` grid points and one point set each of random arrays, committed
-    through the store as the rig commits (wire body encoded in the same transaction)."""
+def commit_synthetic(
+    running: RunningRig, test: str, points: int, seed: int = 5, measured: int | None = None
+) -> None:
+    """A test of `points` grid points and one point set each of random arrays (for the first
+    `measured` points only, when given: a partial test), committed through the store as the
+    rig commits (wire body encoded in the same transaction)."""
     rng = np.random.default_rng(seed)
     store = running.store
     grid = [GridPoint(f"P{i}", 0.01 * i, 0.02, 0.0) for i in range(points)]
@@ -100,7 +103,7 @@ def commit_synthetic(running: RunningRig, test: str, points: int, seed: int = 5)
     def cplx() -> np.ndarray:
         return rng.normal(size=(N_RESP, N_FREQ)) + 1j * rng.normal(size=(N_RESP, N_FREQ))
 
-    for p in grid:
+    for p in grid[:measured]:
         hits = (
             StoredHit(100, "2026-01-01T00:00:00Z", True, 40.0, 8e-4, (), None),
             StoredHit(900, "2026-01-01T00:00:01Z", False, 41.0, 8e-4,
@@ -219,7 +222,7 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
         _until(lambda: r.rig.view().info is not None, "the device to identify itself")
         m = vi.model
         grid = [GridPoint(p, *map(float, m.coords[m.index(p)])) for p in m.grid]
-        sensors = dict(m.sensors)
+        sensors = m.sensor_places()
         r.rig.create_test("panel-check", grid, RovingMode.HAMMER,
                           reference=DEMO_DRIVING_POINT, sensor_points=sensors)  # fmt: skip
         r.rig.select_test("panel-check")

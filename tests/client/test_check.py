@@ -47,6 +47,16 @@ def mac(a: np.ndarray, b: np.ndarray) -> float:
     return float((a @ b) ** 2 / ((a @ a) * (b @ b)))
 
 
+def model_point(model: ModalModel, name: str) -> str:
+    """The model's label of a place as a rig names it: a label, or "x,y,z" (m) off the grid."""
+    if "," not in name:
+        return name
+    xyz = np.array([float(c) for c in name.split(",")])
+    row = int(np.argmin(np.linalg.norm(model.coords - xyz, axis=1)))
+    assert np.allclose(model.coords[row], xyz, atol=1e-6), name
+    return model.labels[row]
+
+
 def judged_modes(model: ModalModel, data: dataset.TestData, band: tuple[float, float]) -> list[int]:
     """The modes a peak picker can honestly be held to, by rule, from the truth model alone.
 
@@ -62,7 +72,7 @@ def judged_modes(model: ModalModel, data: dataset.TestData, band: tuple[float, f
     phi_rows = model.shapes_at(list(data.points))
     # The fixed end of every FRF: the sensors (roving hammer) or the struck point (roving sensor).
     fixed = data.response_points[0] if data.roving_mode == "hammer" else data.drive_points[:1]
-    phi_sensors = model.shapes_at(list(fixed))
+    phi_sensors = model.shapes_at([model_point(model, name) for name in fixed])
     pair = phi_rows[:, None, :] * phi_sensors[None, :, :]  # (P, R, modes)
     w, zeta, f_n = model.omega, model.damping_ratio, model.freqs_hz
     out = []

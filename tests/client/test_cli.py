@@ -75,7 +75,8 @@ def test_export_and_check_work_offline_from_the_mirror(
     made = as_json(taprig(places, "export", "plate-a", "--format", "csv", "--as", "mobility",
                           "--band", "100:400", "--out", str(out), "--json"))  # fmt: skip
     assert made == {"file": str(out), "points": 3, "responses": ["acc0", "acc1"],
-                    "quantity": "mobility", "format": "csv"}  # fmt: skip
+                    "quantity": "mobility", "format": "csv", "coverage": "3 of 3 points",
+                    "unmeasured": []}  # fmt: skip
     freqs = {float(line.split(",")[3]) for line in out.read_text().splitlines()
              if line[:1] == "P"}  # fmt: skip
     assert freqs and min(freqs) >= 100.0 and max(freqs) <= 400.0

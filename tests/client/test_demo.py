@@ -57,6 +57,7 @@ def test_demo_runs_the_whole_job_and_stops_what_it_started(demo: tuple[Path, str
     out, stdout = demo
     assert "tap rejected by the rig: double hit" in stdout
     assert "measured again" in stdout and "verified by checksum" in stdout
+    assert "6 times faster than real time" in stdout  # the sped-up panel is stated
     log = (out / "taprigd.log").read_text()
     state_dirs = {w for w in log.split() if "taprig-demo-rig-" in w}
     assert "Traceback" not in log
@@ -94,6 +95,11 @@ def test_demo_export_is_the_mirror_and_its_modes_are_the_truth(demo: tuple[Path,
         assert np.array_equal(npz["coord"], data.coords) and npz["exp_tau_s"] == data.exp_tau_s
         meta = json.loads(str(npz["meta"]))
     assert meta["rig"] == "demo-rig" and meta["test"] == "demo-panel"
+    # Where the sensors really sit travels with the data: acc1 on B3, acc2 off the grid.
+    assert meta["reference"] == "B3" and meta["sensors"]["acc1"]["point"] == "B3"
+    assert meta["sensors"]["acc2"]["point"] is None and meta["sensors_missing"] == []
+    assert meta["sensors"]["acc2"]["xyz"] == pytest.approx(truth.coords[truth.index("X1")])
+    assert "sigma_true = sigma_measured - 1/exp_tau_s" in meta["exponential_window"]
     # Rejected double hits reach the workstation with their reason.
     assert sum(r.get("double_hit", 0) for r in data.rejections) >= 1
     result = check(data)

@@ -156,7 +156,7 @@ def test_zero_band_has_no_mobility(panel: dataset.TestData, tmp_path: Path) -> N
     with pytest.raises(ValueError, match="only the 0 Hz line"):
         export(panel, tmp_path / "x.csv", "csv", "mobility", (0.0, 1.0))
     out = export(panel, tmp_path / "x.csv", "csv", "accelerance", (0.0, 1.0))
-    assert out.read_text(encoding="utf-8").count("\n") == 5 + len(panel.points) * 2
+    assert out.read_text(encoding="utf-8").count("\n") == 6 + len(panel.points) * 2
 
 
 def test_bad_format_and_quantity(panel: dataset.TestData, tmp_path: Path) -> None:
@@ -171,6 +171,7 @@ def test_missing_h5py_names_the_extra(
     panel: dataset.TestData, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     monkeypatch.setitem(sys.modules, "h5py", None)  # import h5py now raises ImportError
-    with pytest.raises(ClientError, match=r"taprig\[hdf5\]"):
+    with pytest.raises(ClientError, match=r"taprig\[hdf5\]") as caught:
         export(panel, tmp_path / "x.h5", "hdf5")
+    assert "in a checkout of taprig: pip install '.[hdf5]'" in str(caught.value)
     assert not list(tmp_path.iterdir())

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -138,6 +139,10 @@ def test_overload_by_near_full_scale_and_by_device_flag() -> None:
     (rec,) = records
     assert rec.device_overload == (False, True, False)
     assert OVERLOAD in [f.code for f in check_hit(rec, CHECKS).rejections]
+    # the operator is told which channel by its label, as the configuration names it
+    named = dataclasses.replace(CHECKS, labels=("hammer", "acc1", "acc2"))
+    (finding,) = [f for f in check_hit(rec, named).rejections if f.code == OVERLOAD]
+    assert finding.message.endswith("(acc1)"), finding.message
 
 
 def test_gap_inside_record_rejected_and_outside_not() -> None:

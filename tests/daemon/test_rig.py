@@ -107,7 +107,7 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     wait_info(r)
     labels = ["A1", "B3", "C4"]
     r.rig.create_test("panel-1", grid_of(vi, labels), RovingMode.HAMMER, reference="B3",
-                      sensor_points={"acc1": "B3", "acc2": "X1"})  # fmt: skip
+                      sensor_points=vi.model.sensor_places())  # fmt: skip
     with pytest.raises(SessionError, match="no test is selected"):
         r.rig.arm()
     r.rig.select_test("panel-1")
@@ -127,7 +127,7 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     assert [s.point for s in sets] == labels
     b3 = r.store.get_point_set(sets[1].id, with_hits=True)
     assert b3.n_averages == 3
-    assert b3.response_labels == ("acc1", "acc2") and b3.response_points == ("B3", "X1")
+    assert b3.response_labels == ("acc1", "acc2") and b3.response_points == ("B3", "0.467,0.328,0")
     assert [h.accepted for h in b3.hits].count(False) == 1
     assert b3.hits[0].data is not None and b3.hits[0].data.shape == (3, 8192)
     assert b3.meta["device"]["id"] == "VIRTUAL-PANEL"

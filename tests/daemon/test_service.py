@@ -296,7 +296,7 @@ def test_capture_over_http(running: RunningRig, auth: Auth) -> None:
         async with serving(running, auth) as (_, api), EventStream(api) as stream:
             status, test = await api.post("/v1/tests", {
                 "name": "panel-http", "grid": labels_grid(running, labels), "averages": 2,
-                "reference": "B3", "sensor_points": {"acc1": "B3", "acc2": "X1"},
+                "reference": "B3", "sensor_points": running.instrument.model.sensor_places(),
                 "request_id": api.request_id(),
             })  # fmt: skip
             assert status == 201, test

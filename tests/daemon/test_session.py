@@ -58,9 +58,17 @@ def rejected(peak_n: float) -> tuple[HitRecord, HitVerdict]:
 
 
 def session(averages: int = 3, *, auto: bool = True, mode: RovingMode = RovingMode.HAMMER,
-            done: tuple[str, ...] = ()) -> Session:  # fmt: skip
-    plan = Plan("bench-1", GRID, mode, "A2", averages)
+            done: tuple[str, ...] = (), places: dict[str, str] | None = None) -> Session:
+    sensors = places if places is not None else {"acc1": "A2"}  # acc1 sits on A2
+    plan = Plan("bench-1", GRID, mode, "A2", averages, sensors)
     return Session(plan, CHANNELS, RATE_HZ, BLOCK, WINDOWS, auto_accept=auto, done=done)
+
+
+def test_a_sensor_whose_place_is_unknown_is_recorded_as_unknown() -> None:
+    """Never the reference or the first grid point: "" says the test never got the place."""
+    s = session(averages=1, places={})
+    ps = s.on_hit(*hit(100.0)).completed
+    assert ps is not None and ps.response_points == ("",)
 
 
 def test_averages_reached_hand_back_a_point_set_and_move_on() -> None:
@@ -73,7 +81,7 @@ def test_averages_reached_hand_back_a_point_set_and_move_on() -> None:
     ps = outcomes[-1].completed
     assert ps is not None
     assert (ps.test, ps.point, ps.n_averages, ps.drive_point) == ("bench-1", "A1", 3, "A1")
-    assert ps.response_labels == ("acc1",) and ps.response_points == ("A2",)  # the reference
+    assert ps.response_labels == ("acc1",) and ps.response_points == ("A2",)  # where it sits
     assert [h.accepted for h in ps.hits] == [True, True, True]
     assert ps.freq_hz.shape == (BLOCK // 2 + 1,) and ps.h1.shape == (1, BLOCK // 2 + 1)
     # The completed point is done; the cursor moved on with fresh averages.

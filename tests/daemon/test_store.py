@@ -523,7 +523,7 @@ def test_tests_round_trip_and_feed(tmp_path: Path) -> None:
         with pytest.raises(AlreadyExists, match="already exists"):
             s.save_test("beam", GRID, "hammer", "P1", 3, {})
         with pytest.raises(StoreError, match="reference 'P7'"):
-            s.save_test("bar", GRID, "hammer", "P7", 3, {})
+            s.save_test("bar", GRID, "sensor", "P7", 3, {})  # the hammer point: on the grid
         with pytest.raises(NotFound, match="no test named 'bar'"):
             s.get_test("bar")
         assert s.last_seq() == 2
@@ -575,3 +575,12 @@ def test_failing_body_encoder_keeps_nothing(tmp_path: Path) -> None:
         with pytest.raises(StoreError, match="injected encoder failure"):
             s.commit_point_set(make_point_set("beam", "P3", seed=1))
         assert s.list_point_sets() == [] and s.last_seq() == seq
+
+
+def test_a_roving_hammer_reference_may_sit_off_the_grid(tmp_path: Path) -> None:
+    """Roving hammer: the reference is where the first sensor sits ("x,y,z" m off the grid,
+    "" while unknown); roving sensor: it is the struck point, so it must be on the grid."""
+    with Store(tmp_path) as s:
+        s.save_test("off", GRID, "hammer", "0.45,0.1,0", 3, {})
+        s.save_test("unknown", GRID, "hammer", "", 3, {})
+        assert s.get_test("off").reference == "0.45,0.1,0" and s.get_test("unknown").reference == ""

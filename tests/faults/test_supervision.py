@@ -172,8 +172,8 @@ def test_status_running_then_killed(tmp_path: Path) -> None:
         assert f"running, pid {daemon.pid}" in text
         assert f"{data}/virtual-tty: connected, 51200 Hz" in text
         assert "link errors CRC 0, resyncs 0" in text
-        assert "test        shop, point A2 (0/1 averages), 1 points done, armed" in text
-        assert "1 tests, 1 point sets, last change 2" in text
+        assert "test        shop, point A2 (0/1 averages), 1 point done, armed" in text
+        assert "1 test, 1 point set, last change 2" in text  # plurals right
         assert "MB needed to arm" in text
         summary = json.loads(status(data, "--json").stdout)
         assert summary["running"] and summary["state"]["session"]["test"] == "shop"
@@ -182,7 +182,7 @@ def test_status_running_then_killed(tmp_path: Path) -> None:
         out = status(data)
         assert out.returncode == 1
         assert f"not running (stale run file of pid {daemon.pid})" in out.stdout
-        assert "1 point sets" in out.stdout  # the store is still read
+        assert "1 point set," in out.stdout  # the store is still read
     finally:
         if daemon.proc is not None and daemon.proc.poll() is None:
             daemon.stop()

@@ -271,7 +271,7 @@ def test_decoded_arrays_do_not_alias_a_mutable_buffer() -> None:
         ({"grid": [["A", 0.0, math.inf, 0.0, "+z"]], "reference": "A"}, "grid[0][2]"),
         ({"grid": [["A", 0.0, 0.0, 0.0, "up"]], "reference": "A"}, "grid[0][4]"),
         ({"grid": [["A", 0.0, 0.0, 0.0]], "reference": "A"}, "grid[0]"),
-        ({"reference": "nowhere"}, "reference"),
+        ({"reference": "nowhere", "roving_mode": "sensor"}, "reference"),  # hammer: any place
         ({"averages": 0}, "averages"),
         ({"roving_mode": "HAMMER"}, "roving_mode"),
         ({"extra": 1}, "extra"),
