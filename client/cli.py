@@ -440,11 +440,12 @@ def demo(
     ] = None,
     plots: Annotated[bool, typer.Option(help="draw the PNG plots (needs the plots extra)")] = True,
 ) -> None:
-    """Run the whole job on the virtual instrument: capture, pull, export, check, plots."""
+    """Run the whole job on the simulated test piece: capture, pull, export, check, plots."""
     from .demo import run_demo
 
     folder = out if out is not None else Path(tempfile.mkdtemp(prefix="taprig-demo-"))
-    typer.echo(f"taprig demo: a roving-hammer test of a virtual aluminium panel; files in {folder}")
+    typer.echo(f"taprig demo: a roving-hammer test of a simulated aluminium panel; files in "
+               f"{folder}")
     with _guard():
         result = run_demo(folder, typer.echo, plots=plots)
     typer.echo(f"-- done in {result.seconds:.1f} s: {result.npz}, {result.check}, {result.truth}")

@@ -1,6 +1,6 @@
-"""The one-command demo: a whole roving-hammer test on the virtual instrument, end to end.
+"""The one-command demo: a whole roving-hammer test on the simulated test piece, end to end.
 
-`run_demo` starts `taprigd` on its virtual instrument (a simulated aluminium panel) in a
+`run_demo` starts `taprigd` on its simulated test piece (an aluminium panel in software) in a
 temporary state folder, and a simulated operator drives the test through the rig's HTTP
 API exactly as the phone page or a script would: create the test, select, arm, tap every
 grid point until it has its averages (the hammer itself is the instrument's control port,
@@ -25,7 +25,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Final
 
-from taprig.firmware_protocol.virtual.control import ControlClient
+from taprig.firmware_protocol.simpiece.control import ControlClient
 
 from .dataset import TestData
 from .errors import ClientError
@@ -44,7 +44,7 @@ AVERAGES: Final = 2
 # takes the rest, so that their Q survives the window correction; two averages a point
 # keep the whole demo within a minute.
 BLOCK: Final = 32_768
-# The simulated panel runs this many times faster than real time (taprigd --virtual-speed):
+# The simulated panel runs this many times faster than real time (taprigd --sim-speed):
 # a 0.64 s record arrives in a quarter of that, so 65 taps take seconds, not a minute. The
 # spectra are the same: the rig counts time on the device's sample clock, not the wall's.
 SPEED: Final = 6.0
@@ -79,7 +79,7 @@ class DemoResult:
 
 
 class Hammer:
-    """The operator's hammer: strikes the virtual instrument through its control port."""
+    """The operator's hammer: strikes the simulated test piece through its control port."""
 
     def __init__(self, port: int) -> None:
         self._control = ControlClient(port)
@@ -87,7 +87,7 @@ class Hammer:
     def tap(self, point: str, double_hit: bool = False) -> None:
         reply = self._control.request("tap", point=point, double_hit=double_hit, overload=False)
         if not reply.get("ok"):
-            raise ClientError(f"the virtual hammer did not strike {point}: {reply}")
+            raise ClientError(f"the simulated hammer did not strike {point}: {reply}")
 
     def close(self) -> None:
         self._control.close()
@@ -98,7 +98,7 @@ def rig_process(
     state: Path, truth: Path, log: Path, settings: Sequence[str] = ()
 ) -> Iterator[dict[str, Any]]:
     """settings: more ``section.key=value`` overrides for taprigd."""
-    """`taprigd run` on the virtual instrument, loopback only; yields its run.json record."""
+    """`taprigd run` on the simulated test piece, loopback only; yields its run.json record."""
     cmd = [
         sys.executable, "-m", "taprig.daemon", "run",
         "--set", f"store.data_dir={state}", "--set", "store.min_free_mb=1",
@@ -106,7 +106,7 @@ def rig_process(
         "--set", "service.advertise=false", "--set", "rig.name=demo-rig",
         "--set", f"capture.averages={AVERAGES}", "--set", "capture.accept=auto",
         "--set", f"capture.block={BLOCK}",
-        "--virtual-control", "0", "--truth", str(truth), "--virtual-speed", f"{SPEED:g}",
+        "--sim-control", "0", "--truth", str(truth), "--sim-speed", f"{SPEED:g}",
         *(arg for setting in settings for arg in ("--set", setting)),
     ]  # fmt: skip
     with log.open("w") as err:
@@ -216,7 +216,7 @@ def _wait_for_device(rig: RigClient) -> None:
     deadline = time.monotonic() + START_TIMEOUT_S
     while rig.state().get("device") is None:
         if time.monotonic() > deadline:
-            raise ClientError("the virtual instrument never identified itself")
+            raise ClientError("the simulated test piece never identified itself")
         time.sleep(0.05)
 
 
@@ -227,7 +227,7 @@ def _lap(stages: dict[str, float], name: str, started: float) -> None:
 
 def _fit(data: TestData, result: DemoResult, say: Say) -> None:
     """The modal fit: modes.npz and the mode table beside the truth."""
-    from taprig.firmware_protocol.virtual import load_truth
+    from taprig.firmware_protocol.simpiece import load_truth
 
     from .demo_modes import truth_table
     from .modal import fit
@@ -276,7 +276,7 @@ def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
     truth_path = out / "truth.json"
     state = Path(tempfile.mkdtemp(prefix="taprig-demo-rig-"))
     try:
-        say("-- 1. taprigd on the virtual instrument (a 600 x 400 x 3 mm aluminium panel)")
+        say("-- 1. taprigd on the simulated test piece (a 600 x 400 x 3 mm aluminium panel)")
         say(f"   the simulated panel runs {SPEED:g} times faster than real time, so the taps "
             "take seconds; a real test runs at the pace of the hammer")
         with rig_process(state, truth_path, out / "taprigd.log") as record:

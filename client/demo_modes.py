@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from taprig.firmware_protocol.virtual import ModalModel as Truth
+from taprig.firmware_protocol.simpiece import ModalModel as Truth
 
 from .modal.model import ModalModel
 from .modal.quality import mac

@@ -107,16 +107,17 @@ class _JournalFormatter(logging.Formatter):
 @app.command()
 def probe(
     device: Annotated[
-        str, typer.Option(help="pyserial URL (/dev/ttyACM0, socket://host:port, ...) or 'virtual'")
-    ] = "virtual",
+        str,
+        typer.Option(help="pyserial URL (/dev/ttyACM0, socket://host:port, ...) or 'simulated'"),
+    ] = "simulated",
     fmt: Annotated[InputFormat, typer.Option("--format", help="input format")] = InputFormat.binary,
     seconds: Annotated[float, typer.Option(min=0.2, help="how long to stream")] = 3.0,
-    taps: Annotated[int, typer.Option(min=0, help="virtual device only: simulated taps")] = 4,
+    taps: Annotated[int, typer.Option(min=0, help="simulated device only: taps to strike")] = 4,
     rate: Annotated[
         float | None, typer.Option(help="text input: sample rate in Hz if the device does not say")
     ] = None,
     truth: Annotated[
-        Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
+        Path | None, typer.Option(help="simulated device only: write its true modal model (JSON)")
     ] = None,
     verbose: VerboseOption = False,
 ) -> None:
@@ -125,7 +126,7 @@ def probe(
 
     _setup_logging(verbose)
     report = run_probe(
-        device, fmt.value, seconds, taps if device == "virtual" else 0, rate, truth_path=truth
+        device, fmt.value, seconds, taps if device == "simulated" else 0, rate, truth_path=truth
     )
     info = report.info
     typer.echo(f"device      {report.url}")
@@ -178,21 +179,21 @@ def instrument(
     ] = None,
     verbose: VerboseOption = False,
 ) -> None:
-    """Run the virtual instrument on its own until interrupted (for demos and manual tests)."""
-    from taprig.firmware_protocol.virtual import write_truth
-    from taprig.firmware_protocol.virtual.control import ControlServer
-    from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
+    """Run the simulated test piece on its own until interrupted (for demos and manual tests)."""
+    from taprig.firmware_protocol.simpiece import write_truth
+    from taprig.firmware_protocol.simpiece.control import ControlServer
+    from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings, open_simulated
 
     _setup_logging(verbose)
-    vi = open_virtual(
+    piece = open_simulated(
         transport.value,
         link=str(link) if link else None,
         settings=InstrumentSettings(output=fmt.value),
     )
-    server = ControlServer(vi, port=control).start()
+    server = ControlServer(piece, port=control).start()
     if truth is not None:
-        write_truth(vi.model, truth)
-    typer.echo(f"device  {vi.url}")
+        write_truth(piece.model, truth)
+    typer.echo(f"device  {piece.url}")
     typer.echo(
         f'control 127.0.0.1:{server.port}  (JSON lines, e.g. {{"op": "tap", "point": "B3"}})'
     )
@@ -204,7 +205,7 @@ def instrument(
         pass
     finally:
         server.close()
-        vi.close()
+        piece.close()
 
 
 # `taprigd run`'s options about the test and the simulated piece, declared apart so that the
@@ -223,11 +224,11 @@ SensorAtOption = Annotated[
         "acc1=B3/+z; once per sensor (the [[channels]] location is the default)",
     ),
 ]
-VirtualSpeedOption = Annotated[
+SimSpeedOption = Annotated[
     float,
     typer.Option(
         min=0.1, max=16.0,
-        help="virtual device only: simulated seconds per wall second (above 1: faster "
+        help="simulated device only: simulated seconds per wall second (above 1: faster "
         "than real time, for demonstrations)",
     ),
 ]  # fmt: skip
@@ -256,7 +257,7 @@ def run(
         Path | None,
         typer.Option(
             help="CSV grid (label,x,y,z[,direction], metres) for a new test; "
-            "on the virtual device a new test takes the virtual structure's grid"
+            "on the simulated device a new test takes the simulated structure's grid"
         ),
     ] = None,
     outline: OutlineOption = None,
@@ -264,25 +265,25 @@ def run(
     reference: ReferenceOption = None,
     sensor_at: SensorAtOption = None,
     duration: Annotated[float, typer.Option(help="stop after this many seconds (0: run on)")] = 0.0,
-    virtual_taps: Annotated[
-        float, typer.Option(help="virtual device only: a simulated operator taps every N s")
+    sim_taps: Annotated[
+        float, typer.Option(help="simulated device only: a simulated operator taps every N s")
     ] = 0.0,
-    virtual_double_hits: Annotated[
-        float, typer.Option(min=0.0, max=1.0, help="virtual device only: share of double hits")
+    sim_double_hits: Annotated[
+        float, typer.Option(min=0.0, max=1.0, help="simulated device only: share of double hits")
     ] = 0.0,
     truth: Annotated[
-        Path | None, typer.Option(help="virtual device only: write its true modal model (JSON)")
+        Path | None, typer.Option(help="simulated device only: write its true modal model (JSON)")
     ] = None,
-    virtual_control: Annotated[
+    sim_control: Annotated[
         int | None,
         typer.Option(
             min=0,
             max=65535,
-            help="virtual device only: serve its control interface (taps, faults) on this "
+            help="simulated device only: serve its control interface (taps, faults) on this "
             "loopback port (0: any free port; recorded in <data_dir>/run.json)",
         ),
     ] = None,
-    virtual_speed: VirtualSpeedOption = 1.0,
+    sim_speed: SimSpeedOption = 1.0,
     json_events: Annotated[
         bool, typer.Option("--json-events", help="print every rig event as a JSON line")
     ] = False,
@@ -300,8 +301,8 @@ def run(
     with _guard():
         places = tuple(_sensor_flag(text) for text in sensor_at or [])
         options = RunOptions(test, grid, RovingMode(roving.value), reference, duration,
-                             virtual_taps, virtual_double_hits, truth, json_events,
-                             virtual_control, outline=outline, virtual_speed=virtual_speed,
+                             sim_taps, sim_double_hits, truth, json_events,
+                             sim_control, outline=outline, sim_speed=sim_speed,
                              sensor_at=places)  # fmt: skip
         cfg = load_config(config, set_ or [])
         asyncio.run(run_daemon(cfg, options))

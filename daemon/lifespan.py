@@ -35,9 +35,9 @@ from .store import Store
 from .supervise import report, status_line
 from .wirebody import encode_body
 
-if TYPE_CHECKING:  # the simulator is imported only when a virtual device is configured
-    from taprig.firmware_protocol.virtual import ModalModel
-    from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, VirtualInstrument
+if TYPE_CHECKING:  # the simulator is imported only when a simulated device is configured
+    from taprig.firmware_protocol.simpiece import ModalModel
+    from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings, SimulatedPiece
 
     from .advertise import Advertiser
     from .api.service import Service
@@ -50,28 +50,28 @@ def start_rig(
     instrument_settings: InstrumentSettings | None = None,
     model: ModalModel | None = None,
     control_port: int | None = None,
-    virtual_speed: float = 1.0,
+    sim_speed: float = 1.0,
 ) -> RunningRig:
     """Start the capture parts the configuration names, in order, and start capturing.
 
-    instrument_settings, model: for a virtual device, how to build it (default: the demo panel).
-    control_port: serve the virtual device's control interface on this loopback port (0: any).
-    virtual_speed: simulated seconds per wall second of a virtual device (1: real time).
+    instrument_settings, model: for a simulated device, how to build it (default: the demo panel).
+    control_port: serve the simulated device's control interface on this loopback port (0: any).
+    sim_speed: simulated seconds per wall second of a simulated device (1: real time).
     """
     usable_data_dir(config)
-    if control_port is not None and not config.device.is_virtual:
-        raise ConfigError("--virtual-control needs a virtual device (device.url=virtual...)")
-    if virtual_speed != 1.0 and not config.device.is_virtual:
-        raise ConfigError("--virtual-speed needs a virtual device (device.url=virtual...)")
+    if control_port is not None and not config.device.is_simulated:
+        raise ConfigError("--sim-control needs a simulated device (device.url=simulated...)")
+    if sim_speed != 1.0 and not config.device.is_simulated:
+        raise ConfigError("--sim-speed needs a simulated device (device.url=simulated...)")
     with contextlib.ExitStack() as stack:
         instrument = control = None
         url = config.device.url
-        if config.device.is_virtual:
-            instrument = _open_instrument(config, instrument_settings, model, virtual_speed)
+        if config.device.is_simulated:
+            instrument = _open_instrument(config, instrument_settings, model, sim_speed)
             stack.callback(instrument.close)
             url = instrument.url
             if control_port is not None:
-                from taprig.firmware_protocol.virtual.control import ControlServer
+                from taprig.firmware_protocol.simpiece.control import ControlServer
 
                 control = ControlServer(instrument, port=control_port).start()
                 stack.callback(control.close)
@@ -101,14 +101,14 @@ def usable_data_dir(config: Config) -> None:
 
 def _open_instrument(
     config: Config, settings: InstrumentSettings | None, model: ModalModel | None, speed: float
-) -> VirtualInstrument:
-    from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
+) -> SimulatedPiece:
+    from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings, open_simulated
 
     url = config.device.url
-    transport = "tcp" if url == "virtual:tcp" else "pty"
+    transport = "tcp" if url == "simulated:tcp" else "pty"
     # A board printing text lines manages a few kHz, not the binary link's 51.2 kHz.
     if settings is None:
-        text = url == "virtual:text"
+        text = url == "simulated:text"
         settings = (
             InstrumentSettings(output="text", rate_hz=5_000.0) if text else InstrumentSettings()
         )
@@ -116,10 +116,10 @@ def _open_instrument(
         settings = dataclasses.replace(settings, speed=speed)
     # Behind a stable name in the data folder, as udev gives a USB device, so the link finds
     # it again after an unplug.
-    link = str(config.store.data_dir / "virtual-tty") if transport == "pty" else None
+    link = str(config.store.data_dir / "sim-tty") if transport == "pty" else None
     private_dir(config.store.data_dir)
-    instrument = open_virtual(transport, link=link, settings=settings, model=model)
-    log.info("virtual instrument on %s", instrument.url)
+    instrument = open_simulated(transport, link=link, settings=settings, model=model)
+    log.info("simulated test piece on %s", instrument.url)
     return instrument
 
 
@@ -141,7 +141,7 @@ async def lifespan(
     control_port: int | None = None,
     prepare: Callable[[RunningRig], None] | None = None,
     notifier: Notifier | None = None,
-    virtual_speed: float = 1.0,
+    sim_speed: float = 1.0,
 ) -> AsyncIterator[Daemon]:
     """Every part, in order: the capture parts (`start_rig`), then auth, service, run file,
     advertiser, notifier; on leaving, all of them stop in reverse.
@@ -149,13 +149,13 @@ async def lifespan(
     Entered inside the event loop. control_port: as for `start_rig`. prepare: run on a worker
     thread once the rig runs and before the service opens (e.g. to open a test), so that a
     tool that finds the run file finds the rig ready. notifier: where readiness and status go
-    (default: $NOTIFY_SOCKET, if set). virtual_speed: as for `start_rig`.
+    (default: $NOTIFY_SOCKET, if set). sim_speed: as for `start_rig`.
     """
     from .api.service import Service
 
     async with contextlib.AsyncExitStack() as stack:
         running = await asyncio.to_thread(start_rig, cfg, None, None, control_port,
-                                          virtual_speed)
+                                          sim_speed)
         stack.push_async_callback(asyncio.to_thread, running.close)  # joins threads: off the loop
         if prepare is not None:
             await asyncio.to_thread(prepare, running)

@@ -25,12 +25,12 @@ from taprig.firmware_protocol import (
     SampleBlock,
     make_decoder,
 )
-from taprig.firmware_protocol.virtual import write_truth
-from taprig.firmware_protocol.virtual.instrument import (
+from taprig.firmware_protocol.simpiece import write_truth
+from taprig.firmware_protocol.simpiece.instrument import (
     InstrumentSettings,
+    SimulatedPiece,
     TapRecord,
-    VirtualInstrument,
-    open_virtual,
+    open_simulated,
 )
 
 from .capture.link import LinkChange, SerialLink
@@ -40,7 +40,7 @@ CONNECT_S = 5.0  # allowance for a device to open and start sending, seconds
 
 @dataclass
 class TapCheck:
-    """One virtual tap: the force asked of the simulated hammer and the peak that arrived."""
+    """One simulated tap: the force asked of the simulated hammer and the peak that arrived."""
 
     point: str
     asked_n: float
@@ -72,30 +72,30 @@ def probe(
     truth_path: Path | None = None,
     connect_s: float = CONNECT_S,
 ) -> ProbeReport:
-    """Open `device` (a pyserial URL, or "virtual"), stream for `seconds`, report.
+    """Open `device` (a pyserial URL, or "simulated"), stream for `seconds`, report.
 
-    truth_path: for the virtual device, where to write its true modal model.
+    truth_path: for the simulated device, where to write its true modal model.
     connect_s: how long to wait beyond `seconds` for the first samples.
     """
-    vi: VirtualInstrument | None = None
+    piece: SimulatedPiece | None = None
     url = device
-    if device == "virtual":
+    if device == "simulated":
         # A board printing text lines manages a few kHz, not the binary link's 51.2 kHz.
         rate = 51_200.0 if fmt == "binary" else 5_000.0
-        vi = open_virtual("pty", settings=InstrumentSettings(output=fmt, rate_hz=rate))
-        url = vi.url
+        piece = open_simulated("pty", settings=InstrumentSettings(output=fmt, rate_hz=rate))
+        url = piece.url
         text_rate_hz = text_rate_hz or (rate if fmt == "text" else None)
         if truth_path is not None:
-            write_truth(vi.model, truth_path)
+            write_truth(piece.model, truth_path)
     text_options = {"rate_hz": text_rate_hz, "rate_key": "--rate <Hz>"}
     decoder: Decoder = make_decoder(fmt, **(text_options if fmt == "text" else {}))
     link = SerialLink(url).start()
     try:
-        return _stream(link, decoder, url, fmt, (seconds, connect_s), taps, vi)
+        return _stream(link, decoder, url, fmt, (seconds, connect_s), taps, piece)
     finally:
         link.close()
-        if vi is not None:
-            vi.close()
+        if piece is not None:
+            piece.close()
 
 
 def _stream(
@@ -105,13 +105,13 @@ def _stream(
     fmt: str,
     times: tuple[float, float],
     n_taps: int,
-    vi: VirtualInstrument | None,
+    piece: SimulatedPiece | None,
 ) -> ProbeReport:
     seconds, connect_s = times
     enc = FrameEncoder()
     report = ProbeReport(url, None, dec.stats, seconds, 0)
     blocks: list[SampleBlock] = []
-    tap_plan = [seconds * (k + 0.5) / max(n_taps, 1) for k in range(n_taps)] if vi else []
+    tap_plan = [seconds * (k + 0.5) / max(n_taps, 1) for k in range(n_taps)] if piece else []
     records: list[TapRecord] = []
     started: float | None = None
     deadline = time.monotonic() + seconds + connect_s
@@ -140,30 +140,30 @@ def _stream(
                     if started is None:
                         started = time.monotonic()
                     report.samples += ev.count
-                    if vi is not None:
+                    if piece is not None:
                         blocks.append(ev)
                 elif isinstance(ev, ProtocolViolation):
                     report.messages.append(ev.message)
-        if vi is not None and started is not None and tap_plan and now - started >= tap_plan[0]:
+        if piece is not None and started is not None and tap_plan and now - started >= tap_plan[0]:
             tap_plan.pop(0)
-            point = vi.model.grid[len(records) * 7 % len(vi.model.grid)]
-            rec = vi.tap(point)
+            point = piece.model.grid[len(records) * 7 % len(piece.model.grid)]
+            rec = piece.tap(point)
             if rec is not None:
                 records.append(rec)
-    if vi is not None:
-        report.taps = _check_taps(vi, records, blocks)
+    if piece is not None:
+        report.taps = _check_taps(piece, records, blocks)
     return report
 
 
 def _check_taps(
-    vi: VirtualInstrument, records: list[TapRecord], blocks: list[SampleBlock]
+    piece: SimulatedPiece, records: list[TapRecord], blocks: list[SampleBlock]
 ) -> list[TapCheck]:
     """Peak of the force channel over each tap's pulse, in N, from the blocks that hold it."""
-    volts_per_n = vi.sensitivities()[0]
+    volts_per_n = piece.sensitivities()[0]
     out = []
     for r in records:
         lo = r.first_index
-        hi = lo + math.ceil(r.width_s * vi.rate_hz) + 2
+        hi = lo + math.ceil(r.width_s * piece.rate_hz) + 2
         peaks = [
             float(b.volts[0, max(lo - b.first_index, 0) : hi - b.first_index].max())
             for b in blocks

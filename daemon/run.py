@@ -1,7 +1,7 @@
 """`taprigd run`: start every part (daemon/lifespan.py), open the test, serve until told to stop.
 
-Stops on SIGTERM or SIGINT, or after `RunOptions.duration` seconds. With a virtual device a
-simulated operator may tap every few seconds (`virtual_taps`), as a hand would.
+Stops on SIGTERM or SIGINT, or after `RunOptions.duration` seconds. With a simulated device a
+simulated operator may tap every few seconds (`sim_taps`), as a hand would.
 """
 
 from __future__ import annotations
@@ -42,13 +42,13 @@ class RunOptions:
     roving: RovingMode = RovingMode.HAMMER
     reference: str | None = None
     duration: float = 0.0
-    virtual_taps: float = 0.0
-    virtual_double_hits: float = 0.0
+    sim_taps: float = 0.0
+    sim_double_hits: float = 0.0
     truth: Path | None = None
     json_events: bool = False
-    virtual_control: int | None = None
+    sim_control: int | None = None
     outline: Path | None = None  # default: <grid>.outline beside the grid, when there is one
-    virtual_speed: float = 1.0  # simulated seconds per wall second (virtual device only)
+    sim_speed: float = 1.0  # simulated seconds per wall second (simulated device only)
     sensor_at: tuple[tuple[str, str, str], ...] = ()  # (label, where, direction) per --sensor-at
 
 
@@ -61,7 +61,7 @@ async def run(cfg: Config, opt: RunOptions) -> None:
     for sig in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(sig, stop.set)
     try:
-        async with lifespan(cfg, control_port=opt.virtual_control, virtual_speed=opt.virtual_speed,
+        async with lifespan(cfg, control_port=opt.sim_control, sim_speed=opt.sim_speed,
                             prepare=functools.partial(_prepare, opt=opt)) as daemon:  # fmt: skip
             await _until_stopped(daemon.running, opt, stop)
     finally:
@@ -73,13 +73,13 @@ def _prepare(running: RunningRig, opt: RunOptions) -> None:
     """Before the service opens (a worker thread): events shown, the simulated device set up,
     the test opened (or the previous run's resumed once the device identifies itself)."""
     running.rig.subscribe(_shower(opt.json_events))
-    vi = running.instrument
-    if vi is not None:
-        vi.faults.double_hit_probability = opt.virtual_double_hits
+    piece = running.instrument
+    if piece is not None:
+        piece.faults.double_hit_probability = opt.sim_double_hits
         if opt.truth is not None:
-            from taprig.firmware_protocol.virtual import write_truth
+            from taprig.firmware_protocol.simpiece import write_truth
 
-            write_truth(vi.model, opt.truth)
+            write_truth(piece.model, opt.truth)
     if opt.test is not None:
         open_test(running, opt)
     elif running.rig.resume_later():
@@ -98,34 +98,34 @@ def _shower(json_events: bool) -> Callable[[RigEvent], None]:
 
 async def _until_stopped(running: RunningRig, opt: RunOptions, stop: asyncio.Event) -> None:
     """Wait for `stop` or the end of `opt.duration`; the simulated operator taps every
-    `opt.virtual_taps` seconds meanwhile."""
+    `opt.sim_taps` seconds meanwhile."""
     loop = asyncio.get_running_loop()
-    tick_s = opt.virtual_taps if opt.virtual_taps > 0 else 1.0
+    tick_s = opt.sim_taps if opt.sim_taps > 0 else 1.0
     end = loop.time() + opt.duration if opt.duration > 0 else float("inf")
     while not stop.is_set() and loop.time() < end:
         with contextlib.suppress(TimeoutError):
             await asyncio.wait_for(stop.wait(), timeout=min(tick_s, max(end - loop.time(), 0)))
-        tapping = running.instrument is not None and opt.virtual_taps > 0
+        tapping = running.instrument is not None and opt.sim_taps > 0
         if tapping and not stop.is_set() and running.rig.view().plan is not None:
             await asyncio.to_thread(simulated_tap, running)
 
 
 def open_test(running: RunningRig, opt: RunOptions) -> None:
-    """Create the test if asked (from `--grid` or the virtual device's model); select it and
+    """Create the test if asked (from `--grid` or the simulated device's model); select it and
     arm once the device has identified itself."""
-    rig, vi, name = running.rig, running.instrument, opt.test
+    rig, piece, name = running.rig, running.instrument, opt.test
     assert name is not None
     known = {t.name for t in running.store.list_tests()}
     if opt.grid is not None:
         points = import_grid_csv(opt.grid.read_text(encoding="utf-8"), max_points=MAX_POINTS)
-    elif vi is not None and name not in known:
-        m = vi.model
+    elif piece is not None and name not in known:
+        m = piece.model
         xyz = [tuple(float(v) for v in m.coords[m.index(p)]) for p in m.grid]
         points = [GridPoint(p, x, y, z) for p, (x, y, z) in zip(m.grid, xyz, strict=True)]
     else:
         points = []
-    if opt.virtual_taps > 0 and vi is not None:
-        _check_tappable(name, points or running.store.get_test(name).grid, vi.model.grid)
+    if opt.sim_taps > 0 and piece is not None:
+        _check_tappable(name, points or running.store.get_test(name).grid, piece.model.grid)
     outline = _outline(opt, points)
     if points:
         _create(running, name, points, opt, outline)
@@ -139,7 +139,7 @@ def _create(
     running: RunningRig, name: str, points: list[GridPoint], opt: RunOptions, outline: str | None
 ) -> None:
     """Create the test; a roving-hammer test whose sensor places are not all known is
-    refused before anything is stored (the virtual structure knows where its own sit)."""
+    refused before anything is stored (the simulated structure knows where its own sit)."""
     given: dict[str, str | tuple[str, str]] = {}
     responses = {c.label for c in running.config.response_channels}
     if running.instrument is not None:  # where the simulated piece's sensors sit, if used
@@ -167,7 +167,7 @@ def _check_tappable(test: str, points: Sequence[GridPoint], on_piece: Sequence[s
     missing = [p.label for p in points if p.label not in set(on_piece)]
     if missing:
         raise SessionError(
-            f"--virtual-taps: test {test!r} has {len(missing)} points that are not on the "
+            f"--sim-taps: test {test!r} has {len(missing)} points that are not on the "
             f"simulated piece ({', '.join(missing[:5])}{', ...' if len(missing) > 5 else ''}); "
             f"its points are {on_piece[0]}..{on_piece[-1]}. Tap by hand, or use a test whose "
             "grid is the simulated piece's"
@@ -187,21 +187,21 @@ def _outline(opt: RunOptions, points: list[GridPoint]) -> str | None:
 
 
 def simulated_tap(running: RunningRig) -> None:
-    """The virtual operator: in roving-sensor mode move the sensor, then tap. A point that
+    """The simulated operator: in roving-sensor mode move the sensor, then tap. A point that
     is not on the simulated piece (a test selected later from the API) is skipped, logged."""
-    vi, plan = running.instrument, running.rig.view().plan
-    assert vi is not None and plan is not None
+    piece, plan = running.instrument, running.rig.view().plan
+    assert piece is not None and plan is not None
     point = running.rig.snapshot()["point"]
     wanted = {point, plan.reference} if plan.roving_mode is RovingMode.SENSOR else {point}
-    off_piece = sorted(str(p) for p in wanted if p not in set(vi.model.grid))
+    off_piece = sorted(str(p) for p in wanted if p not in set(piece.model.grid))
     if off_piece:
         log.warning("simulated operator: %s of test %r not on the simulated piece; not tapping",
                     ", ".join(off_piece), plan.name)  # fmt: skip
         return
     if plan.roving_mode is RovingMode.SENSOR:
-        vi.move_sensor(next(iter(vi.model.sensors)), point)
+        piece.move_sensor(next(iter(piece.model.sensors)), point)
         point = plan.reference
-    vi.tap(point)
+    piece.tap(point)
 
 
 def settle(rig: Rig, test: str, timeout_s: float = SETTLE_S) -> None:

@@ -11,9 +11,9 @@ from .config import Config
 from .rig import Rig
 from .store import Store
 
-if TYPE_CHECKING:  # the simulator is imported only when a virtual device is configured
-    from taprig.firmware_protocol.virtual.control import ControlServer
-    from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
+if TYPE_CHECKING:  # the simulator is imported only when a simulated device is configured
+    from taprig.firmware_protocol.simpiece.control import ControlServer
+    from taprig.firmware_protocol.simpiece.instrument import SimulatedPiece
 
 
 @dataclass
@@ -23,7 +23,7 @@ class RunningRig:
     config: Config
     store: Store
     rig: Rig
-    instrument: VirtualInstrument | None = None
+    instrument: SimulatedPiece | None = None
     control: ControlServer | None = None
     _stack: contextlib.ExitStack = field(default_factory=contextlib.ExitStack, repr=False)
 

@@ -90,7 +90,7 @@ fi
 cat <<DONE
 Installed. Next:
   - set [device] url (and [[channels]]) in /etc/taprig/taprigd.toml; the example runs the
-    virtual instrument, so the rig answers before any hardware is connected
+    simulated test piece, so the rig answers before any hardware is connected
   - for a stable device name, edit /etc/udev/rules.d/70-taprig-device.rules
   - systemctl restart taprigd; taprigd status: /opt/taprig/bin/taprigd status -c /etc/taprig/taprigd.toml
   - pair a workstation: /opt/taprig/bin/taprigd pair -c /etc/taprig/taprigd.toml

@@ -1,6 +1,6 @@
 """Frame encoder: the device side (and the host's commands) of the binary protocol.
 
-Used by the virtual instrument, the tests and the benchmarks. Each direction
+Used by the simulated test piece, the tests and the benchmarks. Each direction
 of a link owns one encoder, which keeps that direction's frame counter.
 """
 

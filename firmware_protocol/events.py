@@ -90,7 +90,7 @@ class AckReceived:
 
 @dataclass(frozen=True, slots=True)
 class CommandReceived:
-    """A host command (seen by a device-side decoder, e.g. the virtual instrument)."""
+    """A host command (seen by a device-side decoder, e.g. the simulated test piece)."""
 
     command: Command
 

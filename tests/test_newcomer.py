@@ -111,7 +111,7 @@ def test_the_demo_as_a_newcomer_runs_it(user: User) -> None:
 
 
 def test_taprigd_without_hardware_or_config_uses_the_xdg_state_folder(user: User) -> None:
-    words = readme_line(r"taprigd run --set device.url=virtual .*$")
+    words = readme_line(r"taprigd run --set device.url=simulated .*$")
     state = user.home / ".local" / "state" / "taprig"
     proc = subprocess.Popen(user.argv([*words, *ISOLATED]), cwd=user.folder, env=user.env(),
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
@@ -140,7 +140,7 @@ def test_an_unwritable_data_dir_is_one_clear_line(user: User) -> None:
     else:
         locked.chmod(0o555)  # this user's own, but read-only
     store = locked / "store"
-    done = user.run(["taprigd", "run", "--set", "device.url=virtual",
+    done = user.run(["taprigd", "run", "--set", "device.url=simulated",
                      "--set", f"store.data_dir={store}", *ISOLATED], timeout=60)  # fmt: skip
     assert done.returncode == 3, done.stderr
     assert "Traceback" not in done.stderr

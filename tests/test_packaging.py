@@ -31,7 +31,7 @@ def test_wheel_installs_only_under_taprig(wheel: Path) -> None:
     tops = {n.split("/")[0] for n in names}
     assert {t for t in tops if not t.endswith(".dist-info")} == {"taprig"}
     for part in ("daemon", "client", "client/modal", "schema", "firmware_protocol",
-                 "firmware_protocol/virtual"):  # fmt: skip
+                 "firmware_protocol/simpiece"):  # fmt: skip
         assert f"taprig/{part}/__init__.py" in names
     assert "taprig/firmware_protocol/PROTOCOL.md" in names
     assert not any("/c/" in n or n.endswith(".c") for n in names)

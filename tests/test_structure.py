@@ -24,15 +24,15 @@ FUNCTION_LINES = 60
 LONG_MODULES = {
     # One physical model with its closed-form checks; split, its formulas would be read apart
     # from the plate theory they come from.
-    "firmware_protocol/virtual/modal.py": "the simulated test piece's model",
+    "firmware_protocol/simpiece/modal.py": "the simulated test piece's model",
     # Not split on this branch; each is a step of its own (see DEVELOPERS.md, "Still long").
     "daemon/store.py": "its columns and shape checks come from schema/pointset; the writer, "
     "reads and migrations are still one module",
     "client/check.py": "client/ takes import changes only on this branch",
     "client/cli.py": "client/ takes import changes only on this branch",
     "firmware_protocol/text.py": "the text decoder; not split yet",
-    "firmware_protocol/virtual/instrument.py": "the virtual device; not split yet",
-    "firmware_protocol/virtual/synth.py": "the synthesiser; not split yet",
+    "firmware_protocol/simpiece/instrument.py": "the simulated device; not split yet",
+    "firmware_protocol/simpiece/synth.py": "the synthesiser; not split yet",
 }
 # Runtime dependencies no installed module imports yet, each with its reason.
 NOT_YET_IMPORTED = {}
@@ -212,7 +212,7 @@ def _cycles(graph: dict[str, set[str]]) -> list[list[str]]:
 
 def test_parts_import_only_what_they_may() -> None:
     """schema imports neither daemon nor client; client never imports daemon (its demo
-    strikes the virtual instrument through firmware_protocol's control client);
+    strikes the simulated test piece through firmware_protocol's control client);
     firmware_protocol imports nothing of daemon, client or schema."""
     allowed = {
         "firmware_protocol": {"firmware_protocol"},

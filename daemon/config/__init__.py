@@ -14,6 +14,8 @@ Sensitivities are converted once here into ChannelSpec.si_per_volt (N/V or (m/sÂ
 
 from __future__ import annotations
 
+import dataclasses
+import logging
 import os
 import tomllib
 from collections.abc import Mapping, Sequence
@@ -27,8 +29,9 @@ from .channels import channels
 from .problems import Problems
 from .setting import (
     DATA_DIR_ENV,
+    OLD_URLS,
+    SIMULATED_URLS,
     STANDARD_GRAVITY,
-    VIRTUAL_URLS,
     AcceptMode,
     Kind,
     Setting,
@@ -43,17 +46,19 @@ from .table import (
     _SECTION_KEYS,
     CHANNEL_SETTINGS,
     SETTINGS,
-    VIRTUAL_CHANNELS,
+    SIMULATED_CHANNELS,
     si_per_volt,
 )
+
+log = logging.getLogger(__name__)
 
 __all__ = [
     "CHANNEL_SETTINGS",
     "DATA_DIR_ENV",
     "SETTINGS",
+    "SIMULATED_CHANNELS",
+    "SIMULATED_URLS",
     "STANDARD_GRAVITY",
-    "VIRTUAL_CHANNELS",
-    "VIRTUAL_URLS",
     "AcceptMode",
     "CaptureConfig",
     "Config",
@@ -92,9 +97,9 @@ class DeviceConfig:
     stall_s: float
 
     @property
-    def is_virtual(self) -> bool:
-        """True when the daemon runs its own virtual instrument (url in VIRTUAL_URLS)."""
-        return self.url in VIRTUAL_URLS
+    def is_simulated(self) -> bool:
+        """True when the daemon runs its own simulated test piece (url in SIMULATED_URLS)."""
+        return self.url in SIMULATED_URLS
 
 
 @dataclass(frozen=True, slots=True)
@@ -209,6 +214,16 @@ class Config:
             )
 
 
+def _rename_old_url(raw: dict[str, _Raw]) -> None:
+    """device.url's values of earlier releases still work in this one, with a warning."""
+    r = raw.get("device.url")
+    new = OLD_URLS.get(r.value) if r is not None and isinstance(r.value, str) else None
+    if r is not None and new is not None:
+        log.warning('device.url = "%s" is the old name of "%s"; write "%s", the old name '
+                    "goes in the next release%s", r.value, new, new, r.where)  # fmt: skip
+        raw["device.url"] = dataclasses.replace(r, value=new)
+
+
 @dataclass(frozen=True, slots=True)
 class _Raw:
     """A value for a setting before it is checked: from the file, environment or overrides."""
@@ -244,6 +259,7 @@ def load_config(
         with problems.collect():
             setting, value = _split_override(text)
             raw[setting.name] = _Raw(value, True, " (command-line override)", Path.cwd())
+    _rename_old_url(raw)
     values, where_of = _values(raw, problems)
     if "store.data_dir" not in raw:
         values["store"]["data_dir"] = default_data_dir(env)
@@ -253,7 +269,7 @@ def load_config(
     _check_together(device, capture, where_of, problems)
     chans: tuple[ChannelSpec, ...] = ()
     with problems.collect():
-        chans = channels(channel_tables, device.is_virtual, device.url, file_where)
+        chans = channels(channel_tables, device.is_simulated, device.url, file_where)
     problems.raise_any()
     return Config(
         rig=sections["rig"],
@@ -409,8 +425,8 @@ def _check_together(
             f"capture.trigger_level_n = {_show(capture.trigger_level_n)}"
             f"{where['capture.hysteresis_n']}"
         )
-    if device.url == "virtual:text" and device.format is not StreamFormat.TEXT:
+    if device.url == "simulated:text" and device.format is not StreamFormat.TEXT:
         problems.add(
             f'device.format = "{device.format}": must be "text" with device.url = '
-            f'"virtual:text", whose virtual instrument prints text{where["device.format"]}'
+            f'"simulated:text", whose simulated test piece prints text{where["device.format"]}'
         )

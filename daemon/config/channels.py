@@ -1,7 +1,7 @@
 """The ``[[channels]]`` tables: one ChannelSpec each, checked alone and together.
 
 Exactly one channel is the force (the hammer), at least one a response; indices and labels
-are unique. Without any table, a virtual device gets its built-in channels.
+are unique. Without any table, a simulated device gets its built-in channels.
 """
 
 from __future__ import annotations
@@ -16,18 +16,18 @@ from .table import (
     _UNITS,
     _UNITS_FOR_ROLE,
     CHANNEL_SETTINGS,
-    VIRTUAL_CHANNELS,
+    SIMULATED_CHANNELS,
     _channel,
 )
 
 
 def channels(
-    tables: list[object] | None, virtual: bool, url: str, where: str
+    tables: list[object] | None, simulated: bool, url: str, where: str
 ) -> tuple[ChannelSpec, ...]:
-    """ChannelSpecs from the [[channels]] tables, sorted by index; virtual defaults if none."""
+    """ChannelSpecs from the [[channels]] tables, sorted by index; simulated defaults if none."""
     if not tables:
-        if virtual:
-            return VIRTUAL_CHANNELS
+        if simulated:
+            return SIMULATED_CHANNELS
         raise ConfigError(
             f"channels: none configured; device.url = {_show(url)} is a real device, so "
             "the channels must be configured: one [[channels]] table per channel used, with "

@@ -236,13 +236,16 @@ def _is_power_of_two_block(n: int) -> bool:
 
 _RIG_NAME = re.compile(r"[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?")
 _CHANNEL_LABEL = re.compile(r"[A-Za-z0-9_.-]{1,32}")
-VIRTUAL_URLS = ("virtual", "virtual:text", "virtual:tcp")
-"""device.url values that make the daemon start its own virtual instrument."""
+SIMULATED_URLS = ("simulated", "simulated:text", "simulated:tcp")
+"""device.url values that make the daemon start its own simulated test piece."""
+OLD_URLS: Final = {"virtual": "simulated", "virtual:text": "simulated:text",
+                   "virtual:tcp": "simulated:tcp"}  # fmt: skip
+"""device.url values of earlier releases, still read (with a warning) in this one."""
 
 
 def _valid_url(url: str) -> bool:
-    if url.startswith("virtual"):
-        return url in VIRTUAL_URLS
+    if url.startswith("simulated"):
+        return url in SIMULATED_URLS
     return bool(url.strip())
 
 

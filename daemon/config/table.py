@@ -52,12 +52,12 @@ SETTINGS: tuple[Setting, ...] = (
         check=lambda s: _RIG_NAME.fullmatch(s) is not None,
     ),
     Setting(
-        "device", "url", Kind.STR, "virtual", "",
-        'where the device is: a pyserial port or URL, or "virtual" (a built-in simulated '
-        'rig on a pseudo-terminal), "virtual:text" (the same, printing text), "virtual:tcp" '
+        "device", "url", Kind.STR, "simulated", "",
+        'where the device is: a pyserial port or URL, or "simulated" (a built-in simulated '
+        'rig on a pseudo-terminal), "simulated:text" (the same, printing text), "simulated:tcp" '
         "(the same over a loopback TCP socket)",
         allowed='a serial port or pyserial URL (e.g. "/dev/ttyACM0", '
-        '"socket://192.168.4.1:5000") or one of "virtual", "virtual:text", "virtual:tcp"',
+        '"socket://192.168.4.1:5000") or one of "simulated", "simulated:text", "simulated:tcp"',
         check=_valid_url,
     ),
     Setting(
@@ -326,10 +326,10 @@ def _channel(
     )
 
 
-VIRTUAL_CHANNELS: tuple[ChannelSpec, ...] = (
-    # the built-in virtual instrument's channels (firmware_protocol/virtual/instrument.py)
+SIMULATED_CHANNELS: tuple[ChannelSpec, ...] = (
+    # the built-in simulated test piece's channels (firmware_protocol/simpiece/instrument.py)
     _channel(0, Role.FORCE, "hammer", 2.25, "mV/N"),
     _channel(1, Role.RESPONSE, "acc1", 1.02, "mV/(m/s^2)"),
     _channel(2, Role.RESPONSE, "acc2", 1.02, "mV/(m/s^2)"),
 )
-"""Channels used when device.url is a virtual one and the file configures none."""
+"""Channels used when device.url is a simulated one and the file configures none."""

@@ -1,6 +1,6 @@
 """Simulated rigs for bench_archive.py, in a process of their own (so that serving them does not
 share the archive follower's interpreter): `rigs` real rigs (real store, real service on
-loopback, virtual instrument at 1 kHz), each filled with one test of `sets` point sets of
+loopback, simulated test piece at 1 kHz), each filled with one test of `sets` point sets of
 2 responses × `lines` lines. Prints one JSON line (url, token, rig id of each rig) when they
 serve, and stops them when its stdin closes.
 

@@ -1,7 +1,7 @@
 """Capture benchmarks: daemon CPU share and peak memory while streaming, per-hit latency.
 
 1. `taprigd run` in its own process reads 4 channels × 51.2 kHz int24 from the
-   virtual instrument (in this process) over a pseudo-terminal. Its CPU share
+   simulated test piece (in this process) over a pseudo-terminal. Its CPU share
    is read from /proc/<pid>/stat over a fixed window, with no hits and then
    with one hit a second; its peak RSS from /proc/<pid>/status (VmHWM).
    Goals: CPU at most 5 % of one core idle, 10 % with a hit a second; RSS at
@@ -36,8 +36,8 @@ from taprig.daemon.capture.link import READ_TIMEOUT_S
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import start_rig
 from taprig.daemon.records import GridPoint
-from taprig.firmware_protocol.virtual import ModalModel, demo_panel
-from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
+from taprig.firmware_protocol.simpiece import ModalModel, demo_panel
+from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings, open_simulated
 
 TICK = os.sysconf("SC_CLK_TCK")
 CHANNELS_TOML = """
@@ -93,7 +93,7 @@ print((sum(os.times()[:2]) - c0) / (time.monotonic() - t0))
 """
 IMPORTS = ("import taprig.daemon.cli, taprig.daemon.config, taprig.daemon.lifespan, "
            "taprig.daemon.run, taprig.daemon.api.service, "
-           "taprig.firmware_protocol.virtual.instrument")  # fmt: skip
+           "taprig.firmware_protocol.simpiece.instrument")  # fmt: skip
 
 
 def bare_reader_cpu(url: str, seconds: float) -> float:
@@ -114,7 +114,7 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
     model = four_channel_panel()
     with tempfile.TemporaryDirectory() as tmp:
         link = Path(tmp) / "ttyBENCH"
-        vi = open_virtual("pty", link=str(link), model=model)
+        piece = open_simulated("pty", link=str(link), model=model)
         cfg = Path(tmp) / "taprigd.toml"
         cfg.write_text(
             f'[device]\nurl = "{link}"\n[store]\ndata_dir = "{tmp}"\nmin_free_mb = 1\n'
@@ -145,7 +145,7 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
             c0, t0 = cpu_seconds(proc.pid), time.monotonic()
             k = 0
             while time.monotonic() - t0 < seconds:
-                vi.tap(model.grid[k % len(model.grid)])
+                piece.tap(model.grid[k % len(model.grid)])
                 k += 1
                 time.sleep(1.0)
             busy = (cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
@@ -156,7 +156,7 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
         try:
             reader = bare_reader_cpu(str(link), seconds)
         finally:
-            vi.close()
+            piece.close()
     return [
         ("daemon CPU, streaming, no hits", 100 * idle, "% core", "goal <= 5 %"),
         ("daemon CPU, streaming, 1 hit/s", 100 * busy, "% core", "goal <= 10 %"),
@@ -175,7 +175,7 @@ def hit_latency(hits: int) -> list[Row]:
         cfg = load_config(
             cfg_file,
             [f"store.data_dir={tmp}", "capture.block=16384", "capture.averages=1",
-             "store.min_free_mb=1", "device.url=virtual"],
+             "store.min_free_mb=1", "device.url=simulated"],
         )  # fmt: skip
         r = start_rig(cfg, InstrumentSettings(), model=model)
         try:

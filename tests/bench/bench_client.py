@@ -1,6 +1,6 @@
 """Workstation side: the quick-look check, exports and plots of a large test.
 
-The test: 210 points × 2 responses × 8193 lines (a 16384-sample block), the virtual
+The test: 210 points × 2 responses × 8193 lines (a 16384-sample block), the simulated
 panel's analytic FRFs with 1 % complex noise (so the noise floor above the force band is full
 of small local maxima: the second check row takes the band to 11.5 kHz, the peak
 picker's worst case). Printed beside each figure: a bare pass over the
@@ -35,7 +35,7 @@ from analytic import analytic_test_data
 from taprig.client.check import CheckSettings, check
 from taprig.client.export import export
 from taprig.client.plots import frf_figure
-from taprig.firmware_protocol.virtual import demo_panel
+from taprig.firmware_protocol.simpiece import demo_panel
 
 RATE_HZ = 25_600.0
 BLOCK = 16_384

@@ -1,7 +1,7 @@
 """The modal fit (client/modal/): speed at the demo's size, scaling, and a Monte-Carlo of
 its scatter under noise.
 
-1. The demo-sized test: the virtual panel's analytic accelerance (tests/client/analytic.py),
+1. The demo-sized test: the simulated panel's analytic accelerance (tests/client/analytic.py),
    30 points × 2 references, 1.5625 Hz lines over 1.5 to 2031 Hz (1,300 lines), the
    stabilization diagram over orders 12 to 60. Goal (the issue's): the whole fit <= 2 s.
    Ceiling: building the reduced normal equations once at the top order (the one pass over
@@ -37,7 +37,7 @@ from client.analytic import analytic_test_data  # noqa: E402
 from client.modal.synthetic import BAND_HZ, FREQ_HZ, ZETA, known_data, with_noise  # noqa: E402
 
 from taprig.client.modal import fit, plscf  # noqa: E402
-from taprig.firmware_protocol.virtual import demo_panel  # noqa: E402
+from taprig.firmware_protocol.simpiece import demo_panel  # noqa: E402
 
 RATE_HZ = 25_600.0
 BLOCK = 16_384

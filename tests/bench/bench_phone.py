@@ -1,6 +1,6 @@
 """The phone page: from a tap to its plots on the screen, in a real browser.
 
-`taprigd run` on the virtual instrument (automatic accept), Debian's headless Chromium
+`taprigd run` on the simulated test piece (automatic accept), Debian's headless Chromium
 paired with it (tests/web/harness.py). Each of `taps` taps is sent to the instrument's
 control port; a MutationObserver in the page notes the wall-clock time at which the page
 has drawn that tap (the force plot's stamp changes once all four plots are drawn). Both

@@ -2,7 +2,7 @@
 interpreter and imports alone.
 
 The daemon runs in a network namespace made for the benchmark (loopback only, multicast
-on and routed to it, so its real mDNS announcement leaves nothing), with the virtual
+on and routed to it, so its real mDNS announcement leaves nothing), with the simulated
 instrument and the example configuration's defaults otherwise. The clock runs from the
 process start to the READY=1 it sends on its notify socket, which it sends only once the
 HTTP service listens and the announcement's name has been probed and claimed (RFC 6762

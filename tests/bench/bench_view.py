@@ -40,7 +40,7 @@ from taprig.client.view import pictures  # noqa: E402
 from taprig.client.view.geometry import from_grid  # noqa: E402
 from taprig.client.view.payload import normalise, spread  # noqa: E402
 from taprig.client.view.server import ViewServer, ViewThread  # noqa: E402
-from taprig.firmware_protocol.virtual import simply_supported_plate  # noqa: E402
+from taprig.firmware_protocol.simpiece import simply_supported_plate  # noqa: E402
 from tests.client.analytic import analytic_test_data  # noqa: E402
 from tests.view.browser import desktop, wait  # noqa: E402
 from tests.view.conftest import FREQ, PANEL, TAU_S, truth_modes  # noqa: E402

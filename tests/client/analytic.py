@@ -1,4 +1,4 @@
-"""TestData built from the virtual instrument's analytic accelerance (no capture).
+"""TestData built from the simulated test piece's analytic accelerance (no capture).
 
 A roving-hammer test on a modal model: row i is the tap at grid point i, response r the
 fixed sensor r; H1 = H2 = the model's accelerance seen through an exponential window of
@@ -13,7 +13,7 @@ import math
 import numpy as np
 
 from taprig.client.dataset import TestData
-from taprig.firmware_protocol.virtual import ModalModel, accelerance, half_sine_spectrum
+from taprig.firmware_protocol.simpiece import ModalModel, accelerance, half_sine_spectrum
 
 
 def analytic_test_data(

@@ -1,12 +1,12 @@
 """Client test fixtures.
 
-1. A rig served on loopback for client tests: a real RunningRig on the virtual instrument, its
+1. A rig served on loopback for client tests: a real RunningRig on the simulated test piece, its
 SQLite store filled with point sets, and the real HTTP service on an ephemeral port, its event
 loop in a thread of its own so that the blocking client can run in the test's thread.
 
-2. A test captured by the real daemon on the virtual instrument, as the client sees it.
+2. A test captured by the real daemon on the simulated test piece, as the client sees it.
 
-The rig runs in-process on the virtual panel over a real pseudo-terminal; a simulated
+The rig runs in-process on the simulated panel over a real pseudo-terminal; a simulated
 operator taps every grid point; the committed point sets are read back from the SQLite
 store, converted to the wire records the client receives and assembled into `TestData`.
 The rig is stopped before the data is handed out, so no thread outlives the fixture.
@@ -36,14 +36,14 @@ from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 from taprig.daemon.rigstate import RigEvent
-from taprig.firmware_protocol.virtual import (
+from taprig.firmware_protocol.simpiece import (
     DEMO_DRIVING_POINT,
     ModalModel,
     demo_panel,
     load_truth,
     write_truth,
 )
-from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
+from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings
 from taprig.schema import records
 
 N_RESP = 2
@@ -122,7 +122,7 @@ def commit_synthetic(
 
 @contextlib.contextmanager
 def serving(data_dir: Path) -> Iterator[ServedRig]:
-    """The real rig on the virtual instrument with its store in `data_dir`, served."""
+    """The real rig on the simulated test piece with its store in `data_dir`, served."""
     cfg = load_config(None, [f"store.data_dir={data_dir}", "store.min_free_mb=1"])
     running = start_rig(cfg)
     auth = Auth(data_dir, max_failures=10_000)
@@ -215,12 +215,12 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
     )  # fmt: skip
     r = start_rig(cfg, InstrumentSettings(rate_hz=RATE_HZ), model=CAPTURE_MODEL)
     try:
-        vi = r.instrument
-        assert vi is not None
+        piece = r.instrument
+        assert piece is not None
         events: queue.Queue[RigEvent] = queue.Queue()
         r.rig.subscribe(events.put)
         _until(lambda: r.rig.view().info is not None, "the device to identify itself")
-        m = vi.model
+        m = piece.model
         grid = [GridPoint(p, *map(float, m.coords[m.index(p)])) for p in m.grid]
         sensors = m.sensor_places()
         r.rig.create_test("panel-check", grid, RovingMode.HAMMER,
@@ -231,11 +231,11 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
         for label in m.grid:
             for force in FORCES_N:
                 _until(_streamed_to(r, rung_down), "the previous tap to ring down")
-                tap = vi.tap(label, force_n=force)
+                tap = piece.tap(label, force_n=force)
                 assert tap is not None
                 hit = _next(events, "hit")
                 assert hit.data["counted"], (label, hit.data["rejections"])
-                rung_down = tap.first_index + math.ceil(RING_DOWN_S * vi.rate_hz)
+                rung_down = tap.first_index + math.ceil(RING_DOWN_S * piece.rate_hz)
             assert _next(events, "completed").data["point"] == label
         store = r.store
         sets = [
@@ -245,7 +245,7 @@ def captured_panel(tmp_path_factory: pytest.TempPathFactory) -> Captured:
         test = records.test_from_record(store.get_test("panel-check"))
     finally:
         r.close()
-    data = assemble(test, sets, rig="virtual", rig_id="virtual-1")
+    data = assemble(test, sets, rig="simulated", rig_id="simulated-1")
     assert data.points == tuple(CAPTURE_MODEL.grid)
     assert np.all(data.n_averages == AVERAGES)
     return Captured(data=data, truth=load_truth(truth_path))

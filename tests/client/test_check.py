@@ -1,4 +1,4 @@
-"""The quick-look check against the virtual instrument's truth: analytic FRFs and a capture.
+"""The quick-look check against the simulated test piece's truth: analytic FRFs and a capture.
 
 Acceptance for every mode that the test's own rule (`judged_modes`) says the data can
 show: natural frequency within 1 %, Q within 10 % once the exponential window's share is
@@ -26,7 +26,7 @@ from taprig.client.check import (
     pick_peaks,
     report_text,
 )
-from taprig.firmware_protocol.virtual import ModalModel, demo_panel, half_sine_spectrum
+from taprig.firmware_protocol.simpiece import ModalModel, demo_panel, half_sine_spectrum
 
 from .analytic import analytic_test_data
 from .conftest import Captured
@@ -106,7 +106,7 @@ def assert_modes_match(result: CheckResult, model: ModalModel, judged: list[int]
 def test_modes_of_the_analytic_frfs_match_the_truth(analytic: dataset.TestData) -> None:
     """Frequencies within 1 %, Q within 10 %, MAC > 0.95, on exact FRFs of the demo panel.
 
-    Source: the virtual panel's truth (a simply supported Kirchhoff plate, Leissa,
+    Source: the simulated panel's truth (a simply supported Kirchhoff plate, Leissa,
     Vibration of Plates, NASA SP-160, 1969) and its closed-form accelerance by modal
     superposition (Ewins 2000, ch. 2, from memory), seen through an exponential window of
     τ = 0.5 s: H(ω − i/τ), every modal decay rate raised by 1/τ (the shift theorem of the
@@ -122,7 +122,7 @@ def test_modes_of_the_analytic_frfs_match_the_truth(analytic: dataset.TestData) 
 
 
 def test_captured_test_modes_match_the_truth(captured_panel: Captured) -> None:
-    """The same acceptance on a test the daemon captured from the virtual instrument.
+    """The same acceptance on a test the daemon captured from the simulated test piece.
 
     Source: the instrument's truth file (write_truth / load_truth of its modal model);
     the daemon's H1 from two taps per point, windowed with the exponential window whose

@@ -1,6 +1,6 @@
 """`taprig demo` as a newcomer runs it: one command, the whole job, everything stopped after.
 
-The quick mode table is held to the demo's own truth file (the virtual panel's modal model,
+The quick mode table is held to the demo's own truth file (the simulated panel's modal model,
 written by taprigd): natural frequencies within 1 %, Q within 10 % after the window
 correction, and deflection shapes with MAC above 0.95 (Allemang and Brown, "A correlation
 coefficient for modal vector analysis", 1982), for every mode the stated rule of
@@ -25,7 +25,7 @@ from taprig.client.check import check
 from taprig.client.mirror import Mirror
 from taprig.client.modal import ModalModel
 from taprig.client.view.pictures import FRAMES
-from taprig.firmware_protocol.virtual import load_truth
+from taprig.firmware_protocol.simpiece import load_truth
 
 from .test_check import assert_modes_match, judged_modes
 

@@ -16,7 +16,7 @@ import pytest
 from taprig.client import dataset
 from taprig.client.errors import ClientError
 from taprig.client.export import UNITS, export
-from taprig.firmware_protocol.virtual import ModalModel, demo_panel
+from taprig.firmware_protocol.simpiece import ModalModel, demo_panel
 
 from .analytic import analytic_test_data
 

@@ -13,7 +13,7 @@ from taprig.client import dataset
 from taprig.client.check import check
 from taprig.client.errors import ClientError
 from taprig.client.plots import frf_figure, shape_figure, write_plots
-from taprig.firmware_protocol.virtual import demo_panel
+from taprig.firmware_protocol.simpiece import demo_panel
 
 from .analytic import analytic_test_data
 

@@ -1,4 +1,4 @@
-"""Ring buffer, trigger and hit checks, fed arrays made by the virtual structure's physics."""
+"""Ring buffer, trigger and hit checks, fed arrays made by the simulated structure's physics."""
 
 from __future__ import annotations
 
@@ -20,8 +20,8 @@ from taprig.daemon.capture.hits import (
     pulse_width_of_half_sine,
 )
 from taprig.daemon.records import ChannelSpec, Role
-from taprig.firmware_protocol.virtual import demo_panel
-from taprig.firmware_protocol.virtual.synth import Pulse, ResponseSynth
+from taprig.firmware_protocol.simpiece import demo_panel
+from taprig.firmware_protocol.simpiece.synth import Pulse, ResponseSynth
 
 RATE = 51_200.0
 HAMMER_V_PER_N = 2.25e-3

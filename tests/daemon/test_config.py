@@ -26,8 +26,8 @@ from taprig.daemon.config import (
 )
 from taprig.daemon.errors import ConfigError
 from taprig.daemon.records import ChannelSpec, Role
-from taprig.firmware_protocol.virtual import demo_panel
-from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
+from taprig.firmware_protocol.simpiece import demo_panel
+from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings
 
 EXAMPLE = Path(__file__).resolve().parents[2] / "deploy" / "taprigd.example.toml"
 
@@ -106,13 +106,13 @@ def test_table_and_dataclasses_declare_the_same_fields_and_types() -> None:
 
 
 def test_defaults_load_without_a_file() -> None:
-    """No file, no overrides: every value is the table's default, channels are the virtual
+    """No file, no overrides: every value is the table's default, channels are the simulated
     instrument's (labels and sensitivities compared with the instrument's own settings)."""
     config = load_config(None, environ={})
     for s in SETTINGS:
         assert section_of(config, s) == s.default, s.name
     assert config.source is None
-    assert config.device.is_virtual
+    assert config.device.is_simulated
     inst = InstrumentSettings()
     labels = ("hammer", *demo_panel().sensors.keys())
     assert tuple(c.label for c in config.channels) == labels
@@ -255,7 +255,7 @@ def test_file_values_of_every_kind_are_read(tmp_path: Path) -> None:
 [rig]
 name = "bay-2"
 [device]
-url = "virtual:text"
+url = "simulated:text"
 format = "text"
 text_rate_hz = 25600
 [capture]
@@ -349,7 +349,7 @@ def test_block_not_a_power_of_two_message(tmp_path: Path) -> None:
         ('[windows]\nexponential_end = "off"\n', ['exponential_end = "off"', 'or "none"']),
         ('[rig]\nname = "-bad"\n', ['rig.name = "-bad"', "letters, digits or hyphens"]),
         ('[rig]\nname = ""\n', ['rig.name = ""', "1 to 63"]),
-        ('[device]\nurl = "virtual:usb"\n', ['device.url = "virtual:usb"', '"virtual:tcp"']),
+        ('[device]\nurl = "simulated:usb"\n', ['device.url = "simulated:usb"', '"simulated:tcp"']),
         ('[device]\nurl = ""\n', ['device.url = ""', "pyserial URL"]),
         # enum choices
         ('[capture]\ntrigger_slope = "up"\n', ['trigger_slope = "up"', '"rising", "falling"']),
@@ -366,8 +366,8 @@ def test_block_not_a_power_of_two_message(tmp_path: Path) -> None:
         ),
         ("[capture]\nhysteresis_n = -1\n", ["capture.hysteresis_n = -1", "≥ 0"]),
         (
-            '[device]\nurl = "virtual:text"\n',
-            ['device.format = "binary"', 'must be "text"', '"virtual:text"'],
+            '[device]\nurl = "simulated:text"\n',
+            ['device.format = "binary"', 'must be "text"', '"simulated:text"'],
         ),
     ],
 )
@@ -453,7 +453,7 @@ def test_real_device_needs_channels(tmp_path: Path) -> None:
     assert 'device.url = "/dev/ttyACM0"' in message
     assert "channels must be configured" in message
     config = load_text(tmp_path, '[device]\nurl = "/dev/ttyACM0"\n' + CHANNELS_3)
-    assert not config.device.is_virtual
+    assert not config.device.is_simulated
     assert len(config.channels) == 3
 
 
@@ -579,3 +579,25 @@ def test_ring_buffer_must_hold_two_records() -> None:
     default.check_rate(8192.0)
     with pytest.raises(ConfigError, match=r"= 4\.096 s"):
         default.check_rate(8000.0)
+
+
+@pytest.mark.parametrize(("old", "new"), [("virtual", "simulated"),
+                                          ("virtual:text", "simulated:text"),
+                                          ("virtual:tcp", "simulated:tcp")])  # fmt: skip
+def test_earlier_names_of_the_simulated_piece_still_load_with_a_warning(
+    tmp_path: Path, caplog: pytest.LogCaptureFixture, old: str, new: str
+) -> None:
+    """device.url's values of the previous release keep working for one release, and say so."""
+    path = tmp_path / "taprigd.toml"
+    fmt = '\nformat = "text"' if new.endswith(":text") else ""
+    path.write_text(f'[device]\nurl = "{old}"{fmt}\n')
+    text = ["device.format=text"] if fmt else []
+    with caplog.at_level("WARNING"):
+        from_file = load_config(path, environ={})
+        from_override = load_config(None, [f"device.url={old}", *text], environ={})
+    assert from_file.device.url == from_override.device.url == new
+    today = load_config(None, [f"device.url={new}", *text], environ={})
+    assert from_file.device.is_simulated and from_file.channels == today.channels
+    said = [r.getMessage() for r in caplog.records if r.levelname == "WARNING"]
+    assert len(said) == 2 and all(f'"{old}" is the old name of "{new}"' in m for m in said)
+    assert str(path) in said[0] and "command-line override" in said[1]

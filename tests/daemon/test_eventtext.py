@@ -34,7 +34,7 @@ def test_each_kind_reads_as_a_sentence() -> None:
 def test_the_daemon_log_has_no_dict_dumps(tmp_path: Path) -> None:
     done = subprocess.run(
         [sys.executable, "-m", "taprig.daemon", "run", "--test", "demo", "--duration", "3",
-         "--virtual-taps", "0.5", "--set", "device.url=virtual",
+         "--sim-taps", "0.5", "--set", "device.url=simulated",
          "--set", f"store.data_dir={tmp_path}", "--set", "store.min_free_mb=1",
          "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
          "--set", "service.advertise=false", "--set", "capture.block=4096"],

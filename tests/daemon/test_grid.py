@@ -64,7 +64,7 @@ def test_taprigd_run_warns_about_a_grid_in_millimetres(tmp_path: Path) -> None:
     grid.write_text("label,x,y,z\nA1,0,0,0\nB3,300,100,0\n", encoding="utf-8")
     done = subprocess.run(
         [sys.executable, "-m", "taprig.daemon", "run", "--test", "mm", "--grid", str(grid),
-         "--duration", "0.3", "--set", "device.url=virtual",
+         "--duration", "0.3", "--set", "device.url=simulated",
          "--set", f"store.data_dir={tmp_path / 'data'}", "--set", "store.min_free_mb=1",
          "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
          "--set", "service.advertise=false", "--sensor-at", "acc1=A1",

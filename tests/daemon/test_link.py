@@ -9,7 +9,7 @@ from pathlib import Path
 
 from taprig.daemon.capture.link import Item, LinkChange, LinkState, SerialLink
 from taprig.firmware_protocol import Command, FrameEncoder, Opcode, SampleBlock, make_decoder
-from taprig.firmware_protocol.virtual.instrument import open_virtual
+from taprig.firmware_protocol.simpiece.instrument import open_simulated
 
 
 def drain_until(link: SerialLink, cond: Callable[[Item], bool], timeout: float = 5.0) -> list[Item]:
@@ -35,7 +35,7 @@ def is_state(state: LinkState) -> Callable[[Item], bool]:
 
 def test_reconnects_within_a_second_of_replug(tmp_path: Path) -> None:
     link_path = tmp_path / "ttyRIG"
-    vi = open_virtual("pty", link=str(link_path))
+    piece = open_simulated("pty", link=str(link_path))
     link = SerialLink(str(link_path)).start()
     enc = FrameEncoder()
     try:
@@ -43,10 +43,10 @@ def test_reconnects_within_a_second_of_replug(tmp_path: Path) -> None:
         link.send(enc.command(Command(Opcode.START, 1)))
         drain_until(link, lambda i: isinstance(i, bytes))
         for _ in range(3):
-            vi.unplug()
+            piece.unplug()
             drain_until(link, is_state(LinkState.DISCONNECTED))
             t0 = time.monotonic()
-            vi.replug()
+            piece.replug()
             drain_until(link, is_state(LinkState.CONNECTED), timeout=2.0)
             assert time.monotonic() - t0 < 1.0
             link.send(enc.command(Command(Opcode.START, 2)))
@@ -54,7 +54,7 @@ def test_reconnects_within_a_second_of_replug(tmp_path: Path) -> None:
         assert link.reconnects == 3
     finally:
         link.close()
-        vi.close()
+        piece.close()
 
 
 def test_missing_device_is_reported_not_fatal(tmp_path: Path) -> None:
@@ -68,27 +68,27 @@ def test_missing_device_is_reported_not_fatal(tmp_path: Path) -> None:
 
 
 def test_stall_is_reported_and_clears() -> None:
-    vi = open_virtual("pty")
-    link = SerialLink(vi.url, stall_after_s=0.3).start()
+    piece = open_simulated("pty")
+    link = SerialLink(piece.url, stall_after_s=0.3).start()
     try:
         drain_until(link, is_state(LinkState.CONNECTED))
         link.send(FrameEncoder().command(Command(Opcode.START, 1)))
         drain_until(link, lambda i: isinstance(i, bytes))
-        vi.faults.stalled = True
+        piece.faults.stalled = True
         t0 = time.monotonic()
         drain_until(link, is_state(LinkState.STALLED))
         assert time.monotonic() - t0 >= 0.25
-        vi.faults.stalled = False
+        piece.faults.stalled = False
         seen = drain_until(link, is_state(LinkState.CONNECTED))
         assert isinstance(seen[-1], LinkChange) and "flowing again" in seen[-1].detail
     finally:
         link.close()
-        vi.close()
+        piece.close()
 
 
 def test_bytes_arrive_in_order_and_decode() -> None:
-    vi = open_virtual("pty")
-    link = SerialLink(vi.url).start()
+    piece = open_simulated("pty")
+    link = SerialLink(piece.url).start()
     dec = make_decoder("binary")
     try:
         drain_until(link, is_state(LinkState.CONNECTED))
@@ -106,4 +106,4 @@ def test_bytes_arrive_in_order_and_decode() -> None:
         assert dec.stats.crc_errors == 0 and dec.stats.samples_lost == 0
     finally:
         link.close()
-        vi.close()
+        piece.close()

@@ -64,7 +64,7 @@ def test_places_come_from_the_config_then_the_test_and_are_never_guessed(tmp_pat
 def _channels_toml(side_location: str = "") -> str:
     side = f'location = "{side_location}"\n' if side_location else ""
     return (
-        '[device]\nurl = "virtual"\n'
+        '[device]\nurl = "simulated"\n'
         '[[channels]]\nindex = 0\nrole = "force"\nlabel = "hammer"\nsensitivity = 2.25\n'
         'unit = "mV/N"\n'
         '[[channels]]\nindex = 1\nrole = "response"\nlabel = "acc1"\nsensitivity = 1.02\n'

@@ -1,6 +1,6 @@
 """`taprigd probe` (daemon/probe.py): identify a device, stream, report what arrived.
 
-Runs against the virtual instrument on a real pseudo-terminal through pyserial.
+Runs against the simulated test piece on a real pseudo-terminal through pyserial.
 """
 
 from __future__ import annotations
@@ -8,13 +8,13 @@ from __future__ import annotations
 import pytest
 
 from taprig.daemon.probe import probe
-from taprig.firmware_protocol.virtual.ports import PtyPort
+from taprig.firmware_protocol.simpiece.ports import PtyPort
 
 
 def test_binary_probe_identifies_streams_and_sees_the_taps() -> None:
     """The force peak read back over the link is the peak the simulated hammer struck:
     the instrument quantises to its ADC and adds a little noise, so within 2 %."""
-    report = probe("virtual", "binary", seconds=0.8, taps=2)
+    report = probe("simulated", "binary", seconds=0.8, taps=2)
     info = report.info
     assert info is not None and info.rate_hz == 51_200.0 and info.channel_count >= 2
     assert report.samples > 0 and report.stats.frames_ok > 0
@@ -28,7 +28,7 @@ def test_binary_probe_identifies_streams_and_sees_the_taps() -> None:
 
 
 def test_text_probe_counts_samples_and_no_malformed_lines() -> None:
-    report = probe("virtual", "text", seconds=0.5)
+    report = probe("simulated", "text", seconds=0.5)
     assert report.samples > 0
     assert report.stats.malformed_lines == 0
     assert report.sample_rate_seen_hz > 0

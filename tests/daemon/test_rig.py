@@ -1,4 +1,4 @@
-"""The whole capture pipeline on the virtual instrument over a real pty, into a real store."""
+"""The whole capture pipeline on the simulated test piece over a real pty, into a real store."""
 
 from __future__ import annotations
 
@@ -17,8 +17,8 @@ from taprig.daemon.errors import SessionError
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, RovingMode
 from taprig.daemon.rigstate import RigEvent
-from taprig.firmware_protocol.virtual import accelerance, demo_panel
-from taprig.firmware_protocol.virtual.instrument import VirtualInstrument
+from taprig.firmware_protocol.simpiece import accelerance, demo_panel
+from taprig.firmware_protocol.simpiece.instrument import SimulatedPiece
 
 # The demo panel with 4 % damping: it rings down in a fraction of a second, so the
 # simulated operator need not wait long between taps for the previous one to die away.
@@ -63,8 +63,8 @@ class Events:
                 return ev
 
 
-def grid_of(vi: VirtualInstrument, labels: list[str]) -> list[GridPoint]:
-    m = vi.model
+def grid_of(piece: SimulatedPiece, labels: list[str]) -> list[GridPoint]:
+    m = piece.model
     return [GridPoint(lab, *map(float, m.coords[m.index(lab)])) for lab in labels]
 
 
@@ -95,19 +95,19 @@ def tap_and_wait(r: RunningRig, ev: Events, point: str, **kw: object) -> RigEven
 
 def operator_pause(r: RunningRig) -> None:
     """Until the daemon has decoded PAUSE_S more of the device's samples than it has now."""
-    vi = r.instrument
-    assert vi is not None
-    wait_streamed(r, r.rig.view().samples + math.ceil(PAUSE_S * vi.rate_hz))
+    piece = r.instrument
+    assert piece is not None
+    wait_streamed(r, r.rig.view().samples + math.ceil(PAUSE_S * piece.rate_hz))
 
 
 def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
-    r, vi = running, running.instrument
-    assert vi is not None
+    r, piece = running, running.instrument
+    assert piece is not None
     ev = Events(r)
     wait_info(r)
     labels = ["A1", "B3", "C4"]
-    r.rig.create_test("panel-1", grid_of(vi, labels), RovingMode.HAMMER, reference="B3",
-                      sensor_points=vi.model.sensor_places())  # fmt: skip
+    r.rig.create_test("panel-1", grid_of(piece, labels), RovingMode.HAMMER, reference="B3",
+                      sensor_points=piece.model.sensor_places())  # fmt: skip
     with pytest.raises(SessionError, match="no test is selected"):
         r.rig.arm()
     r.rig.select_test("panel-1")
@@ -130,11 +130,11 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
     assert b3.response_labels == ("acc1", "acc2") and b3.response_points == ("B3", "0.467,0.328,0")
     assert [h.accepted for h in b3.hits].count(False) == 1
     assert b3.hits[0].data is not None and b3.hits[0].data.shape == (3, 8192)
-    assert b3.meta["device"]["id"] == "VIRTUAL-PANEL"
+    assert b3.meta["device"]["id"] == "SIMULATED-PANEL"
     assert np.isfinite(b3.meta["exp_tau_s"])
     assert b3.h1.shape == (2, 4097)
     # coherence: clean taps on a noiseless-ish panel are coherent at the first mode
-    f1 = int(np.argmin(np.abs(b3.freq_hz - vi.model.freqs_hz[0])))
+    f1 = int(np.argmin(np.abs(b3.freq_hz - piece.model.freqs_hz[0])))
     assert b3.coherence[0, f1] > 0.99
     # The last point in: the test is complete and the rig disarmed itself.
     assert ev.next("test_complete").data["points"] == 3 and not r.rig.view().armed
@@ -151,12 +151,12 @@ def test_roving_hammer_test_end_to_end(running: RunningRig) -> None:
 
 
 def test_disarmed_rig_stores_nothing(running: RunningRig) -> None:
-    r, vi = running, running.instrument
-    assert vi is not None
+    r, piece = running, running.instrument
+    assert piece is not None
     wait_info(r)
-    r.rig.create_test("idle", grid_of(vi, ["A1"]))
+    r.rig.create_test("idle", grid_of(piece, ["A1"]))
     r.rig.select_test("idle")
-    vi.tap("A1")
+    piece.tap("A1")
     deadline = time.monotonic() + 5
     while r.rig.view().hits_seen == 0:
         assert time.monotonic() < deadline
@@ -213,16 +213,16 @@ def test_roving_sensor_mode(tmp_path: Path) -> None:
                                  "capture.averages=2", "store.min_free_mb=1"])  # fmt: skip
     r = start_rig(cfg, model=DAMPED)
     try:
-        vi = r.instrument
-        assert vi is not None
+        piece = r.instrument
+        assert piece is not None
         ev = Events(r)
         wait_info(r)
-        r.rig.create_test("rove", grid_of(vi, ["A1", "B3", "C4"]), RovingMode.SENSOR, "B3")
+        r.rig.create_test("rove", grid_of(piece, ["A1", "B3", "C4"]), RovingMode.SENSOR, "B3")
         r.rig.select_test("rove")
         r.rig.arm()
         for label in ["A1", "B3", "C4"]:
             assert r.rig.snapshot()["point"] == label
-            vi.move_sensor("acc1", label)  # the operator moves the accelerometer
+            piece.move_sensor("acc1", label)  # the operator moves the accelerometer
             for _ in range(2):
                 assert tap_and_wait(r, ev, "B3").data["counted"]
             assert ev.next("completed").data["point"] == label
@@ -240,17 +240,17 @@ def test_roving_sensor_mode(tmp_path: Path) -> None:
 
 def test_text_device_captures(tmp_path: Path) -> None:
     """A board printing lines of volts: the same pipeline, rate from its "# rate=" comment."""
-    cfg = load_config(None, [f"store.data_dir={tmp_path}", "device.url=virtual:text",
+    cfg = load_config(None, [f"store.data_dir={tmp_path}", "device.url=simulated:text",
                              "device.format=text", "capture.block=2048", "capture.averages=2",
                              "store.min_free_mb=1", "capture.pretrigger=64"])  # fmt: skip
     r = start_rig(cfg, model=DAMPED)
     try:
-        vi = r.instrument
-        assert vi is not None
+        piece = r.instrument
+        assert piece is not None
         ev = Events(r)
         wait_info(r)
         assert r.rig.view().info is not None and r.rig.view().info.rate_hz == 5000.0
-        r.rig.create_test("txt", grid_of(vi, ["E6"]))
+        r.rig.create_test("txt", grid_of(piece, ["E6"]))
         r.rig.select_test("txt")
         r.rig.arm()
         for _ in range(2):

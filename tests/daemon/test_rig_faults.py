@@ -50,18 +50,18 @@ def wait_state(ev: Events, state: str, timeout: float = 5.0) -> None:
 
 def test_unplug_and_replug_mid_point(running: RunningRig) -> None:
     """The link comes back within a second of the device, the session keeps its averages."""
-    r, vi = running, running.instrument
-    assert vi is not None
+    r, piece = running, running.instrument
+    assert piece is not None
     ev = Events(r)
     assert tap_and_wait(r, ev, "A1").data["counted"]
-    vi.unplug()
+    piece.unplug()
     wait_state(ev, "disconnected")
     t0 = time.monotonic()
-    vi.replug()
+    piece.replug()
     wait_state(ev, "connected", timeout=2.0)
     assert time.monotonic() - t0 < 1.0
     deadline = time.monotonic() + 5
-    while not vi.streaming:  # the rig sends START again on reconnect
+    while not piece.streaming:  # the rig sends START again on reconnect
         assert time.monotonic() < deadline
         time.sleep(0.01)
     hit = tap_and_wait(r, ev, "A1")
@@ -71,16 +71,16 @@ def test_unplug_and_replug_mid_point(running: RunningRig) -> None:
 
 
 def test_garbage_and_lost_frames_then_clean_taps(running: RunningRig) -> None:
-    r, vi = running, running.instrument
-    assert vi is not None
+    r, piece = running, running.instrument
+    assert piece is not None
     ev = Events(r)
-    vi.faults.corrupt_probability = 0.3
-    vi.faults.drop_frame_probability = 0.1
+    piece.faults.corrupt_probability = 0.3
+    piece.faults.drop_frame_probability = 0.1
     deadline = time.monotonic() + 5
     while r.rig.snapshot()["link"]["crc_errors"] < 5:
         assert time.monotonic() < deadline
         time.sleep(0.02)
-    vi.faults.corrupt_probability = vi.faults.drop_frame_probability = 0.0
+    piece.faults.corrupt_probability = piece.faults.drop_frame_probability = 0.0
     for _ in range(2):
         assert tap_and_wait(r, ev, "A1").data["counted"]
     assert ev.next("completed").data["point"] == "A1"
@@ -92,19 +92,19 @@ def test_hit_across_lost_frames_is_rejected(running: RunningRig) -> None:
     """With half the frames lost, a tap whose pulse frame is lost never triggers at all (as
     with a real device); the operator taps again until one does, and that hit straddles lost
     samples."""
-    r, vi = running, running.instrument
-    assert vi is not None
+    r, piece = running, running.instrument
+    assert piece is not None
     ev = Events(r)
-    vi.faults.drop_frame_probability = 0.5
+    piece.faults.drop_frame_probability = 0.5
     hit = None
     for _ in range(20):  # P(20 pulses lost) is about 1e-6
         operator_pause(r)
         ev.clear()
-        assert vi.tap("A1") is not None
+        assert piece.tap("A1") is not None
         with contextlib.suppress(AssertionError):  # no hit: the pulse itself was lost
             hit = ev.next("hit", timeout=3.0)
             break
-    vi.faults.drop_frame_probability = 0.0
+    piece.faults.drop_frame_probability = 0.0
     assert hit is not None, "no tap got through"
     assert not hit.data["accepted"]
     assert "gap" in [code for code, _ in hit.data["rejections"]]

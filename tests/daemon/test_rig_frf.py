@@ -1,6 +1,6 @@
-"""End to end: H1 captured by the daemon from the virtual instrument is the model's accelerance.
+"""End to end: H1 captured by the daemon from the simulated test piece is the model's accelerance.
 
-The virtual instrument streams the closed-form response of its modal model through its
+The simulated test piece streams the closed-form response of its modal model through its
 converter's anti-alias filter over a real pseudo-terminal; the daemon's Rig triggers,
 checks, windows and averages the taps and commits the point set to the SQLite store. The
 stored H1 is then compared with the analytic accelerance of the same model.
@@ -19,8 +19,13 @@ import pytest
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import start_rig
 from taprig.daemon.records import PointSet, RovingMode
-from taprig.firmware_protocol.virtual import DEMO_DRIVING_POINT, ModalModel, accelerance, demo_panel
-from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
+from taprig.firmware_protocol.simpiece import (
+    DEMO_DRIVING_POINT,
+    ModalModel,
+    accelerance,
+    demo_panel,
+)
+from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings
 
 from .test_rig import Events, grid_of, wait_info, wait_streamed
 
@@ -48,24 +53,24 @@ def driving_point(tmp_path_factory: pytest.TempPathFactory) -> Iterator[PointSet
     )  # fmt: skip
     r = start_rig(cfg, InstrumentSettings(noise_v_rms=NOISE_V_RMS), model=MODEL)
     try:
-        vi = r.instrument
-        assert vi is not None and vi.settings.anti_alias
+        piece = r.instrument
+        assert piece is not None and piece.settings.anti_alias
         ev = Events(r)
         wait_info(r)
-        r.rig.create_test("frf", grid_of(vi, [DEMO_DRIVING_POINT]), RovingMode.HAMMER,
+        r.rig.create_test("frf", grid_of(piece, [DEMO_DRIVING_POINT]), RovingMode.HAMMER,
                           reference=DEMO_DRIVING_POINT,
-                          sensor_points=vi.model.sensor_places())  # fmt: skip
+                          sensor_points=piece.model.sensor_places())  # fmt: skip
         r.rig.select_test("frf")
         r.rig.arm()
         rung_down = 0  # device sample from which the structure is at rest again
         for force in FORCES_N:
             wait_streamed(r, rung_down)
             ev.clear()
-            tap = vi.tap(DEMO_DRIVING_POINT, force_n=force)
+            tap = piece.tap(DEMO_DRIVING_POINT, force_n=force)
             assert tap is not None
             hit = ev.next("hit")
             assert hit.data["counted"], hit.data["rejections"]
-            rung_down = tap.first_index + math.ceil(RING_DOWN_S * vi.rate_hz)
+            rung_down = tap.first_index + math.ceil(RING_DOWN_S * piece.rate_hz)
         assert ev.next("completed").data["averages"] == len(FORCES_N)
         (summary,) = r.store.list_point_sets(test="frf")
         yield r.store.get_point_set(summary.id)

@@ -1,4 +1,4 @@
-"""The operator's session on a running rig (virtual instrument on a real pty, real store):
+"""The operator's session on a running rig (simulated test piece on a real pty, real store):
 the test's end, a stray tap after it, measuring a point again, and undoing a wrong accept."""
 
 from __future__ import annotations
@@ -18,11 +18,11 @@ def test_the_last_point_completes_the_test_disarms_and_stray_taps_are_not_stored
 ) -> None:
     r = small_rig(tmp_path)
     try:
-        vi = r.instrument
-        assert vi is not None
+        piece = r.instrument
+        assert piece is not None
         ev = Events(r)
         wait_info(r)
-        r.rig.create_test("short", grid_of(vi, ["A1", "B2"]))
+        r.rig.create_test("short", grid_of(piece, ["A1", "B2"]))
         r.rig.select_test("short")
         r.rig.arm()
         tap_and_wait(r, ev, "A1", double_hit=True)  # rejected: counted in the tally
@@ -38,7 +38,7 @@ def test_the_last_point_completes_the_test_disarms_and_stray_taps_are_not_stored
         # A stray tap: the rig is disarmed, nothing is stored.
         operator_pause(r)
         seen = r.rig.view().hits_seen
-        vi.tap("B2")
+        piece.tap("B2")
         deadline = time.monotonic() + 10
         while r.rig.view().hits_seen == seen:
             assert time.monotonic() < deadline, "the stray tap never triggered"

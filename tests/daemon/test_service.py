@@ -1,5 +1,5 @@
 """The HTTP service end to end: a real server on 127.0.0.1 (ephemeral port), a real rig on the
-virtual instrument, real HTTP requests with aiohttp.ClientSession; one asyncio.run per test.
+simulated test piece, real HTTP requests with aiohttp.ClientSession; one asyncio.run per test.
 
 Arrays fetched over HTTP are compared bit for bit with the store's (numpy `tobytes`), and each
 body with its `Content-Digest` header, recomputed here with hashlib's SHA-256 (FIPS 180-4;
@@ -365,7 +365,7 @@ def test_capture_over_http(running: RunningRig, auth: Auth) -> None:
             assert [(p["id"], p["point"]) for p in listing["points"]] == [(pid, "A1")]
             status, state = await api.get("/v1/state")
             assert state["session"]["point"] == "B3" and state["session"]["done"] == ["A1"]
-            assert state["device"]["id"] == "VIRTUAL-PANEL" and state["last_seq"] == done["seq"]
+            assert state["device"]["id"] == "SIMULATED-PANEL" and state["last_seq"] == done["seq"]
             assert state["session"]["link"]["crc_errors"] == 0
 
     run(main())

@@ -2,7 +2,7 @@
 
 Every figure is checked against something outside the project: scipy.signal's spectral
 estimators and window functions, closed-form results, or the analytic accelerance of the
-virtual structure's modal model (closed form, derived in firmware_protocol/virtual/
+simulated structure's modal model (closed form, derived in firmware_protocol/simpiece/
 response.py). The source of each check is named in the test's docstring.
 """
 
@@ -29,7 +29,7 @@ from taprig.daemon.capture.spectra import (
     hit_spectra,
     single_average_warning,
 )
-from taprig.firmware_protocol.virtual import (
+from taprig.firmware_protocol.simpiece import (
     DEMO_DRIVING_POINT,
     ModalModel,
     accelerance,
@@ -299,7 +299,7 @@ def test_exponential_window_raises_the_modal_decay_rate() -> None:
 
 
 # --------------------------------------------------------------------------------------
-# H1 of the virtual structure against its analytic accelerance
+# H1 of the simulated structure against its analytic accelerance
 # --------------------------------------------------------------------------------------
 
 RATE_HZ = 51_200.0
@@ -336,7 +336,7 @@ def sampled_through_anti_alias(
 ) -> FloatArray:
     """Record (1 + n_sensors, BLOCK): force and accelerations sampled as a front end does.
 
-    The virtual structure gives the continuous signals; a front end passes force and
+    The simulated structure gives the continuous signals; a front end passes force and
     responses through the same anti-alias filter before sampling (common practice). Without
     it the half-sine's spectrum above Nyquist folds back into force and response alike,
     and H1 of this panel then misses the accelerance by 15-45 % near antiresonances and
@@ -401,7 +401,7 @@ def test_h1_matches_analytic_accelerance_of_the_panel(
     """|H1| within 2 % of the analytic accelerance wherever γ² > 0.95 in [f1/2, 0.8 fN].
 
     Source: the closed-form accelerance of the viscously damped modal model seen through
-    the exponential window, H(ω - i/tau) (firmware_protocol/virtual/response.py, derived
+    the exponential window, H(ω - i/tau) (firmware_protocol/simpiece/response.py, derived
     there; modal superposition as in Ewins, Modal Testing, 2nd ed., 2000, ch. 2, from
     memory). The window starts at the trigger, not at the pulse start t0: its factor
     exp(-(t0 - t_trig)/tau) is common to force and response and cancels in H1, as does

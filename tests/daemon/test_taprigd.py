@@ -25,7 +25,7 @@ def get(url: str, token: str | None = None) -> tuple[int, dict[str, object]]:
 
 
 def start(tmp_path: Path, *args: str) -> tuple[subprocess.Popen[bytes], Path]:
-    """`taprigd run` on the virtual device, serving on a free loopback port, data and log in
+    """`taprigd run` on the simulated device, serving on a free loopback port, data and log in
     `tmp_path`, with `args` added; the process and its log file."""
     log = tmp_path / "taprigd.log"
     with log.open("w") as err:
@@ -68,11 +68,11 @@ def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
     assert "Traceback" not in log.read_text()
 
 
-def test_run_file_names_the_port_and_the_virtual_control(tmp_path: Path) -> None:
+def test_run_file_names_the_port_and_the_sim_control(tmp_path: Path) -> None:
     """run.json appears while serving (port and control port), and goes when taprigd stops."""
-    from taprig.firmware_protocol.virtual.control import ControlClient
+    from taprig.firmware_protocol.simpiece.control import ControlClient
 
-    proc, log = start(tmp_path, "--test", "shop-2", "--virtual-control", "0")
+    proc, log = start(tmp_path, "--test", "shop-2", "--sim-control", "0")
     run_file = tmp_path / "run.json"
     try:
         deadline = time.monotonic() + 30

@@ -20,7 +20,7 @@ from taprig.daemon.config import load_config
 from taprig.daemon.rig import Rig
 from taprig.daemon.rigstate import RigEvent
 from taprig.daemon.store import Store
-from taprig.firmware_protocol.virtual.instrument import InstrumentSettings, open_virtual
+from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings, open_simulated
 
 CHANNELS = "".join(
     f'[[channels]]\nindex = {i}\nrole = "{role}"\nlabel = "{label}"\nsensitivity = {s}\n'
@@ -34,13 +34,13 @@ CHANNELS = "".join(
 def _rig(tmp_path: Path, answers: bool) -> Iterator[tuple[Rig, queue.Queue[RigEvent]]]:
     settings = InstrumentSettings(output="text", rate_hz=5000.0, info_interval_s=math.inf,
                                   answers_rate_query=answers)  # fmt: skip
-    vi = open_virtual("pty", settings=settings)
+    piece = open_simulated("pty", settings=settings)
     deadline = time.monotonic() + 10.0
-    while vi.counters.bytes_sent == 0:  # the rate line is out before anyone opens the port
+    while piece.counters.bytes_sent == 0:  # the rate line is out before anyone opens the port
         assert time.monotonic() < deadline, "the board never printed"
         time.sleep(0.01)
     cfg_file = tmp_path / "rig.toml"
-    cfg_file.write_text(f'[device]\nurl = "{vi.url}"\nformat = "text"\n{CHANNELS}',
+    cfg_file.write_text(f'[device]\nurl = "{piece.url}"\nformat = "text"\n{CHANNELS}',
                         encoding="utf-8")  # fmt: skip
     cfg = load_config(cfg_file, [f"store.data_dir={tmp_path / 'data'}"], environ={})
     store = Store(cfg.store.data_dir)
@@ -53,7 +53,7 @@ def _rig(tmp_path: Path, answers: bool) -> Iterator[tuple[Rig, queue.Queue[RigEv
     finally:
         rig.close()
         store.close()
-        vi.close()
+        piece.close()
 
 
 @pytest.fixture

@@ -1,7 +1,7 @@
 """`taprigd run` as a real process for the fault suite: start, wait, ask, tap, kill.
 
-The daemon captures from its virtual instrument (a real pseudo-terminal behind the stable
-name `<data_dir>/virtual-tty`), serves /v1 on an ephemeral loopback port and serves the
+The daemon captures from its simulated test piece (a real pseudo-terminal behind the stable
+name `<data_dir>/sim-tty`), serves /v1 on an ephemeral loopback port and serves the
 instrument's control port; both ports come from `<data_dir>/run.json`.
 """
 
@@ -19,7 +19,7 @@ from pathlib import Path
 from typing import Any
 
 from taprig.daemon.store import Store
-from taprig.firmware_protocol.virtual.control import ControlClient
+from taprig.firmware_protocol.simpiece.control import ControlClient
 
 START_TIMEOUT_S = 60.0
 
@@ -46,7 +46,7 @@ class Taprigd:
         base = [f"store.data_dir={data_dir}", "store.min_free_mb=1", "service.bind=127.0.0.1",
                 "service.port=0", "service.advertise=false", "capture.block=4096",
                 "capture.averages=1"]  # fmt: skip
-        argv = [sys.executable, "-m", "taprig.daemon", "run", "--virtual-control", "0"]
+        argv = [sys.executable, "-m", "taprig.daemon", "run", "--sim-control", "0"]
         if test is not None:
             argv += ["--test", test]
         argv += args
@@ -116,7 +116,7 @@ class Taprigd:
         state: dict[str, Any] = self.get("/v1/state")["session"]
         return state
 
-    # --- the virtual instrument's control port -----------------------------------
+    # --- the simulated test piece's control port -----------------------------------
 
     def control(self, op: str, **fields: Any) -> dict[str, Any]:
         with ControlClient(self.control_port, timeout_s=5) as control:

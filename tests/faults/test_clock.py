@@ -2,7 +2,7 @@
 operator fixing the date): a client that follows the change sequence still gets every point
 set exactly once, although completed_utc now runs backwards.
 
-The rig captures on the virtual instrument and serves /v1 on loopback for real. The wall
+The rig captures on the simulated test piece and serves /v1 on loopback for real. The wall
 clock is injected where the daemon reads it for point sets and hits (`session.utc_now`),
 stepped back one hour and then one more: the machine's own clock cannot be changed in a
 test, and libfaketime (Debian 0.9.10) breaks Python's sleeps (clock_nanosleep fails with
@@ -27,7 +27,7 @@ from taprig.daemon.capture import session as session_module
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint
-from taprig.firmware_protocol.virtual.modal import demo_panel
+from taprig.firmware_protocol.simpiece.modal import demo_panel
 from tests.daemon.test_rig import wait_streamed
 
 PAUSE_S = 0.15  # between taps: longer than one 4096-sample record at 51.2 kHz (80 ms)
@@ -47,16 +47,16 @@ class SteppedClock:
 def capture_one(r: RunningRig) -> None:
     """One tap that completes a point (averages = 1); waits until it is stored."""
     before = len(r.store.list_point_sets())
-    vi = r.instrument
-    assert vi is not None
-    tap = vi.tap("A1")
+    piece = r.instrument
+    assert piece is not None
+    tap = piece.tap("A1")
     assert tap is not None
     deadline = time.monotonic() + 10
     while len(r.store.list_point_sets()) == before:
         assert time.monotonic() < deadline, "the point set was never stored"
         time.sleep(0.02)
     # The operator's pause before the next tap, on the device's sample clock.
-    wait_streamed(r, tap.first_index + math.ceil(PAUSE_S * vi.rate_hz))
+    wait_streamed(r, tap.first_index + math.ceil(PAUSE_S * piece.rate_hz))
 
 
 class Follower:

@@ -1,6 +1,6 @@
 """Garbage and corrupted frames at the full 51.2 kHz rate for 60 s: no crash, memory flat.
 
-The virtual instrument flips a byte in half its frames, replaces a third by random bytes
+The simulated test piece flips a byte in half its frames, replaces a third by random bytes
 and drops a few, while an operator taps every half second, for 60 s. taprigd (a real
 process) must keep decoding, counting the errors, answering its service, and its resident
 memory must not grow once warm: see `GROWTH_LIMIT_KB` for the bound.

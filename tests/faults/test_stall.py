@@ -14,7 +14,7 @@ import signal
 import threading
 from pathlib import Path
 
-from taprig.firmware_protocol.virtual.control import ControlClient
+from taprig.firmware_protocol.simpiece.control import ControlClient
 
 from .process import Taprigd, wait_until
 

@@ -170,7 +170,7 @@ def test_status_running_then_killed(tmp_path: Path) -> None:
         assert out.returncode == 0, out.stderr
         text = out.stdout
         assert f"running, pid {daemon.pid}" in text
-        assert f"{data}/virtual-tty: connected, 51200 Hz" in text
+        assert f"{data}/sim-tty: connected, 51200 Hz" in text
         assert "link errors CRC 0, resyncs 0" in text
         assert "test        shop, point A2 (0/1 averages), 1 point done, armed" in text
         assert "1 test, 1 point set, last change 2" in text  # plurals right

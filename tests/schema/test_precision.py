@@ -1,6 +1,6 @@
 """What float32 spectra (schema 2) keep of an analytic device's FRF.
 
-The reference is the virtual instrument's closed-form accelerance of the demo panel (modal
+The reference is the simulated test piece's closed-form accelerance of the demo panel (modal
 superposition, H(ω) = Σ φ_r(k) φ_r(j) (-ω²) / (ω_r² - ω² + 2iζ_r ω_r ω); Ewins, Modal
 Testing: Theory, Practice and Application, 2nd ed., 2000, §2.6, from memory), evaluated in
 float64. A point set whose spectra are those of a noise-free measurement of it (Gff, Gfx =
@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from taprig.firmware_protocol.virtual import DEMO_DRIVING_POINT, accelerance, demo_panel
+from taprig.firmware_protocol.simpiece import DEMO_DRIVING_POINT, accelerance, demo_panel
 from taprig.schema import pointset
 from taprig.schema.records import WirePointSet
 

@@ -1,7 +1,7 @@
-"""Fixtures for the view: the virtual panel's analytic test and its known modes.
+"""Fixtures for the view: the simulated panel's analytic test and its known modes.
 
 `known_modes` is the panel's own modal model (Leissa's simply supported plate, as the
-virtual instrument simulates it) passed through `from_model`, the adapter the modal fit
+simulated test piece simulates it) passed through `from_model`, the adapter the modal fit
 will use, with a stabilization diagram made of the true poles (stable at every order) and
 one drifting spurious pole per order (not stable): a diagram whose columns are known.
 """
@@ -18,7 +18,7 @@ from taprig.client.dataset import TestData
 from taprig.client.view.modes import ModeSet, auto_mac, from_model
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
 from taprig.daemon.running import RunningRig
-from taprig.firmware_protocol.virtual import ModalModel, demo_panel
+from taprig.firmware_protocol.simpiece import ModalModel, demo_panel
 from tests.client.analytic import analytic_test_data
 from tests.client.conftest import places, served  # noqa: F401  (fixtures for the command tests)
 

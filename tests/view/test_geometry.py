@@ -12,7 +12,7 @@ from scipy.spatial import Delaunay
 from taprig.client.view.geometry import Geometry, GeometryError, from_grid, triangulate
 from taprig.client.view.outline import parse_outline
 from taprig.client.view.unfold import unfold
-from taprig.firmware_protocol.virtual import demo_panel
+from taprig.firmware_protocol.simpiece import demo_panel
 
 ROWS, COLS = "ABCDE", 6
 # the demo's tap grid: 5 rows × 6 columns, 0.1 m apart (x along the columns, y the rows)

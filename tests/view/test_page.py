@@ -1,6 +1,6 @@
-"""The view page in a real headless Chromium, against the virtual panel's known modes.
+"""The view page in a real headless Chromium, against the simulated panel's known modes.
 
-The modes are the panel's own (Leissa's simply supported plate, as the virtual instrument
+The modes are the panel's own (Leissa's simply supported plate, as the simulated test piece
 simulates it), handed over through the modal-fit adapter, so every shape drawn is known.
 """
 

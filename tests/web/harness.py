@@ -1,4 +1,4 @@
-"""What the browser tests start: taprigd on the virtual instrument, and headless Chromium.
+"""What the browser tests start: taprigd on the simulated test piece, and headless Chromium.
 
 Chromium and chromedriver are Debian's (/usr/bin/chromium, /usr/bin/chromedriver; `.ci/run`
 installs them). Selenium is pointed at both, so it never tries to fetch a browser of its own.
@@ -24,7 +24,7 @@ from selenium.webdriver.chrome.service import Service as DriverService
 from selenium.webdriver.remote.webdriver import WebDriver
 from selenium.webdriver.support.wait import WebDriverWait
 
-from taprig.firmware_protocol.virtual.control import ControlClient
+from taprig.firmware_protocol.simpiece.control import ControlClient
 
 CHROMIUM = "/usr/bin/chromium"
 CHROMEDRIVER = "/usr/bin/chromedriver"
@@ -36,7 +36,7 @@ T = TypeVar("T")
 
 @dataclass
 class Taprigd:
-    """A running `taprigd run` on the virtual instrument (see `taprigd`)."""
+    """A running `taprigd run` on the simulated test piece (see `taprigd`)."""
 
     proc: subprocess.Popen[bytes]
     data_dir: Path
@@ -53,8 +53,8 @@ class Taprigd:
         return f"http://127.0.0.1:{self.port}"
 
     def control(self, **request: Any) -> dict[str, Any]:
-        """One request to the virtual instrument's control port; its reply must be ok."""
-        assert self.control_port is not None, "a virtual device has a control port; this has none"
+        """One request to the simulated test piece's control port; its reply must be ok."""
+        assert self.control_port is not None, "a simulated device has a control port; this has none"
         with ControlClient(self.control_port, timeout_s=5) as control:
             reply = control.request(**request)
         assert reply.get("ok") is True, reply
@@ -72,16 +72,16 @@ def taprigd(
     args: tuple[str, ...] = (),
     prefix: tuple[str, ...] = (),
     bind: str = "127.0.0.1",
-    device: str = "virtual",
+    device: str = "simulated",
 ) -> Iterator[Taprigd]:
-    """`taprigd run` on `device` (default the virtual panel, with its control port) with
+    """`taprigd run` on `device` (default the simulated panel, with its control port) with
     `settings` (section.key=value) and `args` added, run under `prefix` (e.g. ``ip netns exec
     NS``), serving on `bind`."""
     data = tmp / "rig"
     data.mkdir()
     log = tmp / "taprigd.log"
-    virtual = ("--virtual-control", "0") if device.startswith("virtual") else ()
-    cmd = [*prefix, sys.executable, "-m", "taprig.daemon", "run", "--test", test, *virtual,
+    simulated = ("--sim-control", "0") if device.startswith("simulated") else ()
+    cmd = [*prefix, sys.executable, "-m", "taprig.daemon", "run", "--test", test, *simulated,
            "--set", f"device.url={device}",
            "--set", f"store.data_dir={data}", "--set", f"service.bind={bind}",
            "--set", "service.port=0", "--set", "service.advertise=false",

@@ -1,5 +1,5 @@
 """The operator's session on the phone page, in headless Chromium against `taprigd run` on the
-virtual instrument: the test's end, measuring again, undo, a reload with a tap waiting, the
+simulated test piece: the test's end, measuring again, undo, a reload with a tap waiting, the
 device unplugged, and lost Wi-Fi (a network namespace whose link goes down).
 """
 
@@ -59,7 +59,7 @@ def press(d: WebDriver, element_id: str) -> None:
 
 
 def small_grid(tmp: Path) -> tuple[str, ...]:
-    """Two points of the virtual panel as a grid file: a test that ends after a few taps."""
+    """Two points of the simulated panel as a grid file: a test that ends after a few taps."""
     csv = tmp / "grid.csv"
     csv.write_text("label,x,y,z\nA1,0.05,0.05,0\nB2,0.15,0.15,0\n", encoding="utf-8")
     return ("--grid", str(csv))

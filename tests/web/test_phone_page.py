@@ -1,5 +1,5 @@
 """The phone page in a real browser: headless Chromium (Debian's) driven by Selenium, against
-`taprigd run` on the virtual instrument, as an operator walking round the panel would use it.
+`taprigd run` on the simulated test piece, as an operator walking round the panel would use it.
 
 Pairing, arming, taps (clean, double, completing a point), the plots, the grid, moving on;
 automatic accept; a Wi-Fi drop (a relay that cuts every connection) and an answer lost on

@@ -1,6 +1,6 @@
 """The phone page asks where the sensors sit when the selected roving-hammer test lacks it.
 
-Headless Chromium against `taprigd run` on the virtual panel: the test the rig opens knows
+Headless Chromium against `taprigd run` on the simulated panel: the test the rig opens knows
 its sensors' places (the simulated panel carries them), so no prompt; a test made over the
 API without them, once selected, brings the prompt, naming the sensors and how to give them.
 """

@@ -1,7 +1,7 @@
 """Archive fixtures: one real PostgreSQL server per session, a fresh database per test, and
 real rigs (the real store and service on loopback, as tests/client/conftest.py serves one).
 
-The rigs' virtual instruments stream at 1 kHz, not 51.2 kHz: the archive only reads stored
+The rigs' simulated test pieces stream at 1 kHz, not 51.2 kHz: the archive only reads stored
 point sets, and three or more rigs in one process would otherwise load a 2-core machine.
 """
 
@@ -25,8 +25,8 @@ from taprig.daemon.auth import Auth
 from taprig.daemon.config import load_config
 from taprig.daemon.lifespan import RunningRig, start_rig
 from taprig.daemon.records import GridPoint, PointSet, RovingMode, StoredHit
-from taprig.firmware_protocol.virtual import ModalModel, accelerance, demo_panel
-from taprig.firmware_protocol.virtual.instrument import InstrumentSettings
+from taprig.firmware_protocol.simpiece import ModalModel, accelerance, demo_panel
+from taprig.firmware_protocol.simpiece.instrument import InstrumentSettings
 from taprig.schema import records
 
 from ..conftest import LoopThread, ServedRig

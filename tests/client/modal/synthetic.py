@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 
 from taprig.client.dataset import TestData
-from taprig.firmware_protocol.virtual import ModalModel
+from taprig.firmware_protocol.simpiece import ModalModel
 
 from ..analytic import analytic_test_data
 

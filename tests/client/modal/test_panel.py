@@ -1,10 +1,10 @@
-"""The fit of a test the real daemon captured from the virtual panel, held to its truth.
+"""The fit of a test the real daemon captured from the simulated panel, held to its truth.
 
 The panel is a simply supported Kirchhoff plate: natural frequencies
 ω_mn = π² (m²/a² + n²/b²) sqrt(D/(ρh)), D = Eh³/(12(1 − ν²)) (Leissa, Vibration of Plates,
 NASA SP-160, 1969, the simply supported rectangle), mass-normalised shapes
 2/sqrt(ρhab) sin(mπx/a) sin(nπy/b); the truth file is written by the instrument
-(firmware_protocol/virtual/modal.py, `write_truth`). The capture: two taps per point,
+(firmware_protocol/simpiece/modal.py, `write_truth`). The capture: two taps per point,
 roving hammer, acc1 on B3 (the driving point) and acc2 off the grid.
 """
 

@@ -1,4 +1,4 @@
-"""Virtual instrument: a simulated tap-test rig used by the tests and the demo."""
+"""The simulated test piece: a tap-test rig in software, used by the tests and the demo."""
 
 from .modal import (
     DEMO_DRIVING_POINT,

@@ -1,4 +1,4 @@
-"""A small control interface for a virtual instrument in another process.
+"""A small control interface for a simulated test piece in another process.
 
 JSON lines over a loopback TCP socket: one request object per line, one
 reply object per line. Requests:
@@ -12,7 +12,7 @@ reply object per line. Requests:
 
 A tap answers once its samples are on the wire; when an overrun of the simulated converter
 (a host too busy to keep the simulation in real time) swallowed them, the instrument taps again,
-as an operator would who saw no response (`VirtualInstrument.strike`).
+as an operator would who saw no response (`SimulatedPiece.strike`).
 A bad request gets {"ok": false, "error": "..."} and changes nothing.
 `ControlServer` serves it; `ControlClient` is the other end, for the demo and tests.
 """
@@ -28,7 +28,7 @@ import socketserver
 import threading
 from typing import Any
 
-from .instrument import Faults, VirtualInstrument
+from .instrument import Faults, SimulatedPiece
 
 log = logging.getLogger(__name__)
 
@@ -36,7 +36,7 @@ MAX_LINE = 4096
 _FAULTS = {f.name: f.type for f in dataclasses.fields(Faults)}
 
 
-def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
+def handle_request(piece: SimulatedPiece, request: Any) -> dict[str, Any]:
     """Carry out one request; never raises for bad input."""
     if not isinstance(request, dict) or not isinstance(request.get("op"), str):
         return {"ok": False, "error": 'a request is a JSON object with a string "op"'}
@@ -44,10 +44,10 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
     try:
         if op == "tap":
             point = str(request["point"])
-            if point not in set(vi.model.grid):
+            if point not in set(piece.model.grid):
                 return {"ok": False, "error": f"tap: point {point[:64]!r} is not on the simulated "
-                        f"piece (its points: {', '.join(vi.model.grid)})"}  # fmt: skip
-            rec = vi.strike(
+                        f"piece (its points: {', '.join(piece.model.grid)})"}  # fmt: skip
+            rec = piece.strike(
                 point,
                 _opt_float(request, "force_n"),
                 _opt_float(request, "width_s"),
@@ -58,28 +58,28 @@ def handle_request(vi: VirtualInstrument, request: Any) -> dict[str, Any]:
                 return {"ok": False, "error": "the instrument is not streaming (send START)"}
             return {"ok": True, "tap": dataclasses.asdict(rec)}
         if op == "fault":
-            return _set_fault(vi, request)
+            return _set_fault(piece, request)
         if op == "unplug":
-            vi.unplug()
+            piece.unplug()
             return {"ok": True}
         if op == "replug":
-            vi.replug()
+            piece.replug()
             return {"ok": True}
         if op == "move_sensor":
-            vi.move_sensor(str(request["sensor"]), str(request["point"]))
+            piece.move_sensor(str(request["sensor"]), str(request["point"]))
             return {"ok": True}
         if op == "state":
-            c = vi.counters
+            c = piece.counters
             return {
                 "ok": True,
-                "streaming": vi.streaming,
-                "url": vi.url,
-                "rate_hz": vi.rate_hz,
+                "streaming": piece.streaming,
+                "url": piece.url,
+                "rate_hz": piece.rate_hz,
                 "frames_sent": c.frames_sent,
                 "overruns": c.overruns,
                 "taps_lost": c.taps_lost,
                 "taps": len(c.taps),
-                "faults": dataclasses.asdict(vi.faults),
+                "faults": dataclasses.asdict(piece.faults),
             }
     except KeyError as exc:
         return {"ok": False, "error": f"{op}: missing field {exc}"}
@@ -113,7 +113,7 @@ def _opt_bool(request: dict[str, Any], key: str) -> bool | None:
     raise ValueError(f"{key} must be true or false, got {value!r}")
 
 
-def _set_fault(vi: VirtualInstrument, request: dict[str, Any]) -> dict[str, Any]:
+def _set_fault(piece: SimulatedPiece, request: dict[str, Any]) -> dict[str, Any]:
     name, value = request.get("name"), request.get("value")
     if name not in _FAULTS:
         return {"ok": False, "error": f"fault {name!r} is unknown; allowed {', '.join(_FAULTS)}"}
@@ -122,7 +122,7 @@ def _set_fault(vi: VirtualInstrument, request: dict[str, Any]) -> dict[str, Any]
             return {"ok": False, "error": "stalled must be true or false"}
     elif isinstance(value, bool) or not isinstance(value, int | float) or not 0 <= value <= 1:
         return {"ok": False, "error": f"{name} is a probability 0..1, got {value!r}"}
-    setattr(vi.faults, str(name), value)
+    setattr(piece.faults, str(name), value)
     return {"ok": True}
 
 
@@ -150,18 +150,18 @@ class _Handler(socketserver.StreamRequestHandler):
 class _Server(socketserver.ThreadingTCPServer):
     daemon_threads = True
     allow_reuse_address = True
-    instrument: VirtualInstrument
+    instrument: SimulatedPiece
 
 
 class ControlServer:
-    """Serves the control interface of `vi` on 127.0.0.1:`port` (0: a free port)."""
+    """Serves the control interface of `piece` on 127.0.0.1:`port` (0: a free port)."""
 
-    def __init__(self, vi: VirtualInstrument, port: int = 0) -> None:
+    def __init__(self, piece: SimulatedPiece, port: int = 0) -> None:
         self._server = _Server(("127.0.0.1", port), _Handler)
-        self._server.instrument = vi
+        self._server.instrument = piece
         self.port: int = self._server.server_address[1]
         self._thread = threading.Thread(
-            target=self._server.serve_forever, kwargs={"poll_interval": 0.1}, name="vi-control"
+            target=self._server.serve_forever, kwargs={"poll_interval": 0.1}, name="piece-control"
         )
         self._closed = False
 

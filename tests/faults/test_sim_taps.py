@@ -1,6 +1,6 @@
 """The simulated operator and tests whose points are not on the simulated piece.
 
-`--virtual-taps` with a `--grid` whose points the simulated piece does not have is refused
+`--sim-taps` with a `--grid` whose points the simulated piece does not have is refused
 at start with a clear message (exit code 4, no traceback); a test selected later through the
 service is not tapped, with a warning, and the daemon keeps serving.
 """
@@ -17,11 +17,11 @@ BASE = ["store.min_free_mb=1", "service.bind=127.0.0.1", "service.port=0",
         "service.advertise=false", "capture.block=4096"]  # fmt: skip
 
 
-def test_virtual_taps_on_points_off_the_piece_are_refused_at_start(tmp_path: Path) -> None:
+def test_sim_taps_on_points_off_the_piece_are_refused_at_start(tmp_path: Path) -> None:
     grid = tmp_path / "beam.csv"
     grid.write_text("label,x,y,z\nZ1,0,0,0\nZ2,0.1,0,0\n")
     argv = [sys.executable, "-m", "taprig.daemon", "run", "--test", "beam", "--grid", str(grid),
-            "--virtual-taps", "0.5", "--duration", "30"]  # fmt: skip
+            "--sim-taps", "0.5", "--duration", "30"]  # fmt: skip
     for item in (f"store.data_dir={tmp_path / 'rig'}", *BASE):
         argv += ["--set", item]
     done = subprocess.run(argv, capture_output=True, text=True, timeout=60)
@@ -33,7 +33,7 @@ def test_virtual_taps_on_points_off_the_piece_are_refused_at_start(tmp_path: Pat
 def test_a_test_off_the_piece_selected_later_is_not_tapped(tmp_path: Path) -> None:
     data = tmp_path / "rig"
     daemon = Taprigd(data)
-    daemon.argv += ["--virtual-taps", "0.3"]
+    daemon.argv += ["--sim-taps", "0.3"]
     daemon.start().wait_ready()
     try:
         grid = [{"label": "Z1", "x": 0.0, "y": 0.0, "z": 0.0}]

@@ -1,4 +1,4 @@
-"""The virtual instrument: a simulated hammer-and-accelerometer device on a real link.
+"""The simulated test piece: a simulated hammer-and-accelerometer device on a real link.
 
 It speaks the binary protocol (or prints text lines) over a pseudo-terminal or
 TCP, answers the host's commands, and streams the exact response of a modal
@@ -42,7 +42,7 @@ MAX_RATE_HZ = 204_800.0
 
 @dataclass(frozen=True)
 class InstrumentSettings:
-    """How the virtual device is built. Sensitivities as on a calibration sheet."""
+    """How the simulated device is built. Sensitivities as on a calibration sheet."""
 
     rate_hz: float = 51_200.0
     sample_format: fr.SampleFormat = fr.SampleFormat.INT24
@@ -53,7 +53,7 @@ class InstrumentSettings:
     noise_v_rms: float = 20e-6  # per channel, at the ADC input
     frame_samples: int = 256  # 5 ms per DATA frame at 51.2 kHz
     output: str = "binary"  # or "text"
-    device_id: str = "VIRTUAL-PANEL"
+    device_id: str = "SIMULATED-PANEL"
     firmware: str = "sim-1"
     default_force_n: float = 30.0
     default_width_s: float = 0.0008  # a medium (plastic) tip
@@ -107,7 +107,7 @@ class InstrumentCounters:
     taps: list[TapRecord] = field(default_factory=list)
 
 
-class VirtualInstrument:
+class SimulatedPiece:
     """A simulated device. Create, `start()`, point a host at `url`, `tap()`, `close()`."""
 
     def __init__(
@@ -181,13 +181,13 @@ class VirtualInstrument:
             channels=tuple(fr.ChannelInfo(s.full_scale_v, s.adc_bits) for _ in self.channel_labels),
         )
 
-    def start(self) -> VirtualInstrument:
+    def start(self) -> SimulatedPiece:
         if self._thread is None:
             if self.settings.output == "text":  # a printing board streams from power-up
                 with self._lock:
                     self._begin_stream()
             self._thread = threading.Thread(
-                target=self._run, name="virtual-instrument", daemon=True
+                target=self._run, name="simulated-piece", daemon=True
             )
             self._thread.start()
         return self
@@ -202,7 +202,7 @@ class VirtualInstrument:
             self._thread.join(timeout=5.0)
         self.port.close()
 
-    def __enter__(self) -> VirtualInstrument:
+    def __enter__(self) -> SimulatedPiece:
         return self.start()
 
     def __exit__(self, *exc: object) -> None:
@@ -323,7 +323,7 @@ class VirtualInstrument:
                     self._housekeeping(now)
                     self._flush()
         except Exception:  # the simulated device must never die silently
-            log.exception("virtual instrument thread failed")
+            log.exception("simulated test piece thread failed")
             raise
 
     def _serve_requests(self) -> None:
@@ -540,15 +540,16 @@ class VirtualInstrument:
             del self._pending[:n]
 
 
-def open_virtual(
+def open_simulated(
     transport: str = "pty",
     *,
     link: str | None = None,
     model: ModalModel | None = None,
     settings: InstrumentSettings | None = None,
-) -> VirtualInstrument:
-    """A started virtual instrument on a new pty (optionally behind symlink `link`) or TCP port."""
+) -> SimulatedPiece:
+    """A started simulated test piece on a new pty (optionally behind symlink `link`) or a TCP
+    port."""
     if transport not in ("pty", "tcp"):
         raise ValueError(f"transport {transport!r}; allowed pty, tcp")
     port: Port = PtyPort(link) if transport == "pty" else TcpPort()
-    return VirtualInstrument(model, settings, port).start()
+    return SimulatedPiece(model, settings, port).start()

@@ -1,4 +1,4 @@
-"""Where the virtual instrument's bytes go: a pseudo-terminal or a TCP socket.
+"""Where the simulated test piece's bytes go: a pseudo-terminal or a TCP socket.
 
 Both are non-blocking and owned by the instrument's thread. A pty stands in
 for a USB serial device (pyserial opens its tty path, or a stable symlink to

@@ -1,4 +1,4 @@
-"""Physics checks of the virtual instrument: plate model, tap pulse, responses, FRFs.
+"""Physics checks of the simulated test piece: plate model, tap pulse, responses, FRFs.
 
 Every number is compared against something outside the project: closed-form
 textbook results re-derived in the test, SciPy integrators and quadrature,
@@ -18,7 +18,7 @@ from scipy import signal
 from scipy.integrate import cubature, solve_ivp
 from scipy.optimize import brentq
 
-from taprig.firmware_protocol.virtual import (
+from taprig.firmware_protocol.simpiece import (
     DEMO_DRIVING_POINT,
     ModalModel,
     accelerance,
@@ -31,8 +31,8 @@ from taprig.firmware_protocol.virtual import (
     truth_dict,
     write_truth,
 )
-from taprig.firmware_protocol.virtual.modal import plate_modes, plate_shapes
-from taprig.firmware_protocol.virtual.synth import (
+from taprig.firmware_protocol.simpiece.modal import plate_modes, plate_shapes
+from taprig.firmware_protocol.simpiece.synth import (
     AntiAliasFilter,
     Pulse,
     ResponseSynth,

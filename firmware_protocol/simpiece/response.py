@@ -2,7 +2,7 @@
 
 The tap is modelled as a half-sine force pulse. `modal_acceleration` gives the
 accelerometer signals in closed form (no time stepping, no filtering), so the
-virtual instrument can evaluate any chunk of samples at any pulse start time;
+simulated test piece can evaluate any chunk of samples at any pulse start time;
 `accelerance` gives the matching analytic FRF, optionally as seen through an
 exponential window, and `half_sine_spectrum` the pulse's Fourier transform.
 

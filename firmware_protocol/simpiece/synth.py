@@ -1,4 +1,4 @@
-"""Sample synthesis for the virtual instrument: taps in, channel signals out, chunk by chunk.
+"""Sample synthesis for the simulated test piece: taps in, channel signals out, chunk by chunk.
 
 The exact closed-form response (response.py) is evaluated while a pulse is
 acting. Once it has ended, every mode is a free damped oscillation, so the
@@ -119,7 +119,7 @@ class AntiAliasFilter:
 
     The continuous signals are point-sampled on the fine grid, so what lies
     above 32·rate still folds back. For a half-sine tap of width T that is the
-    spectrum's 1/(2 f T)² tail at f ≈ 64·rate: for the hardest tip the virtual
+    spectrum's 1/(2 f T)² tail at f ≈ 64·rate: for the hardest tip the simulated
     instrument allows (0.2 ms) at 51.2 kHz about 125 dB below the pulse's
     low-frequency level, well under the stopband.
 
@@ -210,7 +210,7 @@ class AntiAliasFilter:
 
 @cache
 def converter_filter() -> AntiAliasFilter:
-    """The virtual instrument's anti-alias filter (the `AntiAliasFilter` defaults)."""
+    """The simulated test piece's anti-alias filter (the `AntiAliasFilter` defaults)."""
     return AntiAliasFilter()
 
 

@@ -1,4 +1,4 @@
-"""The virtual instrument on a real link: pyserial on a pseudo-terminal and on TCP.
+"""The simulated test piece on a real link: pyserial on a pseudo-terminal and on TCP.
 
 Each test starts the instrument, talks to it with pyserial exactly as the
 daemon does, and waits on conditions with deadlines (never fixed sleeps).
@@ -34,21 +34,21 @@ from taprig.firmware_protocol import (
     make_decoder,
 )
 from taprig.firmware_protocol.frames import frame
-from taprig.firmware_protocol.virtual import (
+from taprig.firmware_protocol.simpiece import (
     accelerance,
     demo_panel,
     half_sine,
     half_sine_spectrum,
     modal_acceleration,
 )
-from taprig.firmware_protocol.virtual.control import ControlServer
-from taprig.firmware_protocol.virtual.instrument import (
+from taprig.firmware_protocol.simpiece.control import ControlServer
+from taprig.firmware_protocol.simpiece.instrument import (
     InstrumentSettings,
-    VirtualInstrument,
-    open_virtual,
+    SimulatedPiece,
+    open_simulated,
 )
-from taprig.firmware_protocol.virtual.ports import TcpPort
-from taprig.firmware_protocol.virtual.synth import converter_filter
+from taprig.firmware_protocol.simpiece.ports import TcpPort
+from taprig.firmware_protocol.simpiece.synth import converter_filter
 
 
 class Host:
@@ -95,8 +95,8 @@ class Host:
 
 
 @pytest.fixture
-def vi() -> Iterator[VirtualInstrument]:
-    inst = open_virtual("pty")
+def piece() -> Iterator[SimulatedPiece]:
+    inst = open_simulated("pty")
     try:
         yield inst
     finally:
@@ -111,8 +111,8 @@ def stitched(blocks: list[SampleBlock]) -> tuple[int, np.ndarray]:
     return first, np.concatenate([b.volts for b in blocks], axis=1)
 
 
-def test_commands_are_acknowledged(vi: VirtualInstrument) -> None:
-    host = Host(vi.url)
+def test_commands_are_acknowledged(piece: SimulatedPiece) -> None:
+    host = Host(piece.url)
     try:
         ping = host.send(Opcode.PING, 0xCAFE)
         ident = host.send(Opcode.IDENTIFY)
@@ -138,9 +138,9 @@ def test_commands_are_acknowledged(vi: VirtualInstrument) -> None:
         host.close()
 
 
-def test_stream_rate_and_continuity(vi: VirtualInstrument) -> None:
+def test_stream_rate_and_continuity(piece: SimulatedPiece) -> None:
     """Sample frames arrive at the announced rate, contiguous, from index 0 after START."""
-    host = Host(vi.url)
+    host = Host(piece.url)
     try:
         host.send(Opcode.START)
         host.wait(lambda: host.samples() >= 256)
@@ -160,36 +160,36 @@ def test_stream_rate_and_continuity(vi: VirtualInstrument) -> None:
 def test_tap_arrives_exactly() -> None:
     """Without the anti-alias filter the streamed tap equals the exact modal response.
 
-    Reference: the closed-form model response (checked in test_virtual_physics against
+    Reference: the closed-form model response (checked in test_simulated_physics against
     scipy.integrate.solve_ivp) and the half-sine force, point-sampled at k / rate; the
     residual must be at the level of the configured sensor noise (20 µV rms) plus half an
     LSB of a 24-bit ±5 V converter.
     """
-    vi = open_virtual("pty", settings=InstrumentSettings(anti_alias=False))
-    host = Host(vi.url)
+    piece = open_simulated("pty", settings=InstrumentSettings(anti_alias=False))
+    host = Host(piece.url)
     try:
         host.send(Opcode.START)
         host.wait(lambda: host.samples() >= 1024)
-        rec = vi.tap("C4", force_n=40.0, width_s=0.001)
+        rec = piece.tap("C4", force_n=40.0, width_s=0.001)
         assert rec is not None
         n_rec = 8192
         host.wait(lambda: host.blocks()[-1].end_index > rec.first_index + n_rec)
         first, volts = stitched(host.blocks())
         lo = rec.first_index - 100 - first
         seg = volts[:, lo : lo + n_rec]
-        t = (first + lo + np.arange(n_rec)) / vi.rate_hz
-        sens = np.asarray(vi.sensitivities())
+        t = (first + lo + np.arange(n_rec)) / piece.rate_hz
+        sens = np.asarray(piece.sensitivities())
         force = half_sine(t - rec.t0_s, rec.width_s, rec.peak_n) * sens[0]
-        accel = modal_acceleration(vi.model, "C4", t, rec.t0_s, rec.width_s, rec.peak_n)
+        accel = modal_acceleration(piece.model, "C4", t, rec.t0_s, rec.width_s, rec.peak_n)
         expected = np.vstack([force[None, :], accel * sens[1:, None]])
         resid = seg - expected
-        noise = vi.settings.noise_v_rms
+        noise = piece.settings.noise_v_rms
         assert np.all(np.std(resid, axis=1) < 1.3 * noise)
         assert np.all(np.abs(np.mean(resid, axis=1)) < 0.2 * noise)
         assert np.max(seg[0]) / sens[0] == pytest.approx(40.0, rel=0.02)
     finally:
         host.close()
-        vi.close()
+        piece.close()
 
 
 # The demo panel with 10 % damping: a tap dies away below 1e-11 within RECORD samples, so
@@ -203,10 +203,10 @@ def test_filtered_stream_is_the_exact_response_through_the_filter() -> None:
     """With the anti-alias filter (the default) the stream is G(f) times the exact spectrum.
 
     Reference: the Fourier transforms of the half-sine force (closed form, checked in
-    test_virtual_physics) and of the response, accelerance × force (Ewins, Modal Testing,
+    test_simulated_physics) and of the response, accelerance × force (Ewins, Modal Testing,
     2nd ed., 2000, ch. 2, from memory; the model's closed form), times the filter's
     documented zero-phase response G(f), itself checked against scipy.signal.freqz in
-    test_virtual_physics. Sampling at rate turns a spectrum X(f) into
+    test_simulated_physics. Sampling at rate turns a spectrum X(f) into
     rate · Σ_m X(f - m·rate) (Poisson summation; Oppenheim & Schafer, Discrete-Time
     Signal Processing, 3rd ed., 2010, §4.2, from memory); the filter keeps every image
     m ≠ 0 at least 99.9 dB down (those of its 64-times-finer grid, near multiples of
@@ -231,7 +231,7 @@ def test_filtered_stream_is_the_exact_response_through_the_filter() -> None:
     """
     filt = converter_filter()
     settings = InstrumentSettings(noise_v_rms=DITHER_V)
-    inst = open_virtual("pty", model=HEAVILY_DAMPED, settings=settings)
+    inst = open_simulated("pty", model=HEAVILY_DAMPED, settings=settings)
     host = Host(inst.url)
     try:
         host.send(Opcode.START)
@@ -288,12 +288,12 @@ def test_filtered_stream_is_the_exact_response_through_the_filter() -> None:
     assert np.abs(np.fft.rfft(plain, axis=-1) - gain * exact).max() > 10.0 * bound
 
 
-def test_double_hit_and_overload_faults(vi: VirtualInstrument) -> None:
-    host = Host(vi.url)
+def test_double_hit_and_overload_faults(piece: SimulatedPiece) -> None:
+    host = Host(piece.url)
     try:
         host.send(Opcode.START)
         host.wait(lambda: host.samples() >= 1024)
-        rec = vi.tap("A2", double_hit=True)
+        rec = piece.tap("A2", double_hit=True)
         assert rec is not None and rec.double_hit
         host.wait(lambda: host.blocks()[-1].end_index > rec.first_index + 2048)
         first, volts = stitched(host.blocks())
@@ -301,14 +301,14 @@ def test_double_hit_and_overload_faults(vi: VirtualInstrument) -> None:
         above = f > 0.1 * f.max()
         pulses = int(np.count_nonzero(np.diff(above.astype(int)) == 1)) + int(above[0])
         assert pulses == 2
-        over = vi.tap("A2", overload=True)
+        over = piece.tap("A2", overload=True)
         assert over is not None
         host.wait(
             lambda: any(
                 isinstance(e, StatusReceived) and e.status.overload_mask for e in host.events
             )
         )
-        full = vi.settings.full_scale_v
+        full = piece.settings.full_scale_v
         host.wait(lambda: host.blocks()[-1].end_index > over.first_index + 512)
         first, volts = stitched(host.blocks())
         seg = volts[:, over.first_index - first : over.first_index - first + 512]
@@ -317,20 +317,21 @@ def test_double_hit_and_overload_faults(vi: VirtualInstrument) -> None:
         host.close()
 
 
-def test_dropped_and_corrupted_frames_are_seen_as_such(vi: VirtualInstrument) -> None:
-    host = Host(vi.url)
+def test_dropped_and_corrupted_frames_are_seen_as_such(piece: SimulatedPiece) -> None:
+    host = Host(piece.url)
     try:
         host.send(Opcode.START)
         host.wait(lambda: host.samples() >= 1024)
-        vi.faults.drop_frame_probability = 0.05
-        vi.faults.corrupt_probability = 0.05
-        host.wait(lambda: vi.counters.frames_dropped >= 3 and vi.counters.frames_corrupted >= 3)
-        vi.faults.drop_frame_probability = 0.0
-        vi.faults.corrupt_probability = 0.0
-        sent = vi.counters.frames_sent
+        piece.faults.drop_frame_probability = 0.05
+        piece.faults.corrupt_probability = 0.05
+        host.wait(lambda: piece.counters.frames_dropped >= 3
+                  and piece.counters.frames_corrupted >= 3)
+        piece.faults.drop_frame_probability = 0.0
+        piece.faults.corrupt_probability = 0.0
+        sent = piece.counters.frames_sent
         host.wait(lambda: host.decoder.stats.frames_ok > sent + 20)
         st = host.decoder.stats
-        lost = vi.counters.frames_dropped * 256
+        lost = piece.counters.frames_dropped * 256
         assert st.samples_lost >= lost
         assert st.crc_errors + st.resyncs >= 1
         assert sum(e.count for e in host.events if isinstance(e, Gap)) == st.samples_lost
@@ -338,20 +339,20 @@ def test_dropped_and_corrupted_frames_are_seen_as_such(vi: VirtualInstrument) ->
         host.close()
 
 
-def test_stall_then_resume_shows_a_gap(vi: VirtualInstrument) -> None:
-    host = Host(vi.url)
+def test_stall_then_resume_shows_a_gap(piece: SimulatedPiece) -> None:
+    host = Host(piece.url)
     try:
         host.send(Opcode.START)
         host.wait(lambda: host.samples() >= 1024)
-        vi.faults.stalled = True
+        piece.faults.stalled = True
         stalled_at = host.samples()
         deadline = time.monotonic() + 0.3
         while time.monotonic() < deadline:
             host.pump()
-        vi.faults.stalled = False
+        piece.faults.stalled = False
         host.wait(lambda: any(isinstance(e, Gap) for e in host.events))
         gap = next(e for e in host.events if isinstance(e, Gap))
-        assert gap.count >= 0.2 * vi.rate_hz
+        assert gap.count >= 0.2 * piece.rate_hz
         assert stalled_at <= host.samples()
     finally:
         host.close()
@@ -360,7 +361,7 @@ def test_stall_then_resume_shows_a_gap(vi: VirtualInstrument) -> None:
 def test_unplug_replug_at_stable_name(tmp_path: Path) -> None:
     """The pty disappears on unplug (the host's read fails) and returns at the same link name."""
     link = tmp_path / "ttyTAPRIG0"
-    inst = open_virtual("pty", link=str(link))
+    inst = open_simulated("pty", link=str(link))
     try:
         assert inst.url == str(link) and link.is_symlink()
         host = Host(inst.url)
@@ -387,7 +388,7 @@ def test_unplug_replug_at_stable_name(tmp_path: Path) -> None:
 
 
 def test_tcp_transport_like_a_wifi_board() -> None:
-    inst = VirtualInstrument(port=TcpPort()).start()
+    inst = SimulatedPiece(port=TcpPort()).start()
     try:
         assert inst.url.startswith("socket://127.0.0.1:")
         host = Host(inst.url)
@@ -408,7 +409,7 @@ def test_tcp_transport_like_a_wifi_board() -> None:
 
 
 def test_text_output_over_pty() -> None:
-    inst = open_virtual("pty", settings=InstrumentSettings(output="text", rate_hz=2000.0))
+    inst = open_simulated("pty", settings=InstrumentSettings(output="text", rate_hz=2000.0))
     try:
         host = Host(inst.url, fmt="text")
         host.wait(lambda: host.decoder.info is not None and host.samples() > 500)
@@ -419,9 +420,9 @@ def test_text_output_over_pty() -> None:
         inst.close()
 
 
-def test_control_interface(vi: VirtualInstrument) -> None:
-    server = ControlServer(vi).start()
-    host = Host(vi.url)
+def test_control_interface(piece: SimulatedPiece) -> None:
+    server = ControlServer(piece).start()
+    host = Host(piece.url)
     try:
         host.send(Opcode.START)
         host.wait(lambda: host.samples() >= 512)
@@ -448,8 +449,8 @@ def test_control_interface(vi: VirtualInstrument) -> None:
             assert json.loads(f.readline())["ok"] is False
             state = ask({"op": "state"})
             assert state["taps"] == 1 and state["streaming"] is True
-        assert vi.counters.taps[0].peak_n == 12.5
-        assert not vi.faults.stalled
+        assert piece.counters.taps[0].peak_n == 12.5
+        assert not piece.faults.stalled
     finally:
         host.close()
         server.close()
@@ -462,7 +463,7 @@ def test_decoder_sees_tap_time_exactly() -> None:
     above zero; with the filter the timing is checked by
     test_filtered_stream_is_the_exact_response_through_the_filter.
     """
-    inst = open_virtual("pty", settings=InstrumentSettings(noise_v_rms=1e-7, anti_alias=False))
+    inst = open_simulated("pty", settings=InstrumentSettings(noise_v_rms=1e-7, anti_alias=False))
     host = Host(inst.url)
     try:
         host.send(Opcode.START)

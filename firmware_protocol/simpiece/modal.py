@@ -1,4 +1,4 @@
-"""Modal model of the structure behind the virtual instrument.
+"""Modal model of the structure behind the simulated test piece.
 
 A `ModalModel` holds what the simulated device needs to make accelerometer
 signals: named points with coordinates, natural frequencies, modal damping
