@@ -56,6 +56,7 @@ def test_the_service_waits_with_the_rig_for_its_device(tmp_path: Path) -> None:
             proc = subprocess.Popen(
                 [sys.executable, "-m", "taprig.daemon", "run", "--config", str(config),
                  "--test", "bench", "--grid", str(grid), "--set", f"device.url={device}",
+                 "--sensor-at", "acc1=P1/+z", "--sensor-at", "acc2=P2/-z",
                  "--set", f"store.data_dir={data}", "--set", "store.min_free_mb=1",
                  "--set", "service.bind=127.0.0.1", "--set", "service.port=0",
                  "--set", "service.advertise=false"],
