@@ -86,6 +86,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from .band import band_of, force_band_tops
 from .check_modes import FittedView, fitted_view, report_lines
 from .dataset import TestData, jsonable
 
@@ -97,7 +98,6 @@ __all__ = [
     "PointCheck",
     "analysis_band",
     "check",
-    "force_band_tops",
     "half_power",
     "peak_prominences",
     "pick_peaks",
@@ -258,25 +258,6 @@ class CheckResult:
 # --------------------------------------------------------------------------
 
 
-def force_band_tops(
-    freq_hz: FloatArray, gff: FloatArray, drop_db: float = 10.0, low_fraction: float = 0.02
-) -> FloatArray:
-    """Top of each row's usable force band, Hz, shape (P,) for gff of shape (P, F).
-
-    The band ends at the last line before Gff first falls `drop_db` below its
-    low-frequency level (the median over the lowest `low_fraction` of the lines above
-    0 Hz, at least 4 lines); a row that never falls that far keeps every line.
-    """
-    g = np.atleast_2d(np.asarray(gff, dtype=np.float64))
-    n_low = max(4, round(low_fraction * (freq_hz.size - 1)))
-    level = np.median(g[:, 1 : 1 + n_low], axis=1)
-    below = g < (level * 10.0 ** (-drop_db / 10.0))[:, None]
-    below[:, : 1 + n_low] = False  # the level's own lines never end the band
-    first = np.where(below.any(axis=1), np.argmax(below, axis=1), freq_hz.size)
-    tops: FloatArray = freq_hz[np.maximum(first - 1, 0)]
-    return tops
-
-
 def peak_prominences(y: FloatArray, peaks: IntArray) -> tuple[FloatArray, FloatArray]:
     """Left and right bases of each peak (values of `y`), scipy.signal's definition.
 
@@ -408,15 +389,9 @@ def check(data: TestData, settings: CheckSettings | None = None) -> CheckResult:
 def analysis_band(
     data: TestData, settings: CheckSettings | None = None, tops: FloatArray | None = None
 ) -> tuple[float, float]:
-    """The analysis band (F1, F2), Hz: ``settings.band_hz``, or from the first line above
-    0 Hz to the median of the points' force-band tops (`tops`, computed when not given)."""
+    """The analysis band (F1, F2), Hz, with the check's settings (client/band.py's rule)."""
     s = settings or CheckSettings()
-    if s.band_hz is not None:
-        return (float(s.band_hz[0]), float(s.band_hz[1]))
-    freq = data.freq_hz
-    if tops is None:
-        tops = force_band_tops(freq, data.gff, s.force_drop_db, s.low_fraction)
-    return (float(freq[1]) if freq.size > 1 else 0.0, float(np.median(tops)))
+    return band_of(data.freq_hz, data.gff, s.band_hz, s.force_drop_db, s.low_fraction, tops)
 
 
 def _point_check(

@@ -1,6 +1,7 @@
 """`taprig`: the workstation client's command line.
 
-Logging is configured here and only here; errors become exit codes in one place (`_guard`).
+Logging is configured here and only here; errors become exit codes in one place
+(`cliparts.guard`, shared with every command module).
 Every command takes `--json` and then prints one JSON document on stdout.
 """
 
@@ -9,12 +10,8 @@ from __future__ import annotations
 import contextlib
 import json
 import logging
-import math
 import signal
-import sys
 import tempfile
-import time
-from collections.abc import Callable, Iterator
 from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
@@ -22,15 +19,29 @@ from typing import TYPE_CHECKING, Annotated, Any
 import typer
 
 from .archive.cli import app as archive_app
+from .cliparts import (
+    ArchiveOption,
+    BandOption,
+    JsonOption,
+    RawHitsOption,
+    RigArgument,
+    RigOption,
+    TestArgument,
+    VerboseOption,
+    emit,
+    find_rig,
+    guard,
+    load_test,
+    open_mirror,
+    parse_band,
+    progress_bar,
+    rig_client,
+)
 from .errors import ClientError
 from .words import count
 
 if TYPE_CHECKING:
-    from .dataset import TestData
-    from .mirror import Mirror
     from .pull import PullReport
-    from .remote import RigClient
-    from .rigs import PairedRig
 
 app = typer.Typer(
     help="taprig workstation client: find rigs, pull completed point sets, export them.",
@@ -40,18 +51,6 @@ app = typer.Typer(
 )
 app.add_typer(archive_app, name="archive")
 
-# Options several commands share, declared once.
-JsonOption = Annotated[bool, typer.Option("--json", help="print one JSON document")]
-RawHitsOption = Annotated[bool, typer.Option(
-    "--raw-hits", help="also fetch every hit's raw record (several times the bytes; without "
-    "it, hits come with their times, forces and findings only)")]  # fmt: skip
-RigArgument = Annotated[
-    str | None, typer.Argument(help="a paired rig's name or id (default: the only one)")
-]
-RigOption = Annotated[
-    str | None, typer.Option("--rig", help="a paired rig's name or id (default: the only one)")
-]
-VerboseOption = Annotated[bool, typer.Option("--verbose", "-v", help="log at debug level")]
 
 
 @app.callback()
@@ -61,50 +60,6 @@ def _root(verbose: VerboseOption = False) -> None:
         level=logging.DEBUG if verbose else logging.WARNING,
         format="%(asctime)s %(levelname)s %(name)s: %(message)s",
     )
-
-
-@contextlib.contextmanager
-def _guard() -> Iterator[None]:
-    """Client errors → one line on stderr and the error's exit code."""
-    try:
-        yield
-    except ClientError as exc:
-        typer.echo(f"taprig: {exc}", err=True)
-        raise typer.Exit(code=exc.exit_code) from None
-    except ValueError as exc:  # bad option values found past typer (bands, addresses, data)
-        typer.echo(f"taprig: {exc}", err=True)
-        raise typer.Exit(code=2) from None
-    except OSError as exc:  # a file the system refused (e.g. --out in a missing folder)
-        where = f"{exc.filename}: " if exc.filename else ""
-        typer.echo(f"taprig: {where}{exc.strerror or exc}", err=True)
-        raise typer.Exit(code=1) from None
-
-
-def _emit(as_json: bool, obj: Any, lines: Callable[[], list[str]]) -> None:
-    if as_json:
-        typer.echo(json.dumps(obj, indent=1, default=str))
-    else:
-        for line in lines():
-            typer.echo(line)
-
-
-def _paired(which: str | None) -> PairedRig:
-    from .rigs import Places, RigBook
-
-    return RigBook(Places.from_env()).find(which)
-
-
-def _client(rig: PairedRig) -> RigClient:
-    from .remote import RigClient
-
-    return RigClient(rig.url, rig.token)
-
-
-def _mirror(rig: PairedRig) -> Mirror:
-    from .mirror import Mirror
-    from .rigs import Places
-
-    return Mirror(Places.from_env().mirror_path(rig.rig_id))
 
 
 # ---------------------------------------------------------------- the LAN
@@ -124,7 +79,7 @@ def discover(
 
     from .discover import discover as browse
 
-    with _guard():
+    with guard():
         rigs = browse(timeout, interface or InterfaceChoice.All)
     rows: list[dict[str, Any]] = [
         {"name": r.name, "id": r.rig_id, "addresses": list(r.addresses), "port": r.port,
@@ -141,7 +96,7 @@ def discover(
             out.append(f"{r.name:<24} {r.rig_id:<14} http://{where:<22} {state}")
         return out
 
-    _emit(as_json, {"rigs": rows}, lines)
+    emit(as_json, {"rigs": rows}, lines)
 
 
 @app.command()
@@ -153,7 +108,7 @@ def pair(
     from .remote import RigClient
     from .rigs import PairedRig, Places, RigBook, parse_pairing_url
 
-    with _guard():
+    with guard():
         base, token = parse_pairing_url(url)
         with RigClient(base, token) as client:
             info = client.info()
@@ -162,15 +117,15 @@ def pair(
         book = RigBook(Places.from_env())
         book.save(rig)
     obj = {"name": rig.name, "id": rig.rig_id, "url": rig.url, "file": str(book.places.rigs_file)}
-    _emit(as_json, obj, lambda: [f"paired with {rig.name} ({rig.rig_id}) at {rig.url}"])
+    emit(as_json, obj, lambda: [f"paired with {rig.name} ({rig.rig_id}) at {rig.url}"])
 
 
 @app.command()
 def status(rig: RigArgument = None, as_json: JsonOption = False) -> None:
     """The rig's state: device, link, current test and point, armed or not."""
-    with _guard():
-        paired = _paired(rig)
-        with _client(paired) as client:
+    with guard():
+        paired = find_rig(rig)
+        with rig_client(paired) as client:
             state = client.state()
 
     def lines() -> list[str]:
@@ -188,7 +143,7 @@ def status(rig: RigArgument = None, as_json: JsonOption = False) -> None:
             f"changes  last seq {state['last_seq']}",
         ]
 
-    _emit(as_json, state, lines)
+    emit(as_json, state, lines)
 
 
 @app.command()
@@ -199,15 +154,15 @@ def tests(
     if archive is not None:
         from .archive.cli import archived_tests
 
-        with _guard():
+        with guard():
             listed, text = archived_tests(archive, rig)
-        return _emit(as_json, listed, lambda: text)
-    with _guard():
-        paired = _paired(rig)
-        with _client(paired) as client:
+        return emit(as_json, listed, lambda: text)
+    with guard():
+        paired = find_rig(rig)
+        with rig_client(paired) as client:
             found = client.tests()
             points = client.points()
-        with _mirror(paired) as mirror:
+        with open_mirror(paired) as mirror:
             here = mirror.counts()
     on_rig: dict[str, int] = {}
     for p in points:
@@ -224,7 +179,7 @@ def tests(
                f"{r['point_sets_mirrored']:>4} mirrored" for r in rows]  # fmt: skip
         return out or ["no tests yet"]
 
-    _emit(as_json, {"tests": rows}, lines)
+    emit(as_json, {"tests": rows}, lines)
 
 
 # ---------------------------------------------------------------- pulling
@@ -250,45 +205,20 @@ def pull(
     """
     from .pull import pull as do_pull
 
-    with _guard():
-        paired = _paired(rig)
-        with _client(paired) as client, _mirror(paired) as mirror, _progress(as_json) as bar:
+    with guard():
+        paired = find_rig(rig)
+        with (
+            rig_client(paired) as client,
+            open_mirror(paired) as mirror,
+            progress_bar(as_json) as bar,
+        ):
             report = do_pull(client, mirror, test, progress=bar, with_hits=raw_hits)
             path = mirror.path
     obj = _report_json(report, path)
-    _emit(as_json, obj, lambda: [
+    emit(as_json, obj, lambda: [
         f"{count(report.point_sets, 'new point set')} ({report.bytes / 1e6:.1f} MB, "
         f"{report.mb_per_s:.1f} MB/s), {count(report.tests, 'test')}, "
         f"{report.already_here} already here; mirror {path}"])  # fmt: skip
-
-
-@contextlib.contextmanager
-def _progress(
-    quiet: bool, label: str = "pulling", min_total: int = 6, after_s: float = 0.0
-) -> Iterator[Callable[[int, int], None] | None]:
-    """A progress bar on a terminal for jobs of at least `min_total` steps that have run
-    `after_s` seconds (pulls of more than a few point sets), else nothing."""
-    if quiet or not sys.stderr.isatty():
-        yield None
-        return
-    bar: Any = None
-    shown = 0
-    started = time.monotonic()
-
-    def update(done: int, total: int) -> None:
-        nonlocal bar, shown
-        if bar is None and total >= min_total and time.monotonic() - started >= after_s:
-            bar = typer.progressbar(length=total, label=label, file=sys.stderr)
-            bar.__enter__()
-        if bar is not None:
-            bar.update(done - shown)
-            shown = done
-
-    try:
-        yield update
-    finally:
-        if bar is not None:
-            bar.__exit__(None, None, None)
 
 
 @app.command()
@@ -310,9 +240,9 @@ def watch(
                 typer.echo(f"{s.completed_utc}  {s.test}/{s.point} v{s.version}: "
                            f"{s.n_averages} averages (change {s.seq})")  # fmt: skip
 
-    with _guard():
-        paired = _paired(rig)
-        with _client(paired) as client, _mirror(paired) as mirror:
+    with guard():
+        paired = find_rig(rig)
+        with rig_client(paired) as client, open_mirror(paired) as mirror:
             if not as_json:
                 typer.echo(f"following {paired.name} at {paired.url}; Ctrl-C to stop")
             with contextlib.suppress(KeyboardInterrupt):
@@ -326,21 +256,6 @@ def _interrupt(signum: int, frame: object) -> None:
 # ---------------------------------------------------------------- the mirror, offline
 
 
-def _band(text: str | None) -> tuple[float, float] | None:
-    """(F1, F2) Hz of a band written F1:F2; ValueError naming it otherwise."""
-    if text is None:
-        return None
-    lo, sep, hi = text.partition(":")
-    try:
-        band = (float(lo), float(hi))
-    except ValueError:
-        band = (math.nan, math.nan)
-    if not sep or not (math.isfinite(band[0]) and math.isfinite(band[1]) and
-                       0 <= band[0] < band[1]):  # fmt: skip
-        raise ValueError(f"--band {text!r}: write F1:F2 in Hz with 0 <= F1 < F2, e.g. 20:2000")
-    return band
-
-
 class Format(StrEnum):
     npz = "npz"
     hdf5 = "hdf5"
@@ -351,25 +266,6 @@ class Quantity(StrEnum):
     accelerance = "accelerance"
     mobility = "mobility"
     receptance = "receptance"
-
-
-TestArgument = Annotated[str, typer.Argument(help="a test in the local mirror (see `tests`)")]
-BandOption = Annotated[
-    str | None, typer.Option("--band", help="only F1 <= f <= F2, written F1:F2 in Hz")
-]
-
-
-ArchiveOption = Annotated[str | None, typer.Option("--archive", help="read this archive (DSN)")]
-
-
-def _load(rig: str | None, test: str, archive: str | None = None) -> TestData:
-    """A mirrored test of a paired rig (or an archived one), as arrays (offline)."""
-    if archive is not None:
-        from .archive.cli import load
-
-        return load(archive, rig, test)
-    with _mirror(_paired(rig)) as mirror:
-        return mirror.load(test)
 
 
 @app.command()
@@ -390,18 +286,18 @@ def export(
     """Write a mirrored test for fitting elsewhere: npz, HDF5 or CSV (works offline)."""
     from .export import export as write
 
-    with _guard():
-        data = _load(rig, test, archive)
+    with guard():
+        data = load_test(rig, test, archive)
         suffix = {"npz": ".npz", "hdf5": ".h5", "csv": ".csv"}[fmt.value]
         target = out or Path(f"{test}{suffix}")
         if not target.absolute().parent.is_dir():
             raise ClientError(f"cannot write {target}: the folder {target.parent} does not exist")
-        path = write(data, target, fmt.value, quantity.value, _band(band))
+        path = write(data, target, fmt.value, quantity.value, parse_band(band))
     obj = {"file": str(path), "points": len(data.points), "responses": list(data.responses),
            "quantity": quantity.value, "format": fmt.value, "coverage": data.coverage,
            "unmeasured": list(data.unmeasured)}  # fmt: skip
     partial = f" (partial: {len(data.unmeasured)} not measured)" if data.unmeasured else ""
-    _emit(as_json, obj, lambda: [f"{data.coverage} of {test}{partial} as {quantity.value} "
+    emit(as_json, obj, lambda: [f"{data.coverage} of {test}{partial} as {quantity.value} "
                                  f"-> {path}"])  # fmt: skip
 
 
@@ -420,16 +316,16 @@ def check(
     from .check import CheckSettings, report_text
     from .check import check as run_check
 
-    with _guard():
-        data = _load(rig, test, archive)
-        result = run_check(data, CheckSettings(band_hz=_band(band)))
+    with guard():
+        data = load_test(rig, test, archive)
+        result = run_check(data, CheckSettings(band_hz=parse_band(band)))
         drawn: list[Path] = []
         if plots is not None:
             from .plots import write_plots
 
             drawn = write_plots(data, result, plots)
     obj = {**result.to_dict(), "plots": [str(p) for p in drawn]}
-    _emit(as_json, obj, lambda: [report_text(result).rstrip("\n"),
+    emit(as_json, obj, lambda: [report_text(result).rstrip("\n"),
                                  *(f"plot {p}" for p in drawn)])  # fmt: skip
 
 
@@ -446,7 +342,7 @@ def demo(
     folder = out if out is not None else Path(tempfile.mkdtemp(prefix="taprig-demo-"))
     typer.echo(f"taprig demo: a roving-hammer test of a simulated aluminium panel; files in "
                f"{folder}")
-    with _guard():
+    with guard():
         result = run_demo(folder, typer.echo, plots=plots)
     typer.echo(f"-- done in {result.seconds:.1f} s: {result.npz}, {result.check}, {result.truth}")
     for name, seconds in result.stages.items():

@@ -82,17 +82,17 @@ def mode_table(model: ModalModel) -> list[str]:
 
 def register(app: typer.Typer) -> None:
     """Add `fit` to the client's command line."""
-    from .cli import (
+    from .cliparts import (
         ArchiveOption,
         BandOption,
         JsonOption,
         RigOption,
         TestArgument,
-        _band,
-        _emit,
-        _guard,
-        _load,
-        _progress,
+        emit,
+        guard,
+        load_test,
+        parse_band,
+        progress_bar,
     )
 
     @app.command(name="fit")
@@ -120,12 +120,12 @@ def register(app: typer.Typer) -> None:
         from .errors import ClientError
         from .modal import fit
 
-        with _guard():
+        with guard():
             if keep and archive is None:
                 raise ClientError("--keep stores the model in an archive: add --archive DSN")
-            data = _load(rig, test, archive)
-            with _progress(as_json, "fitting", 1, SHOW_AFTER_S) as bar:
-                model = fit(data, _band(band), parse_orders(orders), parse_pick(pick), bar)
+            data = load_test(rig, test, archive)
+            with progress_bar(as_json, "fitting", 1, SHOW_AFTER_S) as bar:
+                model = fit(data, parse_band(band), parse_orders(orders), parse_pick(pick), bar)
             saved = model.save(out) if out is not None else None
             kept = _keep(archive, rig, test, model) if keep and archive is not None else None
             drawn: list[Path] = []
@@ -133,7 +133,7 @@ def register(app: typer.Typer) -> None:
                 drawn = _draw(data, model, plots)
         obj = {**model.to_dict(), "file": None if saved is None else str(saved),
                "plots": [str(p) for p in drawn], "archived": kept}  # fmt: skip
-        _emit(as_json, obj, lambda: [*mode_table(model),
+        emit(as_json, obj, lambda: [*mode_table(model),
                                      *([f"model {saved}"] if saved else []),
                                      *([f"kept in the archive, made {kept['created_utc']}, "
                                         f"sha256 {kept['sha256'][:16]}"] if kept else []),

@@ -25,7 +25,6 @@ from ..errors import ClientError
 from ..words import count, extra_hint
 
 if TYPE_CHECKING:
-    from ..dataset import TestData
     from .reader import ArchivedTest
 
 app = typer.Typer(
@@ -40,9 +39,9 @@ def _command(fn: F) -> F:
 
     @functools.wraps(fn)
     def guarded(*args: Any, **kwargs: Any) -> None:
-        from ..cli import _guard
+        from ..cliparts import guard
 
-        with _guard():
+        with guard():
             try:
                 fn(*args, **kwargs)
             except ModuleNotFoundError as exc:
@@ -259,14 +258,6 @@ def trend(
 
 
 # ---------------------------------------------------------------- for taprig tests/export/check
-
-
-def load(dsn: str, rig: str | None, test: str) -> TestData:
-    """An archived test as arrays (`taprig export/check --archive DSN`)."""
-    from .reader import Archive
-
-    with Archive(_dsn(dsn), rig) as archive:
-        return archive.load(test)
 
 
 def keep_model(dsn: str, rig: str | None, test: str, npz: bytes,

@@ -28,6 +28,7 @@ import numpy as np
 from numpy.typing import NDArray
 from threadpoolctl import threadpool_limits
 
+from ..band import band_of
 from ..dataset import TestData
 from ..errors import FitError
 from . import lsfd, plscf, quality, stability
@@ -137,7 +138,6 @@ def fit(
 
     Raises FitError when the data cannot carry the fit, with what to change.
     """
-    from ..check import analysis_band
 
     tol = tolerances or stability.StabilityTolerances()
     qs = settings or quality.QualitySettings()
@@ -145,7 +145,7 @@ def fit(
     if len(lay.points) < 2:
         raise FitError(f"test {data.test!r} has {len(lay.points)} measured point; a mode shape "
                        "needs at least 2")  # fmt: skip
-    band = band or analysis_band(data)
+    band = band or band_of(data.freq_hz, data.gff)
     lines = _lines(lay, data.freq_hz, band)
     n_ref = len(lay.references)
     n1, n2 = orders or default_orders(n_ref)

@@ -22,10 +22,10 @@ __all__ = ["view"]
 
 def _latest_test(rig: str | None) -> str:
     """The mirrored test created last (the one a user most likely means)."""
-    from .. import cli
+    from ..cliparts import find_rig, open_mirror
     from ..errors import MirrorError
 
-    with cli._mirror(cli._paired(rig)) as mirror:
+    with open_mirror(find_rig(rig)) as mirror:
         tests = [t for t in mirror.tests() if mirror.counts().get(t.name)]
     if not tests:
         raise MirrorError("the mirror holds no measured test yet; run  taprig pull  first")
@@ -66,12 +66,12 @@ def view(
     Serves a page on 127.0.0.1 (nothing loaded from elsewhere) and opens it in the browser;
     Ctrl-C stops. Works offline from the local mirror.
     """
-    from ..cli import _guard, _load
+    from ..cliparts import guard, load_test
     from .modes import modes_for
 
-    with _guard():
+    with guard():
         name = test if test is not None else _latest_test(rig)
-        data = _load(rig, name)
+        data = load_test(rig, name)
         shape = _geometry(data, geometry)
         modes = modes_for(data)
         if save is not None:

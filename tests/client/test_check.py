@@ -17,11 +17,11 @@ from scipy.signal import find_peaks
 from scipy.signal import peak_prominences as scipy_prominences
 
 from taprig.client import dataset
+from taprig.client.band import force_band_tops
 from taprig.client.check import (
     CheckResult,
     CheckSettings,
     check,
-    force_band_tops,
     peak_prominences,
     pick_peaks,
     report_text,
