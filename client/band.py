@@ -1,6 +1,6 @@
 """The analysis band of a test: where the hammer's force carries enough energy to measure.
 
-Shared by the quick-look check (client/check.py) and the modal fit (client/modal/fit.py),
+Shared by the quick-look check (client/check/) and the modal fit (client/modal/fit.py),
 so that both judge the same lines. The rule is common practice in impact testing: a tap
 excites the structure usefully up to where the force autospectrum Gff has fallen about
 10 dB below its low-frequency level.

@@ -1,6 +1,6 @@
 """What the modal fit adds to the quick-look check: peaks that hold more than one mode.
 
-A peak of the summed |H1| (client/check.py) can hide several modes: a close pair, or a
+A peak of the summed |H1| (client/check/) can hide several modes: a close pair, or a
 repeated root (two modes at one frequency). The check fits the test (client/modal/, pLSCF
 and LSFD) and gives each fitted mode to the nearest peak when it lies within 1.5 of the
 peak's half-power bandwidths (window included; two lines when the peak has none) of it; a

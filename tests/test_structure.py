@@ -28,8 +28,6 @@ LONG_MODULES = {
     # Not split on this branch; each is a step of its own (see DEVELOPERS.md, "Still long").
     "daemon/store.py": "its columns and shape checks come from schema/pointset; the writer, "
     "reads and migrations are still one module",
-    "client/check.py": "client/ takes import changes only on this branch",
-    "firmware_protocol/text.py": "the text decoder; not split yet",
     "firmware_protocol/simpiece/instrument.py": "the simulated device; not split yet",
     "firmware_protocol/simpiece/synth.py": "the synthesiser; not split yet",
 }

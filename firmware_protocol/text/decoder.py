@@ -1,30 +1,22 @@
-"""Incremental decoder of the plain-text line input (PROTOCOL.md section 4), and its encoder.
+"""TextDecoder: byte chunks of the text line input in, events out, in stream order.
 
-A board that prints one sample frame per line (values in volts, separated by
-commas, spaces or tabs) is read here. Fed byte chunks split anywhere, the
-decoder returns events in stream order: sample blocks, gaps for malformed
-lines, the device description synthesized from configuration and
-`# rate=<Hz>` comments, and protocol violations.
-
-Speed: every complete line of a chunk is classified with numpy (line ends,
-a byte-class lookup table, token counts per line) and the numbers of the good
-lines are parsed by one C call (`np.fromstring`) per group of 256 lines.
-Python loops run only over comments, over runs of malformed lines and on the
-error path (a group whose one-call parse fails).
+Events: sample blocks, gaps for malformed lines, the device description synthesized from
+configuration and `# rate=<Hz>` comments (rate.py), and protocol violations. Speed: every
+complete line of a chunk is classified with numpy (lines.layout) and the numbers of the good
+lines are parsed by one C call (`np.fromstring`) per group of 256 lines. Python loops run
+only over comments, over runs of malformed lines and on the error path (a group whose
+one-call parse fails).
 """
 
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 
 import numpy as np
-import numpy.typing as npt
 
-from . import frames as fr
-from .events import (
+from .. import frames as fr
+from ..events import (
     DeviceInfoReceived,
     Event,
     Gap,
@@ -34,12 +26,22 @@ from .events import (
     ProtocolViolation,
     SampleBlock,
 )
+from .lines import (
+    MAX_LINE_BYTES,
+    TO_SPACE,
+    Bool,
+    Float,
+    Int,
+    Layout,
+    layout,
+    line_fault,
+    parse_line,
+    parse_numbers,
+)
+from .rate import RATE_COMMENT, RATE_RANGE, no_rate_message, rate_error
 
-MAX_LINE_BYTES = 4096
-"""Longest line content accepted, in bytes, not counting the line end."""
+__all__ = ["ADC_BITS", "REPORT_EVERY", "REPORT_FIRST", "TextDecoder"]
 
-MIN_RATE_HZ = fr.MIN_RATE_MILLI_HZ / 1000.0
-MAX_RATE_HZ = fr.MAX_RATE_MILLI_HZ / 1000.0
 ADC_BITS = 24
 """Converter resolution stated in the synthesized DeviceInfo (float32 mantissa)."""
 
@@ -47,171 +49,12 @@ REPORT_FIRST = 10
 REPORT_EVERY = 1000
 """MalformedLine events: the first REPORT_FIRST, then every REPORT_EVERY-th (all are counted)."""
 
-# Byte classes: 0 part of a number, 1 separator (the line end counts as one), 2 illegal.
-_NUM, _SEP, _BAD = 0, 1, 2
-_CLASS = np.full(256, _BAD, dtype=np.uint8)
-_CLASS[np.frombuffer(b"0123456789+-.eE", dtype=np.uint8)] = _NUM
-_CLASS[np.frombuffer(b" ,\t\n", dtype=np.uint8)] = _SEP
-
-# Separators (and the line ends) to the one separator np.fromstring is given.
-_TO_SPACE = bytes.maketrans(b",\t\r\n", b"    ")
-
-# `# rate=<Hz>`, spaces tolerated around the parts, an optional "Hz" unit.
-_RATE = re.compile(rb"#\s*rate\s*=\s*(.*?)\s*(?:hz)?\s*", re.IGNORECASE)
-
-_RANGE = "1 Hz to 1 MHz"  # MIN_RATE_HZ to MAX_RATE_HZ, for messages
-
-# What the host writes to ask a text device to announce its rate again: a board that prints
-# "# rate=" once at power-up loses that line when the host opens the port later (opening a
-# serial port discards input waiting in the driver; pyserial does so on open).
-RATE_QUERY = b"?rate\n"
-
-
-def no_rate_message(rate_key: str) -> str:
-    """What the host says while a text stream has no rate; `rate_key` names the setting."""
-    return (
-        'text input has no sample rate yet: sample lines are dropped until a "# rate=<Hz>" '
-        "line arrives (the host asked for it with a ?rate line; a board that announced it "
-        f"once, before the port was opened, lost it and may not answer): set {rate_key}"
-    )
-
 # Lines parsed by one C call, and on the error path before one line at a time.
 _GROUP_LINES = 256
 _SMALL_GROUP_LINES = 16
 
-_Int = npt.NDArray[np.int64]
-_Bool = npt.NDArray[np.bool_]
-_Float = npt.NDArray[np.float64]
 _FaultFn = Callable[[int], str]
 """Gives the reason chunk line j is malformed."""
-
-
-def _rate_error(rate: float) -> str | None:
-    """Why `rate` (Hz) is refused, or None if it is inside the protocol's range."""
-    if not (math.isfinite(rate) and MIN_RATE_HZ <= rate <= MAX_RATE_HZ):
-        return f"rate {rate:g} Hz is outside the allowed range {_RANGE}"
-    if not fr.MIN_RATE_MILLI_HZ <= round(rate * 1000.0) <= fr.MAX_RATE_MILLI_HZ:
-        return f"rate {rate!r} Hz rounds outside the allowed range {_RANGE}"
-    return None
-
-
-def _line_fault(line: bytes, channels: int | None) -> str | None:
-    """Why one line (content without its line end) is not a well-formed sample line.
-
-    channels: the expected count of values, or None while it is still unknown
-    (then 1..MAX_CHANNELS values are accepted). None means the line is good.
-    This is the slow reference check, used for the reasons of reported lines,
-    for channel detection and on the error path.
-    """
-    if len(line) > MAX_LINE_BYTES:
-        return f"longer than {MAX_LINE_BYTES} bytes"
-    classes = _CLASS[np.frombuffer(line, dtype=np.uint8)]
-    illegal = np.flatnonzero(classes == _BAD)
-    if illegal.size:
-        col = int(illegal[0])
-        byte = line[col]
-        if byte >= 0x80:
-            return f"byte 0x{byte:02x} at column {col + 1} is not ASCII"
-        return f"character {chr(byte)!r} at column {col + 1} is not part of a number"
-    tokens = line.translate(_TO_SPACE).split()
-    if channels is None:
-        if not 1 <= len(tokens) <= fr.MAX_CHANNELS:
-            return f"{_values(len(tokens))}; expected 1 to {fr.MAX_CHANNELS}"
-    elif len(tokens) != channels:
-        return f"{_values(len(tokens))}; expected {channels}"
-    for tok in tokens:
-        try:
-            value = float(tok)
-        except ValueError:
-            return f"{tok.decode('ascii')!r} is not a number"
-        if not math.isfinite(value):
-            return f"{tok.decode('ascii')!r} is not a finite number"
-    return None
-
-
-def _values(count: int) -> str:
-    return f"{count} value" if count == 1 else f"{count} values"
-
-
-def _parse_line(line: bytes) -> list[float] | None:
-    """The values of a line already known to hold only legal characters, or None."""
-    try:
-        values = [float(tok) for tok in line.translate(_TO_SPACE).split()]
-    except ValueError:
-        return None
-    return values if all(math.isfinite(v) for v in values) else None
-
-
-def _fromstring(text: bytes, expected: int) -> _Float | None:
-    """Parse whitespace-separated numbers in one C call; None unless exactly `expected`."""
-    if expected == 0:
-        return np.empty(0, dtype=np.float64)
-    try:
-        # numpy raises ValueError on data it cannot read to the end.
-        values = np.fromstring(text, dtype=np.float64, sep=" ")
-    except ValueError:
-        return None
-    return values if values.size == expected else None
-
-
-@dataclass(frozen=True, slots=True)
-class _Layout:
-    """Where the lines of a chunk are and what each is: one entry per complete line."""
-
-    n: int
-    starts: _Int  # first byte of each line
-    cends: _Int  # one past its content (before "\\r\\n" or "\\n")
-    tokens: _Int  # number of tokens
-    comment: _Bool
-    overlong: _Bool
-    blank: _Bool
-    sample: _Bool  # neither comment nor blank: meant as samples
-    legal: _Bool  # a sample line of allowed bytes and length
-
-
-def _layout(data: bytes, size: int, overlong_first: bool) -> _Layout:
-    """The lines of data[:size] found in a few vectorised passes (no loop per byte)."""
-    a = np.frombuffer(data, dtype=np.uint8, count=size)
-    ends: _Int = np.flatnonzero(a == 0x0A)
-    n_lines = ends.size
-    starts: _Int = np.empty(n_lines, dtype=np.int64)
-    starts[0] = 0
-    starts[1:] = ends[:-1] + 1
-    # A "\r" just before the "\n" belongs to the line end.
-    nonempty = ends > starts
-    crlf = np.zeros(n_lines, dtype=np.bool_)
-    crlf[nonempty] = a[ends[nonempty] - 1] == 0x0D
-    cends = ends - crlf
-    lengths = cends - starts
-
-    classes = _CLASS[a]
-    classes[ends[crlf] - 1] = _SEP
-    in_token = classes != _SEP
-    token_start = in_token.copy()
-    token_start[1:] &= ~in_token[:-1]
-    token_pos = np.flatnonzero(token_start)
-    bounds = np.empty(n_lines + 1, dtype=np.int64)
-    bounds[:-1] = starts
-    bounds[-1] = a.size
-    tokens = np.diff(np.searchsorted(token_pos, bounds))
-
-    has_bad = np.zeros(n_lines, dtype=np.bool_)
-    has_bad[np.searchsorted(ends, np.flatnonzero(classes == _BAD))] = True
-
-    first_byte = np.zeros(n_lines, dtype=np.uint8)
-    first_byte[nonempty] = a[starts[nonempty]]
-    comment = (first_byte == 0x23) & (lengths > 0)
-    overlong = lengths > MAX_LINE_BYTES
-    if overlong_first:
-        overlong[0] = True
-    # No token: empty, or spaces and tabs only, is blank; a line of commas is malformed.
-    blank = (tokens == 0) & ~comment & ~overlong
-    for j in np.flatnonzero(blank & (lengths > 0)).tolist():
-        if b"," in data[starts[j] : cends[j]]:
-            blank[j] = False
-    sample = ~(comment | blank)
-    legal = sample & ~overlong & ~has_bad
-    return _Layout(n_lines, starts, cends, tokens, comment, overlong, blank, sample, legal)
 
 
 class TextDecoder:
@@ -264,7 +107,7 @@ class TextDecoder:
         if channels is not None and not 1 <= channels <= fr.MAX_CHANNELS:
             raise ValueError(f"channels = {channels}; allowed 1..{fr.MAX_CHANNELS}")
         if rate_hz is not None:
-            problem = _rate_error(float(rate_hz))
+            problem = rate_error(float(rate_hz))
             if problem is not None:
                 raise ValueError(f"rate_hz: {problem}")
         if not device_id.isascii() or len(device_id) > 16:
@@ -373,7 +216,7 @@ class TextDecoder:
     def _comment(self, line: bytes) -> list[Event]:
         """Events of one comment line (content without its line end)."""
         self.stats.extra["comment_lines"] = self.stats.extra.get("comment_lines", 0) + 1
-        match = _RATE.fullmatch(line) if len(line) <= MAX_LINE_BYTES else None
+        match = RATE_COMMENT.fullmatch(line) if len(line) <= MAX_LINE_BYTES else None
         if match is None:
             return []
         events: list[Event] = []
@@ -384,10 +227,10 @@ class TextDecoder:
         except ValueError:
             self._violation(
                 events,
-                f"rate comment value {text!r} is not a number; allowed {_RANGE}; {keeping}",
+                f"rate comment value {text!r} is not a number; allowed {RATE_RANGE}; {keeping}",
             )
             return events
-        problem = _rate_error(rate)
+        problem = rate_error(rate)
         if problem is not None:
             self._violation(events, f"rate comment {text!r}: {problem}; {keeping}")
             return events
@@ -415,7 +258,7 @@ class TextDecoder:
 
     def _lines(self, data: bytes, size: int, overlong_first: bool, events: list[Event]) -> None:
         """Decode data[:size], complete lines each ending in "\\n" (the rest is ignored)."""
-        lay = _layout(data, size, overlong_first)
+        lay = layout(data, size, overlong_first)
         channels, detect_at = self._channel_count(data, lay)
         if channels is None:
             good = np.zeros(lay.n, dtype=np.bool_)
@@ -443,24 +286,24 @@ class TextDecoder:
             if lay.overlong[j]:
                 return f"longer than {MAX_LINE_BYTES} bytes"
             known = channels if (detect_at < 0 or j > detect_at) else None
-            return _line_fault(data[lay.starts[j] : lay.cends[j]], known) or "unreadable line"
+            return line_fault(data[lay.starts[j] : lay.cends[j]], known) or "unreadable line"
 
         self._emit(events, sample_lines, good[sample_lines], values, barriers, fault)
         self._line_base += lay.n
 
-    def _channel_count(self, data: bytes, lay: _Layout) -> tuple[int | None, int]:
+    def _channel_count(self, data: bytes, lay: Layout) -> tuple[int | None, int]:
         """(channel count, line it was found on): configured (line -1), or the first line
         that parses; (None, -1) while no line has."""
         if self._channels is not None:
             return self._channels, -1
         fit = lay.legal & (lay.tokens >= 1) & (lay.tokens <= fr.MAX_CHANNELS)
         for j in np.flatnonzero(fit).tolist():
-            if _parse_line(data[lay.starts[j] : lay.cends[j]]) is not None:
+            if parse_line(data[lay.starts[j] : lay.cends[j]]) is not None:
                 return int(lay.tokens[j]), j
         return None, -1
 
     def _barriers(
-        self, data: bytes, lay: _Layout, good: _Bool, channels: int | None, sample_lines: _Int
+        self, data: bytes, lay: Layout, good: Bool, channels: int | None, sample_lines: Int
     ) -> list[tuple[int, list[Event]]]:
         """Events at their line: comments and the first good line of the stream may emit
         some; they are placed between the sample runs."""
@@ -486,12 +329,12 @@ class TextDecoder:
     def _parse(
         self,
         data: bytes,
-        starts: _Int,
-        cends: _Int,
-        good: _Bool,
-        tokens: _Int,
+        starts: Int,
+        cends: Int,
+        good: Bool,
+        tokens: Int,
         channels: int,
-    ) -> tuple[_Float, _Bool]:
+    ) -> tuple[Float, Bool]:
         """Values (n_good, channels) of the good lines and which of them really parsed.
 
         Lines are parsed in groups of _GROUP_LINES, each group in one C call on the
@@ -507,7 +350,7 @@ class TextDecoder:
         n_good = int(good_before[-1])
         values = np.empty((n_good, channels), dtype=np.float64)
         ok = np.ones(n_good, dtype=np.bool_)
-        spaced = data.translate(_TO_SPACE)  # one byte for one byte: offsets still hold
+        spaced = data.translate(TO_SPACE)  # one byte for one byte: offsets still hold
         joinable = good | (tokens == 0)
 
         def text_of(lo: int, hi: int) -> bytes:
@@ -522,14 +365,14 @@ class TextDecoder:
                 k0, k1 = int(good_before[g_lo]), int(good_before[g_hi])
                 if k0 == k1:
                     continue
-                part = _fromstring(text_of(g_lo, g_hi), (k1 - k0) * channels)
+                part = parse_numbers(text_of(g_lo, g_hi), (k1 - k0) * channels)
                 if part is not None:
                     values[k0:k1] = part.reshape(-1, channels)
                 elif step > _SMALL_GROUP_LINES:
                     parse(g_lo, g_hi, _SMALL_GROUP_LINES)
                 else:
                     for j in (np.flatnonzero(good[g_lo:g_hi]) + g_lo).tolist():
-                        row = _parse_line(data[int(starts[j]) : int(cends[j])])
+                        row = parse_line(data[int(starts[j]) : int(cends[j])])
                         k = int(good_before[j])
                         if row is None:
                             ok[k] = False
@@ -543,9 +386,9 @@ class TextDecoder:
     def _emit(
         self,
         events: list[Event],
-        sample_lines: _Int,
-        good: _Bool,
-        values: _Float,
+        sample_lines: Int,
+        good: Bool,
+        values: Float,
         barriers: list[tuple[int, list[Event]]],
         fault: _FaultFn,
     ) -> None:
@@ -582,7 +425,7 @@ class TextDecoder:
         self._next_index = base + n
 
     def _malformed(
-        self, events: list[Event], sample_lines: _Int, lo: int, hi: int, fault: _FaultFn
+        self, events: list[Event], sample_lines: Int, lo: int, hi: int, fault: _FaultFn
     ) -> None:
         """Count sample lines lo..hi-1 as malformed; report the rate-limited few."""
         before = self.stats.malformed_lines
@@ -594,38 +437,3 @@ class TextDecoder:
         for o in ordinals:
             j = int(sample_lines[lo + o - before - 1])
             events.append(MalformedLine(self._line_base + j + 1, fault(j)))
-
-
-def format_lines(volts: npt.ArrayLike, decimals: int = 6) -> bytes:
-    """Text lines for the sample frames in `volts`, the input format this module reads.
-
-    volts: (channels, n) finite values in volts. Each line holds one sample
-    frame, the channel values in fixed point with `decimals` digits after the
-    point, comma-separated, ended by "\\n". The decimal strings are correctly
-    rounded (Python's float formatting).
-    """
-    arr = np.asarray(volts, dtype=np.float64)
-    if arr.ndim != 2 or arr.shape[0] < 1:
-        raise ValueError(f"volts must be (channels, n) with channels >= 1; got shape {arr.shape}")
-    if not 0 <= decimals <= 20:
-        raise ValueError(f"decimals = {decimals}; allowed 0..20")
-    if not np.isfinite(arr).all():
-        raise ValueError("volts holds NaN or infinite values, which the text format cannot carry")
-    row = ",".join([f"%.{decimals}f"] * arr.shape[0]) + "\n"
-    frames = np.ascontiguousarray(arr.T)
-    step = 65536  # rows per formatting call, to bound the temporary strings
-    parts = [
-        ((row * len(block)) % tuple(block.ravel().tolist())).encode("ascii")
-        for block in (frames[i : i + step] for i in range(0, frames.shape[0], step))
-    ]
-    return b"".join(parts)
-
-
-def rate_comment(rate_hz: float) -> bytes:
-    """The comment line `# rate=<Hz>\\n` announcing `rate_hz` (1 Hz to 1 MHz)."""
-    rate = float(rate_hz)
-    problem = _rate_error(rate)
-    if problem is not None:
-        raise ValueError(problem)
-    text = str(int(rate)) if rate.is_integer() else repr(rate)
-    return f"# rate={text}\n".encode("ascii")
