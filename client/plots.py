@@ -6,7 +6,7 @@ Entry point: ``write_plots(data, result, folder) -> list[Path]`` writes
   |H1| in dB re 1 (m/s²)/N, the phase of H1 in degrees, and the coherence, one curve per
   response, from 0 Hz to twice the top of the check's analysis band (shaded). One file
   per point keeps each small and lets a reader open just the point that was flagged.
-* ``shape-<n>-<freq>Hz.png``, one per peak of the check (`client/check.py`): the
+* ``shape-<n>-<freq>Hz.png``, one per peak of the check (`client/check/`): the
   deflection shape (Im H1 at the peak line, largest = 1) over the grid's x, y
   coordinates, colour and marker size by value, each point labelled.
 

@@ -15,7 +15,7 @@ TRACE_BUCKETS = 256  # min/max pairs per trace
 SPECTRUM_POINTS = 512  # lines per spectrum
 # The force band ends where Gff first falls this far below its low-frequency level, the
 # median over the lowest LOW_SHARE of the lines above 0 Hz (at least 4 lines): the same rule
-# as the workstation's quick-look check (client/check.py), so the phone shows the band the
+# as the workstation's quick-look check (client/check/), so the phone shows the band the
 # check will judge. Judging an FRF only within 10 to 20 dB of the hammer's low-frequency
 # level is common practice; 10 dB is the stricter end.
 FORCE_DROP_DB = 10.0

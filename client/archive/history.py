@@ -3,7 +3,7 @@
 A shop that tests the same part every day wants to see its resonances move (a crack, a
 loose bolt, a change of supplier lowers or splits a peak). `trend` takes every archived
 test of a part type (see `store.part_of`), oldest first, runs the quick-look check
-(client/check.py: peaks of the summed FRF with its prominence rule) on each, and follows
+(client/check/: peaks of the summed FRF with its prominence rule) on each, and follows
 each peak of the first test through the others: the nearest peak within `tolerance` (a
 fraction of the frequency) is the same mode, else the mode is missing (NaN) in that test.
 """

@@ -9,7 +9,7 @@ order. Two sources fill it:
   mac (M, M), flags (M lists of short codes) and stabilization (per model order: order,
   freq_hz, damping or damping_ratio, stable).
 * `from_peaks(data)`, the stand-in while no fit exists: the quick-look check's peaks
-  (client/check.py), deflection shapes from Im H1. It is labelled as peaks, never as a fit,
+  (client/check/), deflection shapes from Im H1. It is labelled as peaks, never as a fit,
   and has no stabilization poles; its MPC is NaN (a real shape's MPC is 1 by definition).
 
 Numbers: MAC (Allemang & Brown, "A correlation coefficient for modal vector analysis",

@@ -146,7 +146,7 @@ def test_trend_follows_each_peak_of_a_part_type_over_time(
     """Three daily tests of one panel whose natural frequencies drop 1 % a day (a part
     softening). Truth: the demo panel's Kirchhoff plate frequencies (Leissa, Vibration of
     Plates, 1969, simply supported rectangle) scaled by 1.00, 0.99, 0.98; the check finds
-    peaks within 1 % (client/check.py's documented accuracy), so the trend must show each
+    peaks within 1 % (client/check/'s documented accuracy), so the trend must show each
     first-day peak at scale × f within 1 % and a drift of -2 % ± 1 %."""
     (served,) = rigs(1)
     scales = (1.0, 0.99, 0.98)
