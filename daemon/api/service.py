@@ -18,7 +18,7 @@ import functools
 import logging
 import math
 from collections.abc import Awaitable, Callable, Sequence
-from typing import TYPE_CHECKING, Final
+from typing import TYPE_CHECKING, Any, Final
 
 from aiohttp import web
 
@@ -371,20 +371,22 @@ class Service:
         sensors: dict[str, str | tuple[str, str]] = dict(body.get("sensor_points", {}))
         for label, where in body.get("sensors", {}).items():
             sensors[label] = (where["at"], where.get("direction", "+z"))
-        if mode is RovingMode.HAMMER:
-            try:
-                placement.test_places(self.running.config.response_channels, sensors, grid,
-                                      reference)  # fmt: skip
-            except ValueError as exc:
-                raise invalid(f"body.sensors: {exc}") from None
         name = body["name"]
-        await asyncio.to_thread(  # AlreadyExists: 409
-            self.rig.create_test, name, grid, mode, reference, body.get("averages"), sensors,
-            outline,
-        )  # fmt: skip
+
+        def made() -> dict[str, Any]:  # up to 4,096 points again: off the loop
+            if mode is RovingMode.HAMMER:
+                try:
+                    placement.test_places(self.running.config.response_channels, sensors, grid,
+                                          reference)  # fmt: skip
+                except ValueError as exc:
+                    raise invalid(f"body.sensors: {exc}") from None
+            self.rig.create_test(name, grid, mode, reference, body.get("averages"), sensors,
+                                 outline)  # AlreadyExists: 409  # fmt: skip
+            return test_obj(self.store.get_test(name))
+
+        obj = await asyncio.to_thread(made)
         self._feed.wake()
-        plan = await asyncio.to_thread(self.store.get_test, name)
-        return 201, test_obj(plan), {"Location": f"{PREFIX}/tests/{name}"}
+        return 201, obj, {"Location": f"{PREFIX}/tests/{name}"}
 
     async def _on_session(self, call: Call) -> web.StreamResponse:
         action = call.route.action
