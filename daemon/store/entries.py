@@ -1,4 +1,5 @@
-"""What the store hands back besides point sets: a stored test, a change, its stats."""
+"""What the store hands back besides point sets (a stored test, a change, its stats) and the
+shape of the wire-body encoder it is given."""
 
 from __future__ import annotations
 
