@@ -28,10 +28,11 @@ from typing import Any
 import numpy as np
 import pytest
 
-from taprig.daemon import store as store_mod
 from taprig.daemon.errors import AlreadyExists, DiskFullError, NotFound, StoreError
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 from taprig.daemon.store import Store
+from taprig.daemon.store import tables as store_tables
+from taprig.daemon.store import writer as store_writer
 from taprig.schema import pointset
 
 GRID = [GridPoint(f"P{i}", 0.1 * i, 0.0, 0.0) for i in range(1, 5)]
@@ -219,7 +220,7 @@ def _bad_third_hit(ps: PointSet, monkeypatch: pytest.MonkeyPatch) -> PointSet:
 
 
 def _insert_fails_after_two_hits(ps: PointSet, monkeypatch: pytest.MonkeyPatch) -> PointSet:
-    real = store_mod._hit_rows
+    real = store_writer._hit_rows
 
     def failing(point_set_id: int, hits: Any) -> Any:
         rows = real(point_set_id, hits)
@@ -227,7 +228,7 @@ def _insert_fails_after_two_hits(ps: PointSet, monkeypatch: pytest.MonkeyPatch) 
         yield next(rows)
         raise sqlite3.IntegrityError("injected failure after two hit rows")
 
-    monkeypatch.setattr(store_mod, "_hit_rows", failing)
+    monkeypatch.setattr(store_writer, "_hit_rows", failing)
     return ps
 
 
@@ -451,11 +452,11 @@ def _user_version(path: Path) -> int:
 
 
 def test_version_0_database_is_migrated(tmp_path: Path) -> None:
-    path = tmp_path / store_mod.FILE_NAME
+    path = tmp_path / store_tables.FILE_NAME
     _raw_db(path, "CREATE TABLE notes (t TEXT)", "INSERT INTO notes VALUES ('kept')")
     assert _user_version(path) == 0
     with Store(tmp_path) as s:
-        assert s.stats().schema_version == len(store_mod.MIGRATIONS) == 2
+        assert s.stats().schema_version == len(store_tables.MIGRATIONS) == 2
         assert s.last_seq() == 0 and s.list_tests() == []
     raw = sqlite3.connect(path)
     assert raw.execute("SELECT t FROM notes").fetchall() == [("kept",)]
@@ -470,36 +471,36 @@ def test_failed_migration_is_rolled_back(tmp_path: Path, monkeypatch: pytest.Mon
         conn.execute("CREATE TABLE half_done (x)")
         raise sqlite3.OperationalError("injected migration failure")
 
-    monkeypatch.setattr(store_mod, "MIGRATIONS", [*store_mod.MIGRATIONS, bad])
+    monkeypatch.setattr(store_tables, "MIGRATIONS", [*store_tables.MIGRATIONS, bad])
     with pytest.raises(StoreError, match="injected migration failure"):
         Store(tmp_path)
-    path = tmp_path / store_mod.FILE_NAME
-    known = len(store_mod.MIGRATIONS) - 1  # every migration but the failing one
+    path = tmp_path / store_tables.FILE_NAME
+    known = len(store_tables.MIGRATIONS) - 1  # every migration but the failing one
     assert _user_version(path) == known
     raw = sqlite3.connect(path)
     assert raw.execute("SELECT name FROM sqlite_master WHERE name = 'half_done'").fetchall() == []
     raw.close()
     monkeypatch.setattr(
-        store_mod,
+        store_tables,
         "MIGRATIONS",
-        [*store_mod.MIGRATIONS[:known], lambda c: c.execute("CREATE TABLE later (x)")],
+        [*store_tables.MIGRATIONS[:known], lambda c: c.execute("CREATE TABLE later (x)")],
     )
     Store(tmp_path).close()
     assert _user_version(path) == known + 1
 
 
 def test_newer_database_is_refused_untouched(tmp_path: Path) -> None:
-    path = tmp_path / store_mod.FILE_NAME
+    path = tmp_path / store_tables.FILE_NAME
     _raw_db(path, "PRAGMA user_version = 99")
     with pytest.raises(StoreError) as err:
         Store(tmp_path)
-    known = f"version {len(store_mod.MIGRATIONS)}"
+    known = f"version {len(store_tables.MIGRATIONS)}"
     assert "99" in str(err.value) and known in str(err.value) and str(path) in str(err.value)
     assert _user_version(path) == 99
 
 
 def test_non_sqlite_file_is_refused(tmp_path: Path) -> None:
-    path = tmp_path / store_mod.FILE_NAME
+    path = tmp_path / store_tables.FILE_NAME
     path.write_bytes(b"this is a CSV export, not a database\n" * 200)
     with pytest.raises(StoreError, match="not an SQLite database") as err:
         Store(tmp_path)
