@@ -30,8 +30,6 @@ LONG_MODULES = {
     "reads and migrations are still one module",
     "client/check.py": "client/ takes import changes only on this branch",
     "firmware_protocol/text.py": "the text decoder; not split yet",
-    "firmware_protocol/simpiece/instrument.py": "the simulated device; not split yet",
-    "firmware_protocol/simpiece/synth.py": "the synthesiser; not split yet",
 }
 # Runtime dependencies no installed module imports yet, each with its reason.
 NOT_YET_IMPORTED = {}
