@@ -25,9 +25,6 @@ LONG_MODULES = {
     # One physical model with its closed-form checks; split, its formulas would be read apart
     # from the plate theory they come from.
     "firmware_protocol/simpiece/modal.py": "the simulated test piece's model",
-    # Not split on this branch; each is a step of its own (see DEVELOPERS.md, "Still long").
-    "firmware_protocol/simpiece/instrument.py": "the simulated device; not split yet",
-    "firmware_protocol/simpiece/synth.py": "the synthesiser; not split yet",
 }
 # Runtime dependencies no installed module imports yet, each with its reason.
 NOT_YET_IMPORTED = {}
