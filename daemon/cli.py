@@ -219,9 +219,9 @@ SensorAtOption = Annotated[
     list[str] | None,
     typer.Option(
         "--sensor-at",
-        help="hammer mode, a new test: where a response sensor sits, LABEL=WHERE[/DIR]: "
+        help="hammer mode, a new test: where a response sensor sits, LABEL=WHERE\\[/DIR]: "
         "a grid label or x,y,z in metres, then +x..-z or a vector (default +z); e.g. "
-        "acc1=B3/+z; once per sensor (the [[channels]] location is the default)",
+        "acc1=B3/+z; once per sensor (the \\[\\[channels]] location is the default)",
     ),
 ]
 SimSpeedOption = Annotated[
