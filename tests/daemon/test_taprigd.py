@@ -48,6 +48,15 @@ def served_at(proc: subprocess.Popen[bytes], log: Path) -> str:
     return m.group(1)
 
 
+def wait_for_run_file(proc: subprocess.Popen[bytes], log: Path, run_file: Path) -> None:
+    """Poll (deadline 30 s) until taprigd has written its run file; fail if it exits first."""
+    deadline = time.monotonic() + 30
+    while not run_file.exists():
+        assert proc.poll() is None, log.read_text()
+        assert time.monotonic() < deadline, "run.json never appeared"
+        time.sleep(0.05)
+
+
 def test_run_serves_on_loopback_and_stops_on_sigterm(tmp_path: Path) -> None:
     proc, log = start(tmp_path, "--test", "shop-1")
     try:
@@ -75,11 +84,7 @@ def test_run_file_names_the_port_and_the_sim_control(tmp_path: Path) -> None:
     proc, log = start(tmp_path, "--test", "shop-2", "--sim-control", "0")
     run_file = tmp_path / "run.json"
     try:
-        deadline = time.monotonic() + 30
-        while not run_file.exists():
-            assert proc.poll() is None, log.read_text()
-            assert time.monotonic() < deadline, "run.json never appeared"
-            time.sleep(0.05)
+        wait_for_run_file(proc, log, run_file)
         record = json.loads(run_file.read_text())
         assert record["pid"] == proc.pid and record["bind"] == "127.0.0.1"
         assert get(f"http://127.0.0.1:{record['port']}/v1/info")[0] == 200
@@ -117,11 +122,7 @@ def test_pair_prints_where_the_running_daemon_listens(tmp_path: Path) -> None:
         )  # fmt: skip
     run_file = tmp_path / "run.json"
     try:
-        deadline = time.monotonic() + 30
-        while not run_file.exists():
-            assert proc.poll() is None, log.read_text()
-            assert time.monotonic() < deadline, "run.json never appeared"
-            time.sleep(0.05)
+        wait_for_run_file(proc, log, run_file)
         port = json.loads(run_file.read_text())["port"]
         assert port != 8470
         # The configuration pair reads says 8470 and every address; the run file wins.
