@@ -12,6 +12,7 @@ import json
 import logging
 import signal
 import tempfile
+import threading
 from enum import StrEnum
 from pathlib import Path
 from typing import TYPE_CHECKING, Annotated, Any
@@ -228,7 +229,16 @@ def watch(
     """Follow the rig: pull each point set as it completes, until interrupted."""
     from .pull import watch as follow
 
-    signal.signal(signal.SIGTERM, _interrupt)  # stop as Ctrl-C does, even mid long-poll
+    stopping = threading.Event()
+
+    def interrupt(signum: int, frame: object) -> None:
+        # The flag stops the loop at its next turn even if the KeyboardInterrupt, raised at
+        # whatever line the main thread is on, lands in a destructor and is swallowed there.
+        stopping.set()
+        raise KeyboardInterrupt
+
+    signal.signal(signal.SIGTERM, interrupt)  # stop as Ctrl-C does, even mid long-poll
+    signal.signal(signal.SIGINT, interrupt)
 
     def on_pull(report: PullReport) -> None:
         for s in report.new:
@@ -246,11 +256,7 @@ def watch(
             if not as_json:
                 typer.echo(f"following {paired.name} at {paired.url}; Ctrl-C to stop")
             with contextlib.suppress(KeyboardInterrupt):
-                follow(client, mirror, on_pull, lambda: False, with_hits=raw_hits)
-
-
-def _interrupt(signum: int, frame: object) -> None:
-    raise KeyboardInterrupt
+                follow(client, mirror, on_pull, stopping.is_set, with_hits=raw_hits)
 
 
 # ---------------------------------------------------------------- the mirror, offline

@@ -11,6 +11,11 @@ callback itself did, not what a loaded machine did to it:
   run also keeps a thread off the CPU, but in many short waits (the interpreter hands the
   GIL over every 5 ms), so a callback merely slowed by its neighbours is not counted.
 
+A garbage collection that happens to fall inside a callback is not the callback's doing: its
+length follows the size of the whole test process's heap (hundreds of tests' objects, numpy,
+scipy, matplotlib), not of the daemon's. Collections are timed through `gc.callbacks` and their
+time is taken off both figures, and named in the verdict.
+
 CPU time, run-queue wait and the number of slices come from Linux's per-thread scheduler
 statistics, ``/proc/thread-self/schedstat`` (Documentation/scheduler/sched-stats.rst in the
 kernel sources: time on the cpu and time waiting on a runqueue, in ns; timeslices run).
@@ -19,6 +24,7 @@ kernel sources: time on the cpu and time waiting on a runqueue, in ns; timeslice
 from __future__ import annotations
 
 import asyncio
+import gc
 import os
 import threading
 import time
@@ -58,25 +64,48 @@ def _stat() -> _StatFile:
     return stat
 
 
+def _gc_seconds() -> float:
+    """Seconds this thread has spent in garbage collections so far."""
+    return float(getattr(_local, "gc_s", 0.0))
+
+
+def _on_gc(phase: str, _info: dict[str, Any]) -> None:
+    """gc.callbacks hook: adds each collection's wall time to its thread's running total."""
+    now = time.perf_counter()
+    if phase == "start":
+        _local.gc_t0 = now
+    else:
+        _local.gc_s = _gc_seconds() + now - getattr(_local, "gc_t0", now)
+
+
 def _timed_run(self: asyncio.Handle) -> None:
     stat = _stat()
-    before, t0 = stat.read(), time.perf_counter()
+    before, t0, gc0 = stat.read(), time.perf_counter(), _gc_seconds()
     try:
         _original_run(self)
     finally:
         wall = time.perf_counter() - t0
         if wall > LIMIT_S:  # only then is the second read worth it
-            verdict = held(wall, before, stat.read())
+            verdict = held(wall, before, stat.read(), _gc_seconds() - gc0)
             if verdict:
                 with _lock:
                     slow.append(f"{self!r} {verdict}")
 
 
-def held(wall: float, before: tuple[float, float, int], after: tuple[float, float, int]) -> str:
+def held(
+    wall: float,
+    before: tuple[float, float, int],
+    after: tuple[float, float, int],
+    collecting: float = 0.0,
+) -> str:
     """Why a callback of `wall` seconds held its loop, or "" if it did not (module docstring);
-    `before` and `after` are `_StatFile.read()` around it."""
+    `before` and `after` are `_StatFile.read()` around it, `collecting` the seconds spent in
+    garbage collections meanwhile, which do not count against the callback."""
     cpu, queued, slices = (a - b for a, b in zip(after, before, strict=True))
     waited = wall - queued - cpu
+    gc_cpu = min(collecting, cpu)  # a collection computes; what is left of it was queueing
+    cpu -= gc_cpu
+    waited = max(0.0, waited - (collecting - gc_cpu))
     if cpu > LIMIT_S:
         return f"computed {cpu * 1e3:.0f} ms (wall {wall * 1e3:.0f} ms)"
     if cpu + waited > LIMIT_S and slices <= BLOCKING_SLICES:
@@ -91,3 +120,4 @@ def install() -> None:
         raise RuntimeError(f"{_SCHEDSTAT} is missing: the event-loop guard needs Linux schedstat")
     handle: Any = asyncio.events.Handle
     handle._run = _timed_run
+    gc.callbacks.append(_on_gc)

@@ -4,6 +4,7 @@ must not count a short one."""
 from __future__ import annotations
 
 import asyncio
+import gc
 import threading
 import time
 
@@ -53,3 +54,20 @@ def test_time_lost_to_the_machine_or_to_neighbour_threads_is_not_counted() -> No
 
 def test_a_short_callback_passes() -> None:
     assert _run(lambda: threading.Event().wait(0.01)) == []
+
+
+def test_a_garbage_collection_inside_a_callback_is_not_the_callback_s_doing() -> None:
+    """A collection's length follows the whole test process's heap, so its time is taken off:
+    150 ms computed, 140 of them collecting, leaves 10 ms; without the collection it counts."""
+    start = (1.0, 1.0, 100)
+    assert loopguard.held(0.16, start, (1.150, 1.0, 140), collecting=0.140) == ""
+    assert "computed" in loopguard.held(0.16, start, (1.150, 1.0, 140), collecting=0.010)
+
+
+def test_collections_are_timed_per_thread() -> None:
+    """The gc.callbacks hook adds a real collection's time to this thread's total."""
+    junk = [[i] for i in range(200_000)]  # enough tracked objects for a measurable collection
+    before = loopguard._gc_seconds()
+    gc.collect()
+    assert loopguard._gc_seconds() > before
+    del junk
