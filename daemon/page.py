@@ -30,6 +30,7 @@ FILES: Final[dict[str, str]] = {
     "link.js": "text/javascript; charset=utf-8",
     "plot.js": "text/javascript; charset=utf-8",
     "grid.js": "text/javascript; charset=utf-8",
+    "maker.js": "text/javascript; charset=utf-8",
     "icon.svg": "image/svg+xml",
 }
 # Scripts, styles and connections only from the rig; no inline script; no framing.

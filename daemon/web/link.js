@@ -63,21 +63,24 @@ export class Rig {
     return r.json();
   }
 
+  /** POST /v1/session/<action>; see post. */
+  command(action, fields = {}) { return this.post(`/v1/session/${action}`, fields); }
+
   /**
-   * POST /v1/session/<action> with one request id for every try: if the answer is lost
+   * POST `fields` to `path` with one request id for every try: if the answer is lost
    * (Wi-Fi drops after the rig acted), the retry gets the first answer and the rig acts once.
    * Returns {ok, status, body}.
    */
-  async command(action, fields = {}) {
+  async post(path, fields = {}) {
     const body = JSON.stringify({ request_id: newRequestId(), ...fields });
     const deadline = performance.now() + COMMAND_TRIES_MS;
     for (let pause = 250; ; pause = Math.min(pause * 2, 2000)) {
       try {
-        const r = await fetch(`/v1/session/${action}`, {
+        const r = await fetch(path, {
           method: "POST", body, cache: "no-store", signal: AbortSignal.timeout(5000),
           headers: this.headers({ "Content-Type": "application/json" }),
         });
-        if (r.status === 401) { this.onUnauthorized(); throw new Unauthorized(action); }
+        if (r.status === 401) { this.onUnauthorized(); throw new Unauthorized(path); }
         if (r.status === 502 || r.status === 504) throw new Error(`HTTP ${r.status}`);
         return { ok: r.ok, status: r.status, body: await r.json() };
       } catch (e) {

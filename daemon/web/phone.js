@@ -5,6 +5,7 @@
 import { EventStream, Rig, forgetToken, saveToken, takeTokenFromAddress, tokenFrom } from "./link.js";
 import { COLOURS, blank, extent, plot } from "./plot.js";
 import { drawGrid } from "./grid.js";
+import { copyTest, openMaker, wireMaker } from "./maker.js";
 
 const $ = (id) => document.getElementById(id);
 const CONFIRM_MS = 3000; // a second tap within this confirms an action that drops averages
@@ -289,13 +290,31 @@ function render() {
 // point: ask for the places rather than let the taps pile up.
 function renderPlaces() {
   const unplaced = (model.state && model.state.sensors_missing) || [];
-  const el = $("places");
-  el.hidden = unplaced.length === 0;
-  el.textContent = unplaced.length === 0 ? "" :
+  $("places").hidden = unplaced.length === 0;
+  $("places-text").textContent = unplaced.length === 0 ? "" :
     `Where ${unplaced.length > 1 ? "do" : "does"} ${unplaced.join(", ")} sit? This test does ` +
     "not know, so no tap can be matched to its driving point. Make the test again with each " +
-    `sensor's place, e.g. taprigd run --sensor-at ${unplaced[0]}=B3/+z, or location in ` +
-    "its [[channels]] table.";
+    "sensor's place: here (below, the same grid filled in), or on the rig with " +
+    `taprigd run --sensor-at ${unplaced[0]}=B3/+z, or location in its [[channels]] table.`;
+}
+
+/** The new-test form; `from`: a stored test whose grid it starts from. */
+async function newTest(from = null) {
+  if (!rig) return;
+  $("tests").close();
+  if (from) {
+    const t = await rig.get(`/v1/tests/${encodeURIComponent(from)}`).catch(() => null);
+    if (t) copyTest(t);
+  }
+  openMaker(rig, (model.state && model.state.channels) || [], async (name) => {
+    // A new test waits to be armed: its sensors may still be going on, and a stray tap
+    // meanwhile must not count at its first point.
+    if (model.session && model.session.armed) await act("disarm");
+    await act("select", { test: name });
+    if (model.session && model.session.test === name) {
+      notice(`Test ${name} stored and selected: arm the rig, then tap ${model.session.point}.`);
+    }
+  });
 }
 
 function status(label) {
@@ -526,6 +545,9 @@ function wireControls() {
     });
   }
   $("test-button").addEventListener("click", chooseTest);
+  $("new-test").addEventListener("click", () => newTest());
+  $("places-new").addEventListener("click", () => newTest(model.test));
+  wireMaker();
   $("tests-close").addEventListener("click", () => $("tests").close());
   $("unpair").addEventListener("click", () => { forgetToken(); unpaired(""); });
   $("sound").addEventListener("click", () => setSound(!audio));
