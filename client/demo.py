@@ -23,19 +23,18 @@ import time
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Final
+from typing import Any, Final
 
 from taprig.firmware_protocol.simpiece.control import ControlClient
 
 from .dataset import TestData
+from .demo_pictures import PictureWorker
 from .errors import ClientError
+from .events import EventFeed
 from .mirror import Mirror
 from .pull import PullReport, pull
-from .remote import RigClient, RigError
+from .remote import RigClient
 from .words import count
-
-if TYPE_CHECKING:
-    from .check import CheckResult
 
 TEST_NAME: Final = "demo-panel"
 AVERAGES: Final = 2
@@ -93,12 +92,27 @@ class Hammer:
         self._control.close()
 
 
+@dataclass(slots=True)
+class RigRun:
+    """A running `taprigd run` of the demo: its run.json record and its state folder."""
+
+    proc: subprocess.Popen[bytes]
+    state: Path
+    record: dict[str, Any] = field(default_factory=dict)
+    started: float = 0.0  # time.perf_counter() when the demo started, s
+
+    def stop(self) -> None:
+        """Ask taprigd to stop (SIGTERM) without waiting for it; `rig_process` waits."""
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGTERM)
+
+
 @contextlib.contextmanager
 def rig_process(
     state: Path, truth: Path, log: Path, settings: Sequence[str] = ()
-) -> Iterator[dict[str, Any]]:
-    """settings: more ``section.key=value`` overrides for taprigd."""
-    """`taprigd run` on the simulated test piece, loopback only; yields its run.json record."""
+) -> Iterator[RigRun]:
+    """`taprigd run` on the simulated test piece, loopback only, until the block ends;
+    settings: more ``section.key=value`` overrides."""
     cmd = [
         sys.executable, "-m", "taprig.daemon", "run",
         "--set", f"store.data_dir={state}", "--set", "store.min_free_mb=1",
@@ -120,19 +134,21 @@ def rig_process(
             if time.monotonic() > deadline:
                 raise ClientError(f"taprigd did not start in {START_TIMEOUT_S:g} s")
             time.sleep(0.05)
-        yield json.loads(run_file.read_text())
+        yield RigRun(proc, state, json.loads(run_file.read_text()))
     finally:
-        if proc.poll() is None:
-            proc.send_signal(signal.SIGTERM)
-            try:
-                proc.wait(timeout=20)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait()
+        RigRun(proc, state).stop()
+        try:
+            proc.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
 
 
-def operate(rig: RigClient, hammer: Hammer, truth: dict[str, Any], say: Say) -> DemoResult:
-    """The simulated operator: one roving-hammer pass over the truth model's grid."""
+def operate(
+    rig: RigClient, events: EventFeed, hammer: Hammer, truth: dict[str, Any], say: Say
+) -> DemoResult:
+    """The simulated operator: one roving-hammer pass over the truth model's grid, each tap's
+    verdict heard from the rig's event stream."""
     result = DemoResult(Path(), Path(), Path(), Path())
     points: dict[str, list[float]] = truth["points"]
     labels: list[str] = truth.get("grid", list(points))
@@ -159,9 +175,9 @@ def operate(rig: RigClient, hammer: Hammer, truth: dict[str, Any], say: Say) -> 
         if result.taps > 4 * AVERAGES * len(labels):
             raise ClientError(f"{result.taps} taps and the grid is still not done; see the log")
         double = result.taps in DOUBLE_HIT_TAPS
-        last = _strike(rig, hammer, point, double)
+        last = _strike(events, hammer, point, double)
         if not last["accepted"]:
-            reason = "; ".join(str(r["message"]) for r in last["rejections"]) or "rejected"
+            reason = "; ".join(str(message) for _, message in last["rejections"]) or "rejected"
             result.rejected.append((point, reason))
             say(f"   {point}: tap rejected by the rig: {reason}")
     rig.act("disarm")
@@ -179,37 +195,18 @@ def sensor_places(truth: dict[str, Any]) -> dict[str, dict[str, str]]:
     return places
 
 
-def _strike(rig: RigClient, hammer: Hammer, point: str, double: bool) -> dict[str, Any]:
-    """Tap and wait for the rig's verdict; tap again, as an operator who saw nothing happen
-    would, when none comes within TAP_AGAIN_S (a host too busy for the sped-up panel loses
-    samples, and a tap with them). ClientError after HIT_TIMEOUT_S."""
-    before = _last_hit_index(rig)
+def _strike(events: EventFeed, hammer: Hammer, point: str, double: bool) -> dict[str, Any]:
+    """Tap and wait for the rig's verdict (its `hit` event); tap again, as an operator who saw
+    nothing happen would, when none comes within TAP_AGAIN_S (a host too busy for the sped-up
+    panel loses samples, and a tap with them). ClientError after HIT_TIMEOUT_S."""
+    events.drain()  # a late verdict of an earlier tap is not this one's
     deadline = time.monotonic() + HIT_TIMEOUT_S
-    while True:
+    while time.monotonic() < deadline:
         hammer.tap(point, double_hit=double)
-        again = time.monotonic() + TAP_AGAIN_S
-        while (last := _last_hit(rig)) is None or last["first_index"] == before:
-            if time.monotonic() > deadline:
-                raise ClientError(f"the tap at {point} never reached the rig")
-            if time.monotonic() > again:
-                break
-            time.sleep(0.01)
-        else:
-            return last
-
-
-def _last_hit(rig: RigClient) -> dict[str, Any] | None:
-    try:
-        return rig.last_hit()
-    except RigError as exc:
-        if exc.status == 404:  # no hit yet
-            return None
-        raise
-
-
-def _last_hit_index(rig: RigClient) -> int | None:
-    last = _last_hit(rig)
-    return None if last is None else int(last["first_index"])
+        hit = events.next("hit", min(TAP_AGAIN_S, max(0.0, deadline - time.monotonic())))
+        if hit is not None:
+            return hit
+    raise ClientError(f"the tap at {point} never reached the rig")
 
 
 def _wait_for_device(rig: RigClient) -> None:
@@ -239,92 +236,89 @@ def _fit(data: TestData, result: DemoResult, say: Say) -> None:
     say(f"   {result.modes.name}: {count(model.n_modes, 'mode')}")
 
 
-def _mode_pictures(data: TestData, modes: Path, folder: Path) -> list[Path]:
-    """The fitted modes moving (GIF) and their sheet; run in a process of its own."""
-    from .modal import ModalModel
-    from .view.pictures import write_model_pictures
-
-    return write_model_pictures(data, ModalModel.load(modes), folder)
-
-
-def _plots(data: TestData, checked: CheckResult, result: DemoResult, say: Say) -> None:
-    """The FRF and shape PNGs here, the mode GIFs meanwhile in a second process: each is a
-    few seconds of drawing, and a two-core machine draws both at once."""
-    from concurrent.futures import ProcessPoolExecutor
-
-    from .plots import write_plots
-
-    assert result.modes is not None  # the fit ran before the plots
-    folder = result.folder / "plots"
+def _capture(run: RigRun, truth_path: Path, out: Path, say: Say) -> tuple[DemoResult, TestData]:
+    """Steps 2 and 3: the operator's pass over the grid, then the pull into a mirror."""
+    url = f"http://127.0.0.1:{run.record['port']}"
+    token = (run.state / "token").read_text(encoding="ascii").strip()
+    truth = json.loads(truth_path.read_text(encoding="utf-8"))
+    say(f"   serving on {url}/v1; grid of {len(truth.get('grid', truth['points']))} "
+        f"points, {AVERAGES} averages each")  # fmt: skip
+    say("-- 2. a simulated operator drives the roving hammer over HTTP")
+    stages = {"start taprigd": time.perf_counter() - run.started}
+    hammer = Hammer(int(run.record["control_port"]))
     try:
-        with ProcessPoolExecutor(max_workers=1) as pool:
-            gifs = pool.submit(_mode_pictures, data, result.modes, folder)
-            result.plots = write_plots(data, checked, folder)
-            moving = gifs.result()
-        result.plots += moving
-        say(f"   {count(len(result.plots), 'plot')} in {result.folder / 'plots'}, "
-            f"{count(len(moving) - 1, 'mode shape')} moving (GIF), one a sheet of every mode "
-            "(PNG)")  # fmt: skip
+        with RigClient(url, token) as rig:
+            with EventFeed(url, token) as events:
+                result = operate(rig, events, hammer, truth, say)
+            result.stages = stages
+            _lap(stages, "operator", run.started)
+            say(f"   {count(result.taps, 'tap')}, {len(result.rejected)} rejected, "
+                f"point {result.redone} measured again")  # fmt: skip
+            say("-- 3. the workstation pulls the rig into its mirror")
+            mirror_path = out / "mirror" / "demo-rig.sqlite3"
+            with Mirror(mirror_path) as mirror:
+                result.pulled = p = pull(rig, mirror)
+                say(f"   {count(p.point_sets, 'point set')}, {p.bytes / 1e6:.1f} MB verified by "
+                    f"checksum in {p.seconds:.2f} s -> {mirror_path}")  # fmt: skip
+                data = mirror.load(TEST_NAME)
+            _lap(stages, "pull and load", run.started)
+    finally:
+        hammer.close()
+    return result, data
+
+
+def _analyse(data: TestData, result: DemoResult, pictures: PictureWorker | None, say: Say,
+             started: float) -> None:  # fmt: skip
+    """Step 4: the export, the quick-look check, the modal fit and the pictures."""
+    from .check import check, report_text
+    from .export import export
+
+    say("-- 4. export, quick-look check, modal fit and plots")
+    out, stages = result.folder, result.stages
+    result.npz = export(data, out / f"{TEST_NAME}.npz", "npz")
+    checked = check(data)
+    result.check = out / "check.txt"
+    result.check.write_text(report_text(checked), encoding="utf-8")
+    say(f"   {result.npz.name} (for fitting), {result.check.name}, truth.json")
+    _lap(stages, "export and check", started)
+    _fit(data, result, say)
+    _lap(stages, "modal fit", started)
+    if pictures is None or result.modes is None:
+        return
+    try:
+        result.plots = pictures.draw(data, checked, result.modes, out / "plots")
+        gifs = sum(1 for p in result.plots if p.suffix == ".gif")
+        say(f"   {count(len(result.plots), 'plot')} in {out / 'plots'}, {count(gifs, 'mode shape')}"
+            " moving (GIF), one a sheet of every mode (PNG)")  # fmt: skip
     except ClientError as exc:  # matplotlib missing: the rest of the demo stands
         say(f"   no plots: {exc}")
+    _lap(stages, "plots", started)
 
 
 def run_demo(out: Path, say: Say, plots: bool = True) -> DemoResult:
-    """The whole demo; files in `out` (created). Raises ClientError when a stage fails."""
+    """The whole demo; files in `out` (created). Raises ClientError when a stage fails.
+
+    taprigd is told to stop as soon as the pull is done and shuts down while the workstation
+    works; the picture process starts (and imports) at once, while the operator taps."""
     started = time.perf_counter()
     out.mkdir(parents=True, exist_ok=True)
     truth_path = out / "truth.json"
     state = Path(tempfile.mkdtemp(prefix="taprig-demo-rig-"))
+    pictures = PictureWorker() if plots else None
     try:
         say("-- 1. taprigd on the simulated test piece (a 600 x 400 x 3 mm aluminium panel)")
         say(f"   the simulated panel runs {SPEED:g} times faster than real time, so the taps "
-            "take seconds; a real test runs at the pace of the hammer")
-        with rig_process(state, truth_path, out / "taprigd.log") as record:
-            url = f"http://127.0.0.1:{record['port']}"
-            token = (state / "token").read_text(encoding="ascii").strip()
-            truth = json.loads(truth_path.read_text(encoding="utf-8"))
-            say(f"   serving on {url}/v1; grid of {len(truth.get('grid', truth['points']))} "
-                f"points, {AVERAGES} averages each")  # fmt: skip
-            say("-- 2. a simulated operator drives the roving hammer over HTTP")
-            hammer = Hammer(int(record["control_port"]))
-            stages = {"start taprigd": time.perf_counter() - started}
-            try:
-                with RigClient(url, token) as rig:
-                    result = operate(rig, hammer, truth, say)
-                    result.stages = stages
-                    _lap(stages, "operator", started)
-                    say(f"   {count(result.taps, 'tap')}, {len(result.rejected)} rejected, "
-                        f"point {result.redone} measured again")  # fmt: skip
-                    say("-- 3. the workstation pulls the rig into its mirror")
-                    mirror_path = out / "mirror" / "demo-rig.sqlite3"
-                    with Mirror(mirror_path) as mirror:
-                        result.pulled = pull(rig, mirror)
-                        p = result.pulled
-                        say(f"   {count(p.point_sets, 'point set')}, {p.bytes / 1e6:.1f} MB "
-                            f"verified by checksum in {p.seconds:.2f} s -> "
-                            f"{mirror_path}")  # fmt: skip
-                        data = mirror.load(TEST_NAME)
-                    _lap(stages, "pull and load", started)
-            finally:
-                hammer.close()
-        _lap(stages, "stop taprigd", started)
-        result.folder, result.truth = out, truth_path
-        say("-- 4. export, quick-look check, modal fit and plots")
-        from .check import check, report_text
-        from .export import export
-
-        result.npz = export(data, out / f"{TEST_NAME}.npz", "npz")
-        checked = check(data)
-        result.check = out / "check.txt"
-        result.check.write_text(report_text(checked), encoding="utf-8")
-        say(f"   {result.npz.name} (for fitting), {result.check.name}, truth.json")
-        _lap(stages, "export and check", started)
-        _fit(data, result, say)
-        _lap(stages, "modal fit", started)
-        if plots:
-            _plots(data, checked, result, say)
-            _lap(stages, "plots", started)
+            "take seconds; a real test runs at the pace of the hammer")  # fmt: skip
+        with rig_process(state, truth_path, out / "taprigd.log") as run:
+            run.started = started
+            result, data = _capture(run, truth_path, out, say)
+            run.stop()
+            result.folder, result.truth = out, truth_path
+            _analyse(data, result, pictures, say, started)
+        _lap(result.stages, "stop taprigd", started)
         result.seconds = time.perf_counter() - started
         return result
     finally:
+        if pictures is not None:
+            pictures.close()
         shutil.rmtree(state, ignore_errors=True)

@@ -1,0 +1,73 @@
+"""The demo's pictures drawn on two cores, the drawing parts imported while the operator taps.
+
+A whole test's pictures are seconds of matplotlib work each way: the FRF and shape PNGs
+(client/plots.py) and the mode GIFs with their sheet (client/view/pictures.py). The demo
+draws the GIFs in a second process while this one draws the PNGs and then the sheet, which
+splits the work about evenly between two cores. That process is started, and both import
+what they draw with, when the demo starts: during the taps this process mostly waits for
+the rig, so the imports (about a second of CPU each) come off the end of the demo.
+"""
+
+from __future__ import annotations
+
+import importlib
+import multiprocessing
+import threading
+from concurrent.futures import Future, ProcessPoolExecutor
+from pathlib import Path
+from typing import TYPE_CHECKING, Final
+
+from .dataset import TestData
+
+if TYPE_CHECKING:
+    from .check import CheckResult
+
+DRAWING_MODULES: Final = ("matplotlib.figure", "matplotlib.backends.backend_agg", "PIL.Image")
+
+
+def _warm() -> None:
+    """Import what drawing needs (third-party modules only: the demo's own thread may be
+    importing taprig's modules meanwhile)."""
+    for name in DRAWING_MODULES:
+        try:
+            importlib.import_module(name)
+        except ImportError:
+            return  # no plots extra: the drawing says so when it is asked for
+
+
+def _mode_pictures(data: TestData, modes: Path, folder: Path, gifs: bool) -> list[Path]:
+    """The fitted modes moving (`gifs`: one GIF each) or their sheet (PNG)."""
+    from .modal import ModalModel
+    from .view.pictures import write_model_pictures
+
+    return write_model_pictures(data, ModalModel.load(modes), folder, gifs=gifs, sheet=not gifs)
+
+
+class PictureWorker:
+    """A second process for the mode GIFs, made and warmed at once; `close` when done."""
+
+    def __init__(self) -> None:
+        spawn = multiprocessing.get_context("spawn")  # a fresh interpreter, not a fork with threads
+        self._pool = ProcessPoolExecutor(max_workers=1, mp_context=spawn)
+        self._pool.submit(_warm)
+        self._imports = threading.Thread(target=_warm, name="taprig-demo-imports", daemon=True)
+        self._imports.start()
+
+    def draw(self, data: TestData, checked: CheckResult, modes: Path, folder: Path) -> list[Path]:
+        """Every picture of the demo into `folder`: the FRF and shape PNGs, the mode GIFs
+        (in the second process meanwhile) and the sheet of every mode; in that order.
+        ClientError when matplotlib is missing."""
+        from .plots import write_plots
+
+        gifs: Future[list[Path]] = self._pool.submit(_mode_pictures, data, modes, folder, True)
+        try:
+            self._imports.join()
+            written = write_plots(data, checked, folder)
+            sheet = _mode_pictures(data, modes, folder, False)
+            return [*written, *gifs.result(), *sheet]
+        finally:
+            gifs.cancel()
+
+    def close(self) -> None:
+        """Stop the second process (a drawing still under way is waited for); idempotent."""
+        self._pool.shutdown(wait=True, cancel_futures=True)
