@@ -12,10 +12,11 @@ ratio (%), where the modes come from (a fit, or the quick-look peaks), and the p
 when there are at most `LABELS_UP_TO` points. The fit command can call the same function.
 matplotlib (the ``plots`` extra) is imported only inside these functions, as in plots.py.
 
-Speed: a GIF's titles, colour bar, labels and rest mesh are drawn once; each frame restores
-that background and draws only the moving artists over it (matplotlib's blitting: Agg's
-``copy_from_bbox``/``restore_region`` and ``Axes.draw_artist``), and Pillow writes the
-frames with one palette made from the first (no dithering: flat colours stay flat).
+Speed: one figure serves every mode's GIF. Its colour bar, labels and rest mesh are drawn
+once for all of them, each mode adds its title over that, and each frame restores the
+result and draws only the moving artists over it (matplotlib's blitting: Agg's
+``copy_from_bbox``/``restore_region`` and ``draw_artist``); Pillow writes the frames with
+one palette made from the first (no dithering: flat colours stay flat).
 tests/bench/bench_view.py times it per mode.
 """
 
@@ -62,38 +63,59 @@ def _heading(data: TestData, modes: ModeSet) -> str:
     return f"{data.test} · {date} · modes from {modes.label}"
 
 
+class _Movie:
+    """The figure of the GIFs of one test's modes, made once: titles aside, every mode's
+    picture has the same background (the colour bar, labels and rest mesh), so it is drawn
+    once and each mode only adds its title over it."""
+
+    def __init__(self, data: TestData, modes: ModeSet, geometry: Geometry,
+                 phi: NDArray[np.complex128]) -> None:  # fmt: skip
+        self.data, self.modes, self.geometry = data, modes, geometry
+        self.fig = fig = _figure(6.4, 5.2, fixed=True)
+        fig.set_dpi(DPI)
+        self.ax = ax = fig.add_axes((0.02, 0.02, 0.8, 0.84))
+        bar = fig.add_axes((0.86, 0.2, 0.025, 0.5))
+        self.scene = Scene(ax, geometry, phi, len(geometry.labels) <= LABELS_UP_TO, animated=True)
+        fig.colorbar(self.scene.mappable, cax=bar,
+                     label="displacement along the point's direction, largest = 1")  # fmt: skip
+        self.title = fig.suptitle("", fontsize=8, animated=True)
+        self.canvas = canvas = fig.canvas
+        canvas.draw()  # everything but the title, the moving artists and the labels
+        self.blank = canvas.copy_from_bbox(fig.bbox)  # type: ignore[attr-defined]
+        canvas.get_renderer().clear()  # type: ignore[attr-defined]  # transparent
+        for label in self.scene.labels:  # drawn once, laid over every frame
+            ax.draw_artist(label)
+        self.labels = _rgba(canvas).copy()
+
+    def write(self, phi: NDArray[np.complex128], m: int, path: Path, frames: int) -> Path:
+        """Mode `m` (shape `phi`) through one cycle of `frames` frames, as a GIF at `path`."""
+        from PIL import Image
+
+        self.scene.set_shape(phi)
+        self.title.set_text(f"{_heading(self.data, self.modes)}\n"
+                            f"{_caption(self.data, self.modes, m)} (deflection exaggerated; "
+                            f"structure {self.geometry.size_m:.2f} m across)")  # fmt: skip
+        canvas = self.canvas
+        canvas.restore_region(self.blank)  # type: ignore[attr-defined]
+        self.fig.draw_artist(self.title)
+        background = canvas.copy_from_bbox(self.fig.bbox)  # type: ignore[attr-defined]
+        images = []
+        for k in range(frames):
+            canvas.restore_region(background)  # type: ignore[attr-defined]
+            for artist in self.scene.show(2 * math.pi * k / frames):
+                self.ax.draw_artist(artist)
+            frame = _rgba(canvas)
+            if self.scene.labels:
+                frame = Image.alpha_composite(frame, self.labels)
+            images.append(frame.convert("RGB"))
+        _write_gif(images, path)
+        return path
+
+
 def _gif(data: TestData, modes: ModeSet, geometry: Geometry, phi: NDArray[np.complex128],
          m: int, path: Path, frames: int) -> Path:  # fmt: skip
-    from PIL import Image
-
-    fig = _figure(6.4, 5.2, fixed=True)
-    fig.set_dpi(DPI)
-    ax = fig.add_axes((0.02, 0.02, 0.8, 0.84))
-    bar = fig.add_axes((0.86, 0.2, 0.025, 0.5))
-    scene = Scene(ax, geometry, phi, len(geometry.labels) <= LABELS_UP_TO, animated=True)
-    fig.colorbar(scene.mappable, cax=bar,
-                 label="displacement along the point's direction, largest = 1")  # fmt: skip
-    fig.suptitle(f"{_heading(data, modes)}\n{_caption(data, modes, m)} "
-                 f"(deflection exaggerated; structure {geometry.size_m:.2f} m across)",
-                 fontsize=8)  # fmt: skip
-    canvas = fig.canvas
-    canvas.draw()  # everything but the moving artists and the labels
-    background = canvas.copy_from_bbox(fig.bbox)  # type: ignore[attr-defined]
-    canvas.get_renderer().clear()  # type: ignore[attr-defined]  # transparent
-    for label in scene.labels:  # drawn once, laid over every frame
-        ax.draw_artist(label)
-    labels = _rgba(canvas).copy()
-    images = []
-    for k in range(frames):
-        canvas.restore_region(background)  # type: ignore[attr-defined]
-        for artist in scene.show(2 * math.pi * k / frames):
-            ax.draw_artist(artist)
-        frame = _rgba(canvas)
-        if scene.labels:
-            frame = Image.alpha_composite(frame, labels)
-        images.append(frame.convert("RGB"))
-    _write_gif(images, path)
-    return path
+    """One mode's GIF on a figure of its own (write_mode_pictures shares one)."""
+    return _Movie(data, modes, geometry, phi).write(phi, m, path, frames)
 
 
 def _rgba(canvas: Any) -> Any:
@@ -143,10 +165,11 @@ def write_mode_pictures(data: TestData, modes: ModeSet, geometry: Geometry,
     out = Path(folder)
     out.mkdir(parents=True, exist_ok=True)
     shapes = normalise(spread(modes.shape, modes.point, geometry))
+    movie = _Movie(data, modes, geometry, shapes[0]) if gifs and len(modes) else None
     written = [
-        _gif(data, modes, geometry, shapes[m], m,
-             out / f"mode-{m + 1:02d}-{modes.freq_hz[m]:.0f}Hz.gif", frames)
-        for m in range(len(modes) if gifs else 0)
+        movie.write(shapes[m], m, out / f"mode-{m + 1:02d}-{modes.freq_hz[m]:.0f}Hz.gif",
+                    frames)
+        for m in range(len(modes)) if movie is not None
     ]  # fmt: skip
     if sheet:
         written.append(_sheet(data, modes, geometry, shapes, out / "modes-sheet.png"))

@@ -96,10 +96,9 @@ class Scene:
         from matplotlib.collections import LineCollection, PathCollection
         from matplotlib.path import Path
 
-        self.geometry, self.phi = geometry, phi
+        self.geometry = geometry
         self.centre = geometry.xyz.mean(axis=0)
         self.tri = geometry.triangles
-        self.ends, self.t = nodal_crossings(self.tri, phi.real)
         rest = project(geometry.xyz, self.centre)
         ax.set_axis_off()
         ax.set_aspect("equal")
@@ -132,6 +131,13 @@ class Scene:
                                    fontsize=6, color="0.25", animated=animated)
                        for (x, y, _), label in zip(rest, geometry.labels, strict=True)
                        if labels]  # fmt: skip
+        self.set_shape(phi)
+
+    def set_shape(self, phi: NDArray[np.complex128]) -> None:
+        """Show another shape φ over the same geometry (largest magnitude 1), at phase 0;
+        the artists stay, so a picture of the next mode needs no new figure."""
+        self.phi = phi
+        self.ends, self.t = nodal_crossings(self.tri, phi.real)
         self.show(0.0)
 
     @property
