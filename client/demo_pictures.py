@@ -23,6 +23,7 @@ if TYPE_CHECKING:
     from .check import CheckResult
 
 DRAWING_MODULES: Final = ("matplotlib.figure", "matplotlib.backends.backend_agg", "PIL.Image")
+WORKER_MODULES: Final = ("taprig.client.modal", "taprig.client.view.pictures")
 
 
 def _warm() -> None:
@@ -33,6 +34,14 @@ def _warm() -> None:
             importlib.import_module(name)
         except ImportError:
             return  # no plots extra: the drawing says so when it is asked for
+
+
+def _warm_worker() -> None:
+    """Import what the picture process draws with, taprig's modules as well (nothing else
+    imports in that process meanwhile)."""
+    _warm()
+    for name in WORKER_MODULES:
+        importlib.import_module(name)
 
 
 def _mode_pictures(data: TestData, modes: Path, folder: Path, gifs: bool) -> list[Path]:
@@ -49,7 +58,7 @@ class PictureWorker:
     def __init__(self) -> None:
         spawn = multiprocessing.get_context("spawn")  # a fresh interpreter, not a fork with threads
         self._pool = ProcessPoolExecutor(max_workers=1, mp_context=spawn)
-        self._pool.submit(_warm)
+        self._pool.submit(_warm_worker)
         self._imports = threading.Thread(target=_warm, name="taprig-demo-imports", daemon=True)
         self._imports.start()
 
