@@ -53,7 +53,10 @@ def _mode_pictures(data: TestData, modes: Path, folder: Path, gifs: bool) -> lis
 
 
 class PictureWorker:
-    """A second process for the mode GIFs, made and warmed at once; `close` when done."""
+    """A second process for the mode GIFs, made and warmed at once; `close` when done.
+
+    Started by spawning, so a script that makes one must guard its top level with
+    ``if __name__ == "__main__":`` (the `taprig` command and ``python -m`` do)."""
 
     def __init__(self) -> None:
         spawn = multiprocessing.get_context("spawn")  # a fresh interpreter, not a fork with threads
