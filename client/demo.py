@@ -203,9 +203,11 @@ def _strike(events: EventFeed, hammer: Hammer, point: str, double: bool) -> dict
     deadline = time.monotonic() + HIT_TIMEOUT_S
     while time.monotonic() < deadline:
         hammer.tap(point, double_hit=double)
-        hit = events.next("hit", min(TAP_AGAIN_S, max(0.0, deadline - time.monotonic())))
-        if hit is not None:
-            return hit
+        again = min(time.monotonic() + TAP_AGAIN_S, deadline)
+        while (left := again - time.monotonic()) > 0:
+            hit = events.next("hit", left)
+            if hit is not None and hit["point"] == point:  # not a late one of another point
+                return hit
     raise ClientError(f"the tap at {point} never reached the rig")
 
 
