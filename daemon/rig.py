@@ -230,7 +230,9 @@ class Rig(Owner[RigEvent]):
             for data in stages.opening_bytes(self._decoder, self._enc):
                 self._link.send(data)
         elif change.state is LinkState.STALLED:
-            self._link.reconnect("no data: reopening the device")
+            # Decided where the bytes are seen: this report may be stale (the daemon frozen
+            # while the link process went on reading), and the data may flow again by now.
+            self._link.reconnect("no data: reopening the device", only_if_stalled=True)
 
     def _bytes(self, data: bytes) -> None:
         for ev in self._decoder.feed(data):
