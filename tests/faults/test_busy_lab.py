@@ -35,6 +35,7 @@ def test_capture_loses_nothing_while_a_busy_lab_pulls(tmp_path: Path) -> None:
                "hits": lab.hits, "point_sets": lab.point_sets, "device": device_lines[-20:]}
     assert lab.taps >= 10, summary  # a tap a few seconds at worst: the rig kept answering
     assert lab.link["samples_lost"] == 0 and lab.link["crc_errors"] == 0, summary
+    assert lab.link["dropped_reads"] == 0 and lab.link["reconnects"] == 0, summary
     assert lab.piece["overruns"] == 0 and lab.piece["taps_lost"] == 0, summary
     assert lab.hits == lab.taps == lab.point_sets, summary
     assert lab.lab["errors"] == 0 and lab.lab["listening"] == LISTENERS, summary
