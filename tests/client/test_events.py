@@ -30,6 +30,10 @@ def _readers() -> list[threading.Thread]:
 def test_a_command_and_a_tap_arrive_as_events(served: ServedRig) -> None:
     with RigClient(served.url, served.token) as rig, EventFeed(served.url, served.token) as feed:
         rig.create_test("feed", GRID, averages=2, sensors={"acc1": {"at": "A2"}})
+        deadline = time.monotonic() + 20.0
+        while rig.state().get("device") is None:  # the device identifies itself first
+            assert time.monotonic() < deadline, "the simulated piece never identified itself"
+            time.sleep(0.05)
         rig.act("select", test="feed")
         rig.act("arm")
         cursor = feed.next("cursor", 10.0)
