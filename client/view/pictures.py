@@ -157,28 +157,23 @@ def _sheet(data: TestData, modes: ModeSet, geometry: Geometry, shapes: NDArray[n
 
 
 def write_mode_pictures(data: TestData, modes: ModeSet, geometry: Geometry,
-                        folder: str | Path, frames: int = FRAMES, *, gifs: bool = True,
-                        sheet: bool = True) -> list[Path]:  # fmt: skip
+                        folder: str | Path, frames: int = FRAMES) -> list[Path]:  # fmt: skip
     """Write one GIF per mode (`frames` frames a cycle) and the PNG sheet into `folder`
-    (made if missing); the paths written, GIFs first. `gifs` or `sheet` False leaves that
-    part out (two processes can draw one each)."""
+    (made if missing); the paths written, GIFs first."""
     out = Path(folder)
     out.mkdir(parents=True, exist_ok=True)
     shapes = normalise(spread(modes.shape, modes.point, geometry))
-    movie = _Movie(data, modes, geometry, shapes[0]) if gifs and len(modes) else None
+    movie = _Movie(data, modes, geometry, shapes[0]) if len(modes) else None
     written = [
         movie.write(shapes[m], m, out / f"mode-{m + 1:02d}-{modes.freq_hz[m]:.0f}Hz.gif",
                     frames)
         for m in range(len(modes)) if movie is not None
     ]  # fmt: skip
-    if sheet:
-        written.append(_sheet(data, modes, geometry, shapes, out / "modes-sheet.png"))
+    written.append(_sheet(data, modes, geometry, shapes, out / "modes-sheet.png"))
     return written
 
 
-def write_model_pictures(
-    data: TestData, model: Any, folder: str | Path, *, gifs: bool = True, sheet: bool = True
-) -> list[Path]:
+def write_model_pictures(data: TestData, model: Any, folder: str | Path) -> list[Path]:
     """`write_mode_pictures` of a fitted modal model (client/modal's ModalModel) of `data`,
     on the geometry the model carries (else the test's own: its outline, else its grid)."""
     from .geometry import Geometry as Shape
@@ -186,5 +181,4 @@ def write_model_pictures(
     from .outline import geometry_of
 
     geometry = Shape.from_dict(model.geometry) if model.geometry else geometry_of(data)
-    return write_mode_pictures(data, from_model(model, data), geometry, folder, gifs=gifs,
-                               sheet=sheet)  # fmt: skip
+    return write_mode_pictures(data, from_model(model, data), geometry, folder)
