@@ -56,13 +56,14 @@ def _mode_pictures(data: TestData, modes: Path, folder: Path) -> list[Path]:
 class PictureWorker:
     """A second process for the mode GIFs, made and warmed at once; `close` when done.
 
-    Started by spawning, so a script that makes one must guard its top level with
-    ``if __name__ == "__main__":`` (the `taprig` command and ``python -m`` do)."""
+    The process is forked here, before this one starts a thread of its own, so the fork
+    copies no lock a thread holds (a spawned interpreter would run the caller's main script
+    again, and a script without a ``__main__`` guard would start a second demo)."""
 
     def __init__(self) -> None:
-        spawn = multiprocessing.get_context("spawn")  # a fresh interpreter, not a fork with threads
-        self._pool = ProcessPoolExecutor(max_workers=1, mp_context=spawn)
-        self._pool.submit(_warm_worker)
+        fork = multiprocessing.get_context("fork")
+        self._pool = ProcessPoolExecutor(max_workers=1, mp_context=fork)
+        self._pool.submit(_warm_worker)  # with fork, the process starts within submit
         self._imports = threading.Thread(target=_warm, name="taprig-demo-imports", daemon=True)
         self._imports.start()
 
