@@ -202,8 +202,10 @@ async def until(condition: Callable[[], bool]) -> None:
 
 def store_state(running: RunningRig) -> tuple[int, list[str], dict[str, Any]]:
     """What a refused request must leave as it was: the store and the session (not the link
-    counters, which move with every frame)."""
+    counters, which move with every frame, nor the disk's free space, which other programs
+    move)."""
     session = {k: v for k, v in running.rig.snapshot().items() if k != "link"}
+    session["disk"] = {k: v for k, v in session["disk"].items() if k != "free_mb"}
     return running.store.last_seq(), [t.name for t in running.store.list_tests()], session
 
 
