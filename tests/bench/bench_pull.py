@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import argparse
 import asyncio
+import functools
 import hashlib
 import http.client
 import json
@@ -91,8 +92,11 @@ def blob(rig: RigProcess, hashed: bool) -> int:
     digest = hashlib.sha256()
     total = 0
     try:
-        conn.request("GET", "/bench/blob",
-                     headers={"Authorization": f"Bearer {rig.token}", "Accept": MSGPACK})
+        conn.request(
+            "GET",
+            "/bench/blob",
+            headers={"Authorization": f"Bearer {rig.token}", "Accept": MSGPACK},
+        )
         resp = conn.getresponse()
         assert resp.status == 200, resp.status
         while n := resp.readinto(buf):
@@ -101,7 +105,7 @@ def blob(rig: RigProcess, hashed: bool) -> int:
                 digest.update(buf[:n])
     finally:
         conn.close()
-    return total  # fmt: skip
+    return total
 
 
 def fetched(rig: RigProcess) -> int:
@@ -177,8 +181,8 @@ def run(sets: int = 200, rounds: int = 3) -> list[Row]:
                 assert timed(rig, best["blob+sha"], lambda: blob(rig, True)) == size
                 assert timed(rig, best["pull"], lambda: fetched(rig)) == size
                 assert timed(rig, best["full"], lambda: full_pull(rig, folder)) == size
-                timed(None, best["disk"], lambda: durable_write(folder, size))
-                timed(None, best["sha"], lambda: sha256_alone(size))
+                timed(None, best["disk"], functools.partial(durable_write, folder, size))
+                timed(None, best["sha"], functools.partial(sha256_alone, size))
         finally:
             rig.close()
     return rows_of(best, sets, size)
@@ -194,7 +198,8 @@ def rows_of(best: dict[str, Best], sets: int, size: int) -> list[Row]:
     return [
         ("blob: all bodies as one pre-built response", b.mb_s, "MB/s",
          f"ceiling; nothing checked or kept; {cpu(b)}"),
-        ("blob + SHA-256 as it arrives", bs.mb_s, "MB/s", f"least a verified transfer does; {cpu(bs)}"),
+        ("blob + SHA-256 as it arrives", bs.mb_s, "MB/s",
+         f"least a verified transfer does; {cpu(bs)}"),
         ("pull: fetched, verified, decoded", p.mb_s, "MB/s",
          f"{sets} x GET /v1/points/{{id}} through Prefetch; {cpu(p)}"),
         ("pull / blob", p.mb_s / b.mb_s, "", f"goal >= {GOAL_RATIO:g}"),
