@@ -16,7 +16,7 @@ import logging
 import socket
 import struct
 import time
-from collections.abc import Iterator
+from collections.abc import Awaitable, Callable, Iterator
 from pathlib import Path
 
 import numpy as np
@@ -77,6 +77,18 @@ def get(conn: http.client.HTTPConnection, path: str, token: str) -> http.client.
     return conn.getresponse()
 
 
+async def serving(
+    running: RunningRig, auth: Auth, work: Callable[[Service], Awaitable[None]]
+) -> None:
+    """`work(service)` while the service (no cache of bodies) listens on 127.0.0.1."""
+    service = Service(running, auth, body_cache_bytes=0)
+    await service.async_start()
+    try:
+        await work(service)
+    finally:
+        await service.async_close()
+
+
 def test_a_large_body_arrives_whole(running: RunningRig, tmp_path: Path) -> None:
     """A stored body of about 4 MB arrives byte for byte with its length and its digest,
     twice on one kept-alive connection."""
@@ -100,15 +112,7 @@ def test_a_large_body_arrives_whole(running: RunningRig, tmp_path: Path) -> None
         finally:
             conn.close()
 
-    async def main() -> None:
-        service = Service(running, auth, body_cache_bytes=0)
-        await service.async_start()
-        try:
-            await asyncio.to_thread(client, service.port)
-        finally:
-            await service.async_close()
-
-    asyncio.run(main())
+    asyncio.run(serving(running, auth, lambda service: asyncio.to_thread(client, service.port)))
 
 
 def test_a_reader_gone_midway_costs_the_next_one_nothing(
@@ -144,18 +148,13 @@ def test_a_reader_gone_midway_costs_the_next_one_nothing(
         finally:
             conn.close()
 
-    async def main() -> None:
-        service = Service(running, auth, body_cache_bytes=0)
-        await service.async_start()
-        try:
-            await asyncio.to_thread(quitter, service.port)
-            deadline = time.monotonic() + LIMIT_S
-            while service.gate.open > 0:  # the reset reaches the service
-                assert time.monotonic() < deadline, "the quitter's connection was kept"
-                await asyncio.sleep(0.01)
-            assert await asyncio.to_thread(whole, service.port) == body
-        finally:
-            await service.async_close()
+    async def work(service: Service) -> None:
+        await asyncio.to_thread(quitter, service.port)
+        deadline = time.monotonic() + LIMIT_S
+        while service.gate.open > 0:  # the reset reaches the service
+            assert time.monotonic() < deadline, "the quitter's connection was kept"
+            await asyncio.sleep(0.01)
+        assert await asyncio.to_thread(whole, service.port) == body
 
-    asyncio.run(main())
+    asyncio.run(serving(running, auth, work))
     assert [r.getMessage() for r in caplog.records if r.levelno >= logging.WARNING] == []
