@@ -1,17 +1,21 @@
-"""Point sets fetched ahead of whoever stores them: a fetch thread and a check thread.
+"""Point sets fetched ahead of whoever stores them: two fetch threads and a check thread.
 
 ```
-fetch thread   GET /v1/points/{id} in order on one kept-alive connection ──► (bytes, digest)
-check thread   SHA-256 against the Content-Digest, strict decode ──► MirroredPointSet
+fetch threads  GET /v1/points/{id}, each on its own kept-alive connection, every FETCHERS-th
+               id in order ──► (bytes, digest)
+check thread   takes them back in order; SHA-256 against the Content-Digest, strict decode
+               ──► MirroredPointSet
 caller         take(id) in the same order, stores it (mirror, archive)
 ```
 
-Why two threads: on the client, checking a body costs about four times what receiving it
-does (SHA-256 alone about 0.64 ms per MB on the benchmark machine against about 0.2 for the
-socket, `tests/bench/bench_pull.py` prints both). Both the socket read and hashlib's SHA-256
-release the GIL, so with the check on a thread of its own the next body is already on its
-way while the last one is being verified, and the rig is never left waiting for the next
-request. Nothing reaches the caller unverified or undecoded.
+Why: on the client, checking a body costs about four times what receiving it does (SHA-256
+alone about 0.64 ms per MB on the benchmark machine against about 0.2 for the socket;
+`tests/bench/bench_pull.py` prints both), and one request at a time leaves the rig idle
+while the client checks and the client idle while the rig reads its store. Socket reads and
+hashlib's SHA-256 both release the GIL: with the check on a thread of its own the next body
+is on its way while the last is verified, and with two requests in flight the rig reads
+and sends one body while the other is received. Nothing reaches the caller unverified or
+undecoded.
 """
 
 from __future__ import annotations
@@ -28,6 +32,7 @@ from .mirror import MAX_BODY, MirroredPointSet
 from .remote import RigClient, verified
 
 AHEAD: Final = 4  # items held between two stages, at most (each a body of a few MB)
+FETCHERS: Final = 2  # requests in flight; a third brought nothing more (bench_pull.py)
 POLL_S: Final = 0.1  # how often a blocked stage looks at the stop flag, seconds
 
 _T = TypeVar("_T")
@@ -44,14 +49,19 @@ class Prefetch:
 
     def __init__(self, client: RigClient, ids: list[int], with_hits: bool = False) -> None:
         self._ids, self._wanted, self._with_hits = ids, set(ids), with_hits
-        self._client = client.clone()
-        self._raw: queue.Queue[Raw | BaseException] = queue.Queue(AHEAD)
+        self._clients = [client.clone() for _ in range(FETCHERS)]
+        self.timeout_s = client.timeout_s
+        # One queue per fetch thread: the check thread takes id k from queue k % FETCHERS.
+        self._raw: list[queue.Queue[Raw | BaseException]] = [
+            queue.Queue(max(1, AHEAD // FETCHERS)) for _ in range(FETCHERS)
+        ]
         self._ready: queue.Queue[MirroredPointSet | BaseException] = queue.Queue(AHEAD)
         self._stop = threading.Event()
         self._threads = (
-            threading.Thread(target=self._fetch_all, name="pull-fetch", daemon=True),
+            *(threading.Thread(target=self._fetch_all, args=(k,), name=f"pull-fetch-{k}",
+                               daemon=True) for k in range(FETCHERS)),
             threading.Thread(target=self._check_all, name="pull-check", daemon=True),
-        )
+        )  # fmt: skip
 
     def __contains__(self, point_set_id: int) -> bool:
         return point_set_id in self._wanted
@@ -64,17 +74,18 @@ class Prefetch:
 
     def __exit__(self, *exc: object) -> None:
         self._stop.set()
-        for q in (self._raw, self._ready):  # make room, so that a blocked put sees the stop
+        for q in (*self._raw, self._ready):  # make room, so that a blocked put sees the stop
             with contextlib.suppress(queue.Empty):
                 while True:
                     q.get_nowait()
         for thread in self._threads:
             if thread.is_alive():
                 thread.join(30)
-        self._client.close()
+        for client in self._clients:
+            client.close()
 
     def take(self, point_set_id: int) -> MirroredPointSet:
-        item = self._ready.get(timeout=self._client.timeout_s * 4)
+        item = self._ready.get(timeout=self.timeout_s * 4)
         if isinstance(item, BaseException):
             raise item
         if item.summary.id != point_set_id:
@@ -91,22 +102,24 @@ class Prefetch:
                 continue
         return False
 
-    def _fetch_all(self) -> None:
-        for pid in self._ids:
+    def _fetch_all(self, k: int) -> None:
+        """Fetch ids k, k + FETCHERS, ... in order onto raw queue k."""
+        client, out = self._clients[k], self._raw[k]
+        for pid in self._ids[k::FETCHERS]:
             try:
-                data, digest = self._client.point_set_raw(pid, self._with_hits)
+                data, digest = client.point_set_raw(pid, self._with_hits)
                 item: Raw | BaseException = (pid, data, digest)
             except Exception as exc:  # handed on to the caller, raised in take()
                 item = exc
-            if not self._put(self._raw, item) or isinstance(item, BaseException):
+            if not self._put(out, item) or isinstance(item, BaseException):
                 return
 
     def _check_all(self) -> None:
-        for _ in self._ids:
+        for n in range(len(self._ids)):
             item: Raw | BaseException | None = None
             while item is None and not self._stop.is_set():
                 with contextlib.suppress(queue.Empty):
-                    item = self._raw.get(timeout=POLL_S)
+                    item = self._raw[n % FETCHERS].get(timeout=POLL_S)
             if item is None:
                 return
             try:

@@ -61,7 +61,8 @@ BENCHES = [
     Bench("point-set size: 2 responses, 16k block", lambda q: bench_size.run(),
           lambda rows: bench_size.show(rows, decimals=3), bench_size.headline),
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
-    Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
+    Bench("client: pull beside one blob (fetch, verify, decode); full pull into an empty mirror",
+          lambda q: bench_pull.run(20, 1) if q else bench_pull.run(200),
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),
     Bench("archive: many rigs into PostgreSQL, one test read back",
           lambda q: bench_archive.run(3, 20, 5_000) if q else bench_archive.run(),

@@ -12,13 +12,13 @@ import threading
 import pytest
 
 from taprig.client.errors import ClientError
-from taprig.client.prefetch import AHEAD, Prefetch, checked
+from taprig.client.prefetch import AHEAD, FETCHERS, Prefetch, checked
 from taprig.client.remote import RigClient, RigError, TransferError
 from taprig.schema import codec, http, records
 
 from .conftest import ServedRig, commit_synthetic
 
-STAGES = ("pull-fetch", "pull-check")
+STAGES = ("pull-fetch-0", "pull-fetch-1", "pull-check")
 
 
 def stages_alive() -> list[str]:
@@ -42,12 +42,14 @@ def test_point_sets_come_in_order_verified_and_decoded(served: ServedRig) -> Non
     assert stages_alive() == []
 
 
-def test_leaving_early_stops_both_threads(served: ServedRig) -> None:
-    """Taking two of twenty and leaving: both threads end, though they were blocked ahead (at
-    most 2 + 2 x (AHEAD + 1) are fetched before the caller takes more: both still run)."""
-    commit_synthetic(served.running, "plate-a", 20)
+def test_leaving_early_stops_every_thread(served: ServedRig) -> None:
+    """Taking two of 24 and leaving: every thread ends, though they were blocked ahead. The
+    check thread has taken at most 2 + AHEAD + 1 bodies before the caller takes more, and a
+    fetch thread holds at most its queue's and one more beyond those: with a larger share
+    each, all still run when the caller leaves."""
+    commit_synthetic(served.running, "plate-a", 24)
     ids = [s.id for s in served.running.store.list_point_sets()]
-    assert len(ids) > 2 + 2 * (AHEAD + 1)
+    assert len(ids) // FETCHERS > (2 + AHEAD + 1) + AHEAD // FETCHERS + 1
     with RigClient(served.url, served.token) as client:
         with Prefetch(client, ids) as bodies:
             assert [bodies.take(pid).summary.id for pid in ids[:2]] == ids[:2]
@@ -57,7 +59,7 @@ def test_leaving_early_stops_both_threads(served: ServedRig) -> None:
 
 def test_an_unknown_id_is_raised_in_its_turn(served: ServedRig) -> None:
     """The point sets before an id the rig does not have arrive; that id raises the rig's
-    404 when its turn comes, and both threads end."""
+    404 when its turn comes, and every thread ends."""
     commit_synthetic(served.running, "plate-a", 3)
     ids = [s.id for s in served.running.store.list_point_sets()]
     missing = max(ids) + 1000
