@@ -23,7 +23,7 @@ from __future__ import annotations
 import contextlib
 import queue
 import threading
-from typing import Final, TypeVar
+from typing import Any, Final, TypeVar
 
 from taprig.schema import codec, objects, records
 
@@ -74,7 +74,8 @@ class Prefetch:
 
     def __exit__(self, *exc: object) -> None:
         self._stop.set()
-        for q in (*self._raw, self._ready):  # make room, so that a blocked put sees the stop
+        queues: list[queue.Queue[Any]] = [*self._raw, self._ready]
+        for q in queues:  # make room, so that a blocked put sees the stop
             with contextlib.suppress(queue.Empty):
                 while True:
                     q.get_nowait()
