@@ -34,9 +34,10 @@ from . import resume, stages, tally
 from .capture.acquire import Acquirer
 from .capture.hits import check_hit
 from .capture.link import LinkChange, LinkState, SerialLink
+from .capture.linkproc import ProcessLink
 from .capture.session import HitOutcome, Session, no_session
 from .capture.spectra import single_average_warning
-from .config import Config
+from .config import Config, LinkReader
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
 from .owner import Owner
@@ -68,8 +69,10 @@ class Rig(Owner[RigEvent]):
         self._checks = stages.check_settings(config)
         self._acq: Acquirer | None = None
         self._enc = FrameEncoder()
-        self._link = SerialLink(self.url, baudrate=config.device.baudrate,
-                                stall_after_s=config.device.stall_s)  # fmt: skip
+        reader = ProcessLink if config.device.reader is LinkReader.PROCESS else SerialLink
+        self._link: SerialLink | ProcessLink = reader(
+            self.url, baudrate=config.device.baudrate, stall_after_s=config.device.stall_s
+        )
         self._closed = False
         self._item_time = 0.0
         self._last_record: HitRecord | None = None
