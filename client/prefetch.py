@@ -32,7 +32,7 @@ from .mirror import MAX_BODY, MirroredPointSet
 from .remote import RigClient, verified
 
 AHEAD: Final = 4  # items held between two stages, at most (each a body of a few MB)
-FETCHERS: Final = 2  # requests in flight; a third brought nothing more (bench_pull.py)
+FETCHERS: Final = 2  # requests in flight; a third was slower on the 2-core test machine
 POLL_S: Final = 0.1  # how often a blocked stage looks at the stop flag, seconds
 
 _T = TypeVar("_T")
@@ -44,7 +44,8 @@ class Prefetch:
     so the network, the checks and the caller's disk work at once.
 
     `take(id)` returns the next one, which must be `id`; a fetch or check error is raised
-    there. Leaving the `with` block stops and joins both threads.
+    there. Leaving the `with` block stops and joins every thread (a fetch in flight ends
+    first, within the client's timeout).
     """
 
     def __init__(self, client: RigClient, ids: list[int], with_hits: bool = False) -> None:
