@@ -101,6 +101,7 @@ class SerialLink(LinkBase):
         self._port: serial.Serial | None = None
         self._kick = threading.Event()
         self._kick_reason = ""
+        self._kick_only_stalled = False
 
     def close(self) -> None:
         """Stop the reader and close the port. Safe to call twice."""
@@ -126,9 +127,11 @@ class SerialLink(LinkBase):
                 log.debug("write to %s failed: %s", self.url, exc)
                 return False
 
-    def reconnect(self, why: str) -> None:
-        """Ask the reader to drop the port and open it again (e.g. the stream stalled)."""
-        self._kick_reason = why
+    def reconnect(self, why: str, *, only_if_stalled: bool = False) -> None:
+        """Ask the reader to drop the port and open it again. only_if_stalled: unless bytes
+        have come since the stall was reported (the asker may be acting on a stale report,
+        e.g. after its process was frozen; reopening would throw the flowing data away)."""
+        self._kick_reason, self._kick_only_stalled = why, only_if_stalled
         self._kick.set()
 
     # --- reader thread ------------------------------------------------------
@@ -166,8 +169,11 @@ class SerialLink(LinkBase):
         while not self._stop.is_set():
             if self._kick.is_set():
                 self._kick.clear()
-                self._set_state(LinkState.DISCONNECTED, self._kick_reason or "reset by the host")
-                return
+                if stalled or not self._kick_only_stalled:
+                    why = self._kick_reason or "reset by the host"
+                    self._set_state(LinkState.DISCONNECTED, why)
+                    return
+                log.debug("%s: not reopened, bytes flow again", self.url)
             try:
                 data = port.read(READ_SIZE)
             except (serial.SerialException, OSError) as exc:

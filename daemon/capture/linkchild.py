@@ -40,7 +40,8 @@ def _commands(link: SerialLink, stdin: BinaryIO, ended: threading.Event) -> None
         if kind == WRITE:
             link.send(payload)
         elif kind == KICK:
-            link.reconnect(payload.decode("utf-8", "replace"))
+            why = payload[1:].decode("utf-8", "replace")
+            link.reconnect(why, only_if_stalled=payload[:1] == b"?")
     ended.set()
 
 

@@ -39,7 +39,7 @@ STATE: Final = b"S"  # "<state value>\n<detail>", utf-8
 COUNTS: Final = b"N"  # reconnects, dropped reads: two uint32
 # daemon → child
 WRITE: Final = b"W"  # bytes to write to the port
-KICK: Final = b"K"  # drop the port and open it again; the payload is why, utf-8
+KICK: Final = b"K"  # drop the port and open it again: b"?" (only if stalled) or b"!", then why
 
 _HEADER: Final = struct.Struct("<cI")
 _COUNTS: Final = struct.Struct("<II")
@@ -124,9 +124,9 @@ class ProcessLink(LinkBase):
             return False
         return self._to_child(pack(WRITE, data))
 
-    def reconnect(self, why: str) -> None:
-        """Ask the child to drop the port and open it again (e.g. the stream stalled)."""
-        self._to_child(pack(KICK, why.encode()))
+    def reconnect(self, why: str, *, only_if_stalled: bool = False) -> None:
+        """Ask the child to drop the port and open it again (as SerialLink.reconnect)."""
+        self._to_child(pack(KICK, (b"?" if only_if_stalled else b"!") + why.encode()))
 
     # --- the thread that keeps a child and reads it ------------------------------------
 

@@ -126,9 +126,12 @@ class PieceStream(PieceCommands, PieceConverter):
             self._chunks += behind - 1
             self.counters.overruns += 1
             behind = 1
-        for k in range(max(0, behind)):
-            if (k or behind > 1) and len(self._pending) > self.settings.device_buffer_bytes:
-                break  # catching up: the rest waits until the host has read this much
+        for _ in range(max(0, behind)):
+            if len(self._pending) > self.settings.device_buffer_bytes:
+                # The link buffer is full (the host is not reading, or the piece is catching
+                # up after being starved itself): the samples wait in the converter's FIFO,
+                # which overruns above (counted, samples skipped) once it holds MAX_LAG_S.
+                break
             if self._unplug_at is not None and self._synth.next_index >= self._unplug_at:
                 self._pull_cable()  # as a tap asked: at this sample, however busy the host
                 return

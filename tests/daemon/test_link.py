@@ -179,3 +179,27 @@ def test_a_killed_link_process_is_started_again() -> None:
         piece.close()
     with pytest.raises(ProcessLookupError):
         os.kill(link.child_pid, 0)  # closing ended the child too
+
+
+def test_a_stale_stall_report_does_not_reopen_a_flowing_link(make_link: MakeLink) -> None:
+    """The rig asks to reopen after a stall, but only if the link is still stalled: a daemon
+    frozen through the stall acts on the report late, when the bytes flow again, and reopening
+    then would throw the flowing data away."""
+    piece = open_simulated("pty")
+    link = make_link(piece.url, stall_after_s=0.3).start()
+    dec = make_decoder("binary")
+    try:
+        drain_until(link, is_state(LinkState.CONNECTED))
+        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+        piece.faults.stalled = True
+        drain_until(link, is_state(LinkState.STALLED))
+        piece.faults.stalled = False
+        drain_until(link, is_state(LinkState.CONNECTED))
+        link.reconnect("stale", only_if_stalled=True)
+        _samples(link, dec, int(0.5 * piece.rate_hz))  # the reader has gone round meanwhile
+        link.reconnect("meant")
+        seen = drain_until(link, is_state(LinkState.DISCONNECTED))
+        assert isinstance(seen[-1], LinkChange) and seen[-1].detail == "meant"
+    finally:
+        link.close()
+        piece.close()
