@@ -9,19 +9,16 @@ test's point sets and leaves the cursor alone, so a later whole pull still sees 
 
 from __future__ import annotations
 
-import contextlib
 import logging
-import queue
-import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Final
 
-from taprig.schema import codec, objects, records
+from taprig.schema import records
 
-from .errors import ClientError
-from .mirror import MAX_BODY, Mirror, MirroredPointSet
+from .mirror import Mirror, MirroredPointSet
+from .prefetch import Prefetch
 from .remote import RigClient, RigUnreachable
 
 log = logging.getLogger(__name__)
@@ -116,81 +113,6 @@ def pull(
         progress(report.point_sets, len(wanted))
     report.seconds = time.perf_counter() - started
     return report
-
-
-class Prefetch:
-    """Fetches (and verifies, and decodes) the wanted point sets in order on a thread of its
-    own, a few ahead of the caller, so that the network and the mirror's disk work at once.
-
-    `take(id)` returns the next one, which must be `id`; a fetch error is raised there.
-    Leaving the `with` block stops and joins the thread.
-    """
-
-    AHEAD: Final = 4  # bodies held ready, at most
-
-    def __init__(self, client: RigClient, ids: list[int], with_hits: bool = False) -> None:
-        self._ids, self._wanted, self._with_hits = ids, set(ids), with_hits
-        self._client = client.clone()
-        self._queue: queue.Queue[MirroredPointSet | BaseException] = queue.Queue(self.AHEAD)
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, name="pull-prefetch", daemon=True)
-
-    def __contains__(self, point_set_id: int) -> bool:
-        return point_set_id in self._wanted
-
-    def __enter__(self) -> Prefetch:
-        if self._ids:
-            self._thread.start()
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._stop.set()
-        if self._thread.is_alive():
-            with contextlib.suppress(queue.Empty):
-                while True:  # make room, so that a blocked put sees the stop
-                    self._queue.get_nowait()
-            self._thread.join(30)
-        self._client.close()
-
-    def take(self, point_set_id: int) -> MirroredPointSet:
-        item = self._queue.get(timeout=self._client.timeout_s * 4)
-        if isinstance(item, BaseException):
-            raise item
-        if item.summary.id != point_set_id:
-            raise ClientError(f"pull out of order: expected {point_set_id}, got {item.summary.id}")
-        return item
-
-    def _run(self) -> None:
-        for pid in self._ids:
-            try:
-                item: MirroredPointSet | BaseException = _fetch(self._client, pid, self._with_hits)
-            except Exception as exc:  # handed to the caller, raised in take()
-                item = exc
-            while not self._stop.is_set():
-                try:
-                    self._queue.put(item, timeout=0.1)
-                    break
-                except queue.Full:
-                    continue
-            if self._stop.is_set() or isinstance(item, BaseException):
-                return
-
-
-def _fetch(client: RigClient, point_set_id: int, with_hits: bool) -> MirroredPointSet:
-    body = client.point_set_body(point_set_id, with_hits)
-    # Decoded once, strictly: a body that passes the checksum but not the schema is refused
-    # here, before it reaches the mirror.
-    try:
-        obj = codec.unpack(body.data, max_bytes=MAX_BODY)
-        ps = objects.point_set_from_obj(obj)
-    except records.SchemaError as exc:
-        raise ClientError(f"point set {point_set_id} from the rig is not readable: {exc}") from None
-    summary = records.WirePointSetSummary(
-        ps.id, ps.test, ps.point, ps.version, ps.seq, ps.completed_utc, ps.n_averages
-    )
-    if ps.id != point_set_id:
-        raise ClientError(f"asked for point set {point_set_id}, the rig sent {ps.id}")
-    return MirroredPointSet(summary, body.digest, body.data, int(obj["schema"]))
 
 
 def _store(

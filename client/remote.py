@@ -239,19 +239,18 @@ class RigClient:
         without records, the body the rig stored at commit. Raises TransferError when the
         checksum does not match or is missing.
         """
+        return verified(point_set_id, *self.point_set_raw(point_set_id, with_hits))
+
+    def point_set_raw(self, point_set_id: int, with_hits: bool = False) -> tuple[bytes, str | None]:
+        """(body, Content-Digest) of a point set as received, not yet verified (`verified`
+        does that; `point_set_body` both). RigError for an error answer."""
         path = f"/v1/points/{point_set_id}" + ("?hits=1" if with_hits else "")
         status, headers, data = self.request(
             "GET", path, accept=MSGPACK, max_bytes=MAX_POINT_SET_BYTES
         )
         if status >= 400:
             self._raise(status, data)
-        digest = headers.get("Content-Digest")
-        if not digest_matches(digest, data):
-            raise TransferError(
-                f"point set {point_set_id}: {len(data)} bytes do not match the rig's checksum "
-                f"({digest or 'none sent'})"
-            )
-        return Body(data, str(digest))
+        return data, headers.get("Content-Digest")
 
     def _raise(self, status: int, data: bytes) -> None:
         try:
@@ -275,6 +274,17 @@ class RigClient:
     def last_hit(self) -> dict[str, Any]:
         obj: dict[str, Any] = self._json("GET", "/v1/hits/last")
         return obj
+
+
+def verified(point_set_id: int, data: bytes, digest: str | None) -> Body:
+    """`data` as a Body when `digest` (a Content-Digest value) carries its SHA-256;
+    TransferError when it does not or is missing."""
+    if not digest_matches(digest, data):
+        raise TransferError(
+            f"point set {point_set_id}: {len(data)} bytes do not match the rig's checksum "
+            f"({digest or 'none sent'})"
+        )
+    return Body(data, str(digest))
 
 
 def new_request_id() -> str:

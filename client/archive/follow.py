@@ -5,8 +5,8 @@ rig's advisory lock (`RigWriter.try_lock`: another archive process, on this mach
 another, that already follows the rig keeps it; this one tries again every busy_retry_s),
 then repeats a pass and a long-poll of the change feed. A pass reads the feed after the
 archived cursor and stores each change in its own transaction with the cursor, fetching
-point sets a few ahead (client/pull.py's `feed` and `Prefetch`: bodies verified against the
-rig's Content-Digest and decoded strictly before they are stored).
+point sets a few ahead (client/pull.py's `feed`, client/prefetch.py's `Prefetch`: bodies
+verified against the rig's Content-Digest and decoded strictly before they are stored).
 
 Any failure — the rig unreachable, the database restarting, full or refusing — ends the
 session: the connection is closed (releasing the lock), the error is logged and shown in
@@ -29,7 +29,8 @@ from typing import Any, Final
 from taprig.schema import records
 
 from ..errors import ClientError
-from ..pull import RECONNECT_S, Prefetch, feed
+from ..prefetch import Prefetch
+from ..pull import RECONNECT_S, feed
 from ..remote import RigClient
 from .config import ArchiveConfig, RigSource
 from .db import ArchiveError, redact

@@ -6,7 +6,10 @@
    runs it). Printed beside it, from the same server in the same run: the
    same bodies pre-built and returned one per request (the cost of HTTP per request without
    the store and the encoding), and all of them as one pre-built blob in one response (the
-   loopback and aiohttp ceiling). Goal: the pull at least 0.5 of the blob.
+   loopback and aiohttp ceiling). Goal: the pull at least 0.8 of the blob.
+   The client here is aiohttp on the service's own event loop: every figure is the work of
+   both sides on one thread, so HTTP's cost per request counts twice. The workstation's pull
+   against the rig in a process of its own, with each side's CPU, is bench_pull.py.
 2. An empty changes poll (GET /v1/changes?since=<last>&wait=0, token checked, store
    queried): median latency over `polls` requests. Goal: at most 20 ms.
 

@@ -64,7 +64,8 @@ BENCHES = [
     Bench("capture under a busy lab: 20 pulling, 200 listening, taps going on",
           lambda q: bench_busy.run(10.0 if q else 60.0), bench_busy.show, bench_busy.headline),
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
-    Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
+    Bench("client: pull beside one blob (fetch, verify, decode); full pull into an empty mirror",
+          lambda q: bench_pull.run(20, 1) if q else bench_pull.run(200),
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),
     Bench("archive: many rigs into PostgreSQL, one test read back",
           lambda q: bench_archive.run(3, 20, 5_000) if q else bench_archive.run(),
