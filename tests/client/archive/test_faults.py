@@ -204,7 +204,7 @@ def test_a_rig_cut_off_the_network_for_a_minute_stops_nobody_and_catches_up(
 def _offline_rounds(dsn: str, served: list[ServedRig], end: float) -> int:
     """Until `end`: each round every rig completes one point set; the connected rigs' (the
     first two) must be archived within ARRIVE_S, the cut rig's (the third) must not be.
-    Rounds start every ROUND_S; between them the cut rig's share is watched. Returns the rounds run."""
+    Rounds start every ROUND_S; between them the cut rig's share is watched. The rounds run."""
     rounds = 0
     cut = served[2]
     held = archived_of(dsn, cut.rig_id)
@@ -214,7 +214,7 @@ def _offline_rounds(dsn: str, served: list[ServedRig], end: float) -> int:
             commit_sets(r.running, f"offline-{rounds}-{k}", 1, n_freq=CUT_LINES, seed=100 + k)
         rounds += 1
         wanted = {r.rig_id: stored_ids(r) for r in served[:2]}
-        until(lambda: all(archived_of(dsn, rid) == ids for rid, ids in wanted.items()),
+        until(lambda w=wanted: all(archived_of(dsn, rid) == ids for rid, ids in w.items()),
               f"round {rounds}: the connected rigs' point sets", timeout=ARRIVE_S)  # fmt: skip
         while time.monotonic() < min(start + ROUND_S, end):
             assert archived_of(dsn, cut.rig_id) == held, "the cut rig reached the archive"
