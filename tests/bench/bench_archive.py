@@ -1,6 +1,6 @@
 """The PostgreSQL archive: follower throughput from many rigs, and reading one test back.
 
-1. `rigs` simulated rigs × `sets` point sets (2 responses × 2049 lines, about 0.3 MB each)
+1. `rigs` simulated rigs × `sets` point sets (2 responses × 2049 lines, about 0.16 MB each)
    into one empty archive: the rigs are real services on loopback in a process of their own
    (archive_rigs.py); the follower is `Archiver` (one thread per rig, one transaction per
    point set, bodies verified and decoded before they are stored). Ceiling, on the same
