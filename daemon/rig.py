@@ -34,9 +34,10 @@ from . import resume, stages, tally
 from .capture.acquire import Acquirer
 from .capture.hits import check_hit
 from .capture.link import LinkChange, LinkState, SerialLink
+from .capture.linkproc import ProcessLink
 from .capture.session import HitOutcome, Session, no_session
 from .capture.spectra import single_average_warning
-from .config import Config
+from .config import Config, LinkReader
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
 from .owner import Owner
@@ -68,8 +69,10 @@ class Rig(Owner[RigEvent]):
         self._checks = stages.check_settings(config)
         self._acq: Acquirer | None = None
         self._enc = FrameEncoder()
-        self._link = SerialLink(self.url, baudrate=config.device.baudrate,
-                                stall_after_s=config.device.stall_s)  # fmt: skip
+        reader = ProcessLink if config.device.reader is LinkReader.PROCESS else SerialLink
+        self._link: SerialLink | ProcessLink = reader(
+            self.url, baudrate=config.device.baudrate, stall_after_s=config.device.stall_s
+        )
         self._closed = False
         self._item_time = 0.0
         self._last_record: HitRecord | None = None
@@ -227,7 +230,9 @@ class Rig(Owner[RigEvent]):
             for data in stages.opening_bytes(self._decoder, self._enc):
                 self._link.send(data)
         elif change.state is LinkState.STALLED:
-            self._link.reconnect("no data: reopening the device")
+            # Decided where the bytes are seen: this report may be stale (the daemon frozen
+            # while the link process went on reading), and the data may flow again by now.
+            self._link.reconnect("no data: reopening the device", only_if_stalled=True)
 
     def _bytes(self, data: bytes) -> None:
         for ev in self._decoder.feed(data):
@@ -425,7 +430,8 @@ class Rig(Owner[RigEvent]):
             **(s.snapshot() if s else no_session()), "tally": self._tally,
             "link": {"crc_errors": st.crc_errors, "samples_lost": st.samples_lost,
                      "resyncs": st.resyncs, "frames_ok": st.frames_ok,
-                     "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects},
+                     "malformed_lines": st.malformed_lines, "reconnects": self._link.reconnects,
+                     "dropped_reads": self._link.dropped_chunks},
             "disk": {"free_mb": None if free is None else round(free, 1),
                      "min_free_mb": self.config.store.min_free_mb,
                      "waiting_for_room": self.waiting_for_room},

@@ -76,7 +76,7 @@ def render(status: dict[str, Any]) -> list[str]:
             + (f", {s['rate_hz']:g} Hz" if s["rate_hz"] else ""),
             f"link errors CRC {link['crc_errors']}, resyncs {link['resyncs']}, samples lost "
             f"{link['samples_lost']}, malformed lines {link['malformed_lines']}, "
-            f"reconnects {link['reconnects']}",
+            f"reconnects {link['reconnects']}, reads dropped {link.get('dropped_reads', 0)}",
             "test        " + _test_line(s),
         ]
     store = status.get("store")

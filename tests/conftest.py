@@ -1,5 +1,5 @@
 """Shared test guards: no test may leave a thread running behind it, and none may block an
-asyncio event loop for more than 100 ms in one callback (tests/loopguard.py)."""
+asyncio event loop in one callback: 100 ms computing, 250 ms waiting (tests/loopguard.py)."""
 
 from __future__ import annotations
 
@@ -28,7 +28,7 @@ def no_leaked_threads() -> Iterator[None]:
 
 @pytest.fixture(autouse=True)
 def no_blocked_event_loop() -> Iterator[None]:
-    """Fail a test during which any asyncio callback held its loop over loopguard.LIMIT_S."""
+    """Fail a test during which any asyncio callback held its loop too long (loopguard.held)."""
     loopguard.slow.clear()
     yield
     blocked = list(loopguard.slow)

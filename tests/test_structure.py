@@ -46,6 +46,8 @@ DAEMON_RANKS: dict[str, int] = {
     **dict.fromkeys(BASE, 1),
     "capture.__init__": 2,
     "capture.link": 2,
+    "capture.linkproc": 2,
+    "capture.linkchild": 2,
     "capture.acquire": 3,
     "capture.hits": 4,
     "capture.spectra": 5,

@@ -15,6 +15,7 @@ import queue
 import threading
 import time
 from dataclasses import dataclass
+from typing import Any, Self
 
 import serial
 
@@ -48,8 +49,19 @@ class LinkChange:
 Item = bytes | LinkChange
 
 
-class SerialLink:
-    """Reads a pyserial URL in its own thread. `items` yields bytes and LinkChange values."""
+def log_state(url: str, was: LinkState, change: LinkChange) -> None:
+    """Log a link's state change: at info, but repeated failures to open at debug."""
+    if change.state is was and was is LinkState.DISCONNECTED:
+        log.debug("%s %s: %s", url, change.state.value, change.detail)
+    else:
+        log.info("device link %s: %s", change.state.value, change.detail)
+
+
+class LinkBase:
+    """What every link offers the rig: `items` (bytes and LinkChange values in stream order),
+    `state`, `reconnects` and `dropped_chunks`, and one worker thread (`_run`)."""
+
+    thread_name = "link"
 
     def __init__(
         self,
@@ -66,17 +78,30 @@ class SerialLink:
         self.state = LinkState.CONNECTING
         self.dropped_chunks = 0
         self.reconnects = 0
-        self._port: serial.Serial | None = None
         self._write_lock = threading.Lock()
         self._stop = threading.Event()
-        self._kick = threading.Event()
-        self._kick_reason = ""
-        self._thread = threading.Thread(target=self._run, name="serial-reader", daemon=True)
+        self._thread = threading.Thread(target=self._run, name=self.thread_name, daemon=True)
         self._closed = False
 
-    def start(self) -> SerialLink:
+    def start(self) -> Self:
         self._thread.start()
         return self
+
+    def _run(self) -> None:
+        raise NotImplementedError
+
+
+class SerialLink(LinkBase):
+    """Reads a pyserial URL in its own thread. `items` yields bytes and LinkChange values."""
+
+    thread_name = "serial-reader"
+
+    def __init__(self, url: str, **options: Any) -> None:
+        super().__init__(url, **options)
+        self._port: serial.Serial | None = None
+        self._kick = threading.Event()
+        self._kick_reason = ""
+        self._kick_only_stalled = False
 
     def close(self) -> None:
         """Stop the reader and close the port. Safe to call twice."""
@@ -102,9 +127,11 @@ class SerialLink:
                 log.debug("write to %s failed: %s", self.url, exc)
                 return False
 
-    def reconnect(self, why: str) -> None:
-        """Ask the reader to drop the port and open it again (e.g. the stream stalled)."""
-        self._kick_reason = why
+    def reconnect(self, why: str, *, only_if_stalled: bool = False) -> None:
+        """Ask the reader to drop the port and open it again. only_if_stalled: unless bytes
+        have come since the stall was reported (the asker may be acting on a stale report,
+        e.g. after its process was frozen; reopening would throw the flowing data away)."""
+        self._kick_reason, self._kick_only_stalled = why, only_if_stalled
         self._kick.set()
 
     # --- reader thread ------------------------------------------------------
@@ -142,8 +169,11 @@ class SerialLink:
         while not self._stop.is_set():
             if self._kick.is_set():
                 self._kick.clear()
-                self._set_state(LinkState.DISCONNECTED, self._kick_reason or "reset by the host")
-                return
+                if stalled or not self._kick_only_stalled:
+                    why = self._kick_reason or "reset by the host"
+                    self._set_state(LinkState.DISCONNECTED, why)
+                    return
+                log.debug("%s: not reopened, bytes flow again", self.url)
             try:
                 data = port.read(READ_SIZE)
             except (serial.SerialException, OSError) as exc:
@@ -176,10 +206,7 @@ class SerialLink:
                 port.close()
 
     def _set_state(self, state: LinkState, detail: str) -> None:
-        if state is self.state and state is LinkState.DISCONNECTED:
-            log.debug("%s: %s", state.value, detail)
-        else:
-            log.info("device link %s: %s", state.value, detail)
+        log_state(self.url, self.state, LinkChange(state, detail))
         self.state = state
         with contextlib.suppress(queue.Full):
             self.items.put_nowait(LinkChange(state, detail))

@@ -34,6 +34,7 @@ from .setting import (
     STANDARD_GRAVITY,
     AcceptMode,
     Kind,
+    LinkReader,
     Setting,
     StreamFormat,
     TriggerSlope,
@@ -64,6 +65,7 @@ __all__ = [
     "Config",
     "DeviceConfig",
     "Kind",
+    "LinkReader",
     "RigConfig",
     "ServiceConfig",
     "Setting",
@@ -87,7 +89,7 @@ class RigConfig:
 @dataclass(frozen=True, slots=True)
 class DeviceConfig:
     """[device]: the link. baudrate in bit/s, text_rate_hz in Hz (0: from the stream),
-    text_full_scale_v in V, stall_s in s."""
+    text_full_scale_v in V, stall_s in s; reader: where the port is read."""
 
     url: str
     format: StreamFormat
@@ -95,6 +97,7 @@ class DeviceConfig:
     text_rate_hz: float
     text_full_scale_v: float
     stall_s: float
+    reader: LinkReader
 
     @property
     def is_simulated(self) -> bool:

@@ -34,6 +34,13 @@ class StreamFormat(enum.StrEnum):
     TEXT = "text"  # one line of volts per sample frame (section 4)
 
 
+class LinkReader(enum.StrEnum):
+    """Where the device's port is read (daemon/capture/linkproc.py)."""
+
+    PROCESS = "process"  # a small child process: the daemon's load cannot starve the port
+    THREAD = "thread"  # a thread of the daemon: one process fewer, for a quiet rig
+
+
 class TriggerSlope(enum.StrEnum):
     """Which crossing of the trigger level on the force channel starts a record."""
 

@@ -22,6 +22,7 @@ from .setting import (
     STANDARD_GRAVITY,
     AcceptMode,
     Kind,
+    LinkReader,
     Setting,
     StreamFormat,
     TriggerSlope,
@@ -85,6 +86,12 @@ SETTINGS: tuple[Setting, ...] = (
         "device", "stall_s", Kind.FLOAT, 2.0, "s",
         "no bytes for this long means the link has stalled: close and reconnect",
         allowed="a number > 0", check=lambda x: x > 0.0,
+    ),
+    Setting(
+        "device", "reader", Kind.CHOICE, LinkReader.PROCESS, "",
+        "where the port is read: in a small process of its own, which the service's load "
+        "cannot hold up (no sample lost while many clients pull), or in a daemon thread",
+        choices=LinkReader,
     ),
     Setting(
         "capture", "block", Kind.INT, 16_384, "samples",

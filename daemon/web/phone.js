@@ -99,7 +99,7 @@ async function catchUp() {
   if (s && s.waiting && last && last.waiting && last.point === s.point) {
     model.verdict = { ...verdictOf(asEvent(last)), point: last.point };
   } else if (s && s.complete && !s.again && s.tally) {
-    model.verdict = finishedVerdict(s.tally);
+    model.verdict = finishedVerdict(s.tally, s.point);
   }
   render();
 }
@@ -110,9 +110,10 @@ function asEvent(view) {
   return { ...view, rejections: pairs(view.rejections), warnings: pairs(view.warnings) };
 }
 
-/** The test's end: the finished panel stands in for the verdict until the operator moves. */
-function finishedVerdict(t) {
-  return { kind: "finished", title: "Test done", point: null,
+/** The test's end: the finished panel stands in for the verdict until the operator moves
+ * the cursor from `point`, where the test ended. */
+function finishedVerdict(t, point) {
+  return { kind: "finished", title: "Test done", point: point || null,
            detail: `${t.points} of ${t.grid_points} points measured.` };
 }
 
@@ -183,7 +184,7 @@ function onEvent(kind, data) {
     }
   } else if (kind === "test_complete") {
     if (model.session) Object.assign(model.session, { complete: true, again: false, armed: false, tally: data });
-    model.verdict = finishedVerdict(data);
+    model.verdict = finishedVerdict(data, model.session ? model.session.point : null);
     chime("complete");
     render();
     refreshState().catch(() => {});
@@ -252,7 +253,8 @@ function render() {
   // A verdict belongs to its point: once the cursor moves on, say what to do at the new one.
   let shown = model.verdict;
   const closed = s && s.point && s.done.includes(s.point) && !s.again;
-  if (closed && shown.kind !== "complete" && shown.kind !== "finished") {
+  const ended = shown.kind === "finished" && (!s || !shown.point || shown.point === s.point);
+  if (closed && shown.kind !== "complete" && !ended) {
     shown = { kind: "idle", title: `${s.point} is measured`,
               detail: "Taps here are not stored. Measure it again to replace it; the stored one stays." };
   } else if (s && s.point && shown.point && shown.point !== s.point && shown.kind !== "complete") {
@@ -275,7 +277,7 @@ function render() {
   const finished = Boolean(s && s.complete && !s.again && s.tally);
   $("finished").hidden = !finished;
   if (finished) $("finished-summary").textContent = tallyText(s.tally);
-  $("verdict").hidden = finished && model.verdict.kind === "finished";
+  $("verdict").hidden = finished && shown.kind === "finished";
   $("remeasure").hidden = !(s && s.point && s.done.includes(s.point) && !s.again);
   $("remeasure").textContent = s && s.point ? `Measure ${s.point} again` : "Measure again";
   renderDevice();

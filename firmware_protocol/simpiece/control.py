@@ -5,6 +5,7 @@ reply object per line. Requests:
 
     {"op": "tap", "point": "B3", "force_n": 30, "width_s": 0.0008,
      "double_hit": false, "overload": false}        -> {"ok": true, "tap": {...}}
+      ("unplug_after_s": 0.02 pulls the cable that long after the tap, in device time)
     {"op": "fault", "name": "corrupt_probability", "value": 0.01} -> {"ok": true}
     {"op": "unplug"} / {"op": "replug"}               -> {"ok": true}
     {"op": "move_sensor", "sensor": "acc1", "point": "C4"} -> {"ok": true}
@@ -53,6 +54,7 @@ def handle_request(piece: SimulatedPiece, request: Any) -> dict[str, Any]:
                 _opt_float(request, "width_s"),
                 double_hit=_opt_bool(request, "double_hit"),
                 overload=_opt_bool(request, "overload"),
+                unplug_after_s=_opt_float(request, "unplug_after_s"),
             )
             if rec is None:
                 return {"ok": False, "error": "the instrument is not streaming (send START)"}

@@ -56,11 +56,6 @@ class PieceConverter(PieceCore):
         if self._rng.random() < self.faults.drop_frame_probability:
             self.counters.frames_dropped += 1
             return
-        if len(self._pending) > self.settings.device_buffer_bytes:
-            self.counters.overruns += 1  # the host is not reading: the device drops the frame
-            with self._lock:
-                self._count_lost_taps(first, first + codes.shape[0])
-            return
         data = self._enc.data(first, codes, self.settings.sample_format)
         if self._rng.random() < self.faults.corrupt_probability:
             raw = bytearray(data)

@@ -56,6 +56,7 @@ class PieceCore:
         self._t_start = 0.0
         self._chunks = 0
         self._overload_mask = 0
+        self._unplug_at: int | None = None  # sample index at which the cable is to be pulled
         self._last_info = 0.0
         self._last_status = 0.0
         self._requests: queue.SimpleQueue[tuple[str, threading.Event]] = queue.SimpleQueue()

@@ -92,11 +92,13 @@ class SimulatedPiece(PieceStream):
         *,
         double_hit: bool | None = None,
         overload: bool | None = None,
+        unplug_after_s: float | None = None,
     ) -> TapRecord | None:
         """Strike `point` a few ms from now. None if the device is not streaming.
 
         double_hit / overload: force that fault for this tap; None lets the
-        fault probabilities decide.
+        fault probabilities decide. unplug_after_s: pull the cable this long (device time)
+        after the tap, e.g. before its record is complete, whatever the host's load.
         """
         self.model.index(point)
         s = self.settings
@@ -128,6 +130,8 @@ class SimulatedPiece(PieceStream):
                 self._synth.add(pulse)
             record = TapRecord(point, t0, math.ceil(t0 * rate), peak, width, double_hit, overload)
             self.counters.taps.append(record)
+            if unplug_after_s is not None:
+                self._unplug_at = record.first_index + math.ceil(unplug_after_s * rate)
         return record
 
     def strike(
@@ -137,6 +141,7 @@ class SimulatedPiece(PieceStream):
         width_s: float | None = None,
         *,
         timeout_s: float = 30.0,
+        unplug_after_s: float | None = None,
         **faults: bool | None,
     ) -> TapRecord | None:
         """`tap`, then wait until the tap's samples are sent; tap again if an overrun lost them.
@@ -149,7 +154,7 @@ class SimulatedPiece(PieceStream):
         deadline = time.monotonic() + timeout_s
         while True:
             lost = self.counters.taps_lost
-            record = self.tap(point, force_n, width_s, **faults)
+            record = self.tap(point, force_n, width_s, unplug_after_s=unplug_after_s, **faults)
             if record is None:
                 return None
             end = record.first_index + math.ceil(record.width_s * self._rate_hz) + 1

@@ -38,7 +38,7 @@ class InstrumentSettings:
     info_interval_s: float = 1.0  # s between INFO (binary) or rate lines (text); inf: once
     answers_rate_query: bool = True  # text: a "?rate" line from the host repeats the rate line
     status_interval_s: float = 0.25
-    device_buffer_bytes: int = 262_144  # what the device can hold while the host is not reading
+    device_buffer_bytes: int = 262_144  # its link buffer; beyond it samples wait in the FIFO
     seed: int = 0
     # The converter's linear-phase anti-alias filter on every channel (synth.converter_filter);
     # False point-samples the continuous signals, so content above Nyquist folds back.

@@ -49,16 +49,20 @@ class PieceStream(PieceCommands, PieceConverter):
             except queue.Empty:
                 return
             if req == "unplug":
-                self.port.unplug()
-                with self._lock:
-                    self._power_off()
+                self._pull_cable()
             elif req == "replug":
                 self.port.replug()
                 if self.settings.output == "text":
                     self._begin_stream()
             done.set()
 
+    def _pull_cable(self) -> None:
+        self.port.unplug()
+        with self._lock:
+            self._power_off()
+
     def _power_off(self) -> None:
+        self._unplug_at = None
         self._streaming = False
         self._pending.clear()
         self._synth.reset()
@@ -122,9 +126,15 @@ class PieceStream(PieceCommands, PieceConverter):
             self._chunks += behind - 1
             self.counters.overruns += 1
             behind = 1
-        for k in range(max(0, behind)):
-            if (k or behind > 1) and len(self._pending) > self.settings.device_buffer_bytes:
-                break  # catching up: the rest waits until the host has read this much
+        for _ in range(max(0, behind)):
+            if len(self._pending) > self.settings.device_buffer_bytes:
+                # The link buffer is full (the host is not reading, or the piece is catching
+                # up after being starved itself): the samples wait in the converter's FIFO,
+                # which overruns above (counted, samples skipped) once it holds MAX_LAG_S.
+                break
+            if self._unplug_at is not None and self._synth.next_index >= self._unplug_at:
+                self._pull_cable()  # as a tap asked: at this sample, however busy the host
+                return
             first = self._synth.next_index
             with self._lock:
                 force, accel = self._synth.next_chunk()

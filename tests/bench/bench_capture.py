@@ -1,11 +1,14 @@
 """Capture benchmarks: daemon CPU share and peak memory while streaming, per-hit latency.
 
 1. `taprigd run` in its own process reads 4 channels × 51.2 kHz int24 from the
-   simulated test piece (in this process) over a pseudo-terminal. Its CPU share
-   is read from /proc/<pid>/stat over a fixed window, with no hits and then
-   with one hit a second; its peak RSS from /proc/<pid>/status (VmHWM).
-   Goals: CPU at most 5 % of one core idle, 10 % with a hit a second; RSS at
-   most 100 MB. Ceilings, measured in the same run: a process that only reads
+   simulated test piece (in this process) over a pseudo-terminal. Its CPU share,
+   its link process's included (device.reader = "process"), is read from
+   /proc/<pid>/stat over a fixed window, with no hits and then with one hit a
+   second; peak RSS from /proc/<pid>/status (VmHWM), of the daemon and of its link
+   process apart. Goals: CPU at most 2 % of one core idle; peak RSS of the capture
+   side at most 60 MB, where the capture side is the daemon with its link process
+   (the rig's processing runs in the daemon). Ceilings, measured in the same run: a
+   process that only reads
    the same stream with pyserial and throws it away (no decoding), and the peak
    RSS of the interpreter importing what `taprigd run` imports, then exiting.
 2. Per-hit latency, block 16384 × 4 channels, in process: from the moment the
@@ -13,7 +16,7 @@
    commit (averages = 1, so every hit commits), median beside a bare numpy
    rfft of the same (4, 16384) array. The reader batches bytes for up to
    READ_TIMEOUT_S before handing them over; half of that is added on average
-   (all of it at worst) for the figure against the goal: median at most 30 ms.
+   (all of it at worst). Goal: median at most 10 ms plus that batching.
 
 Run: python tests/bench/bench_capture.py [--seconds 10]
 """
@@ -66,9 +69,31 @@ def four_channel_panel() -> ModalModel:
     return dataclasses.replace(m, sensors={**m.sensors, "acc3": "D5"})
 
 
+def sensor_places(model: ModalModel) -> list[str]:
+    """--sensor-at for each of the model's sensors, at its x,y,z (some are off the grid)."""
+    places: list[str] = []
+    for sensor, point in model.sensors.items():
+        x, y, z = (float(v) for v in model.coords[model.index(point)])
+        places += ["--sensor-at", f"{sensor}={x:.4f},{y:.4f},{z:.4f}/+z"]
+    return places
+
+
 def cpu_seconds(pid: int) -> float:
     fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
     return (int(fields[11]) + int(fields[12])) / TICK  # utime + stime
+
+
+def children(pid: int) -> list[int]:
+    """The child processes of `pid` (Linux: /proc/<pid>/task/<tid>/children)."""
+    found: list[int] = []
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        found += [int(c) for c in (task / "children").read_text().split()]
+    return found
+
+
+def family_cpu_seconds(pid: int) -> float:
+    """CPU seconds of `pid` and of its living children."""
+    return cpu_seconds(pid) + sum(cpu_seconds(c) for c in children(pid))
 
 
 def peak_rss_mb(pid: int) -> float:
@@ -129,27 +154,32 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
         with log.open("w") as log_file:
             proc = subprocess.Popen(
                 [sys.executable, "-m", "taprig.daemon", "run", "-c", str(cfg), "--test", "bench",
-                 "--grid", str(grid)],
+                 "--grid", str(grid), *sensor_places(model)],
                 stdout=subprocess.DEVNULL, stderr=log_file,
             )  # fmt: skip
         try:
             deadline = time.monotonic() + 30
-            while "armed': True" not in log.read_text():  # the daemon says it has armed
+            while "armed; test bench" not in log.read_text():  # the daemon says it has armed
                 if proc.poll() is not None or time.monotonic() > deadline:
                     raise RuntimeError(f"taprigd did not arm:\n{log.read_text()}")
                 time.sleep(0.05)
             time.sleep(1.0)  # let start-up work settle before measuring
-            c0, t0 = cpu_seconds(proc.pid), time.monotonic()
+            c0, t0 = family_cpu_seconds(proc.pid), time.monotonic()
+            link0 = sum(cpu_seconds(c) for c in children(proc.pid))
             time.sleep(seconds)
-            idle = (cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
-            c0, t0 = cpu_seconds(proc.pid), time.monotonic()
+            idle = (family_cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
+            link_cpu = (sum(cpu_seconds(c) for c in children(proc.pid)) - link0) / (
+                time.monotonic() - t0
+            )
+            c0, t0 = family_cpu_seconds(proc.pid), time.monotonic()
             k = 0
             while time.monotonic() - t0 < seconds:
                 piece.tap(model.grid[k % len(model.grid)])
                 k += 1
                 time.sleep(1.0)
-            busy = (cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
+            busy = (family_cpu_seconds(proc.pid) - c0) / (time.monotonic() - t0)
             rss = peak_rss_mb(proc.pid)
+            link_rss = sum(peak_rss_mb(c) for c in children(proc.pid))
         finally:
             proc.terminate()
             proc.wait(timeout=10)
@@ -158,10 +188,12 @@ def daemon_cpu_and_memory(seconds: float) -> list[Row]:
         finally:
             piece.close()
     return [
-        ("daemon CPU, streaming, no hits", 100 * idle, "% core", "goal <= 5 %"),
-        ("daemon CPU, streaming, 1 hit/s", 100 * busy, "% core", "goal <= 10 %"),
+        ("daemon CPU, streaming, no hits", 100 * idle, "% core",
+         f"goal <= 2 %; its link process {100 * link_cpu:.1f} % of it"),
+        ("daemon CPU, streaming, 1 hit/s", 100 * busy, "% core", "with the link process"),
         ("ceiling: pyserial read of the stream alone", 100 * reader, "% core", "no decoding"),
-        ("daemon peak RSS while capturing", rss, "MB", "goal <= 100 MB"),
+        ("capture side peak RSS while capturing", rss + link_rss, "MB",
+         f"goal <= 60 MB; daemon {rss:.1f} + link process {link_rss:.1f}"),
         ("ceiling: interpreter + the daemon's imports", imports_peak_rss_mb(), "MB",
          "peak RSS, nothing running"),
     ]  # fmt: skip
@@ -206,10 +238,11 @@ def hit_latency(hits: int) -> list[Row]:
     batch_ms = READ_TIMEOUT_S * 1e3  # the reader hands bytes over at least this often
     return [
         ("per-hit latency, queue to commit, median", float(np.median(lat)), "ms",
-         f"p90 {np.percentile(lat, 90):.1f} ms over {lat.size} hits"),
+         f"goal <= 10 ms plus the link's batching; p90 {np.percentile(lat, 90):.1f} ms "
+         f"over {lat.size} hits"),
         (f"  + link read batching (0..{batch_ms:.0f} ms), median",
          float(np.median(lat)) + batch_ms / 2, "ms",
-         f"goal <= 30 ms; worst case {float(np.median(lat)) + batch_ms:.1f} ms"),
+         f"worst case {float(np.median(lat)) + batch_ms:.1f} ms"),
         ("bare numpy rfft of (4, 16384)", rfft_ms, "ms", "the FFT alone"),
     ]  # fmt: skip
 
@@ -223,13 +256,11 @@ def headline(rows: list[Row]) -> list[Figure]:
     rfft = pick(rows, "bare numpy rfft")
     return [
         Figure("CPU share, streaming, no hits", pick(rows, "daemon CPU, streaming, no"),
-               "% core", "<=", 5.0, reader, "pyserial read alone"),
-        Figure("CPU share, streaming, 1 hit/s", pick(rows, "daemon CPU, streaming, 1"),
-               "% core", "<=", 10.0, reader, "pyserial read alone"),
-        Figure("per-hit latency to commit, median", pick(rows, "  + link read"), "ms", "<=",
-               30.0, rfft, "bare rfft of the record"),
-        Figure("daemon peak RSS", pick(rows, "daemon peak RSS"), "MB", "<=", 100.0, floor,
-               "interpreter + imports"),
+               "% core", "<=", 2.0, reader, "pyserial read alone"),
+        Figure("per-hit latency, queue to commit, median", pick(rows, "per-hit latency"),
+               "ms", "<=", 10.0, rfft, "bare rfft of the record"),
+        Figure("capture side peak RSS", pick(rows, "capture side peak RSS"), "MB", "<=", 60.0,
+               floor, "interpreter + imports"),
     ]  # fmt: skip
 
 

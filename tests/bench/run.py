@@ -18,6 +18,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import bench_abuse
 import bench_archive
+import bench_busy
 import bench_capture
 import bench_client
 import bench_decode
@@ -60,6 +61,8 @@ BENCHES = [
           bench_abuse.show, bench_abuse.headline),
     Bench("point-set size: 2 responses, 16k block", lambda q: bench_size.run(),
           lambda rows: bench_size.show(rows, decimals=3), bench_size.headline),
+    Bench("capture under a busy lab: 20 pulling, 200 listening, taps going on",
+          lambda q: bench_busy.run(10.0 if q else 60.0), bench_busy.show, bench_busy.headline),
     # A new benchmark goes here: a module with run(), show(rows) and headline(rows) -> Figures.
     Bench("client: full pull into an empty mirror", lambda q: bench_pull.run(20 if q else 200),
           lambda rows: bench_pull.show(rows, decimals=2), bench_pull.headline),

@@ -1,18 +1,35 @@
-"""The serial reader thread: bytes in order, reconnect after unplug, stall detection."""
+"""The serial link, read in a thread (SerialLink) or in a process of its own (ProcessLink):
+bytes in order, reconnect after unplug, stall detection, the same for both."""
 
 from __future__ import annotations
 
+import os
 import queue
+import signal
+import threading
 import time
 from collections.abc import Callable
 from pathlib import Path
 
+import pytest
+
 from taprig.daemon.capture.link import Item, LinkChange, LinkState, SerialLink
+from taprig.daemon.capture.linkproc import ProcessLink
 from taprig.firmware_protocol import Command, FrameEncoder, Opcode, SampleBlock, make_decoder
+from taprig.firmware_protocol.formats import Decoder
 from taprig.firmware_protocol.simpiece.instrument import open_simulated
 
+Link = SerialLink | ProcessLink
+MakeLink = Callable[..., Link]
 
-def drain_until(link: SerialLink, cond: Callable[[Item], bool], timeout: float = 5.0) -> list[Item]:
+
+@pytest.fixture(params=[SerialLink, ProcessLink], ids=["thread", "process"])
+def make_link(request: pytest.FixtureRequest) -> MakeLink:
+    kind: MakeLink = request.param
+    return kind
+
+
+def drain_until(link: Link, cond: Callable[[Item], bool], timeout: float = 5.0) -> list[Item]:
     seen: list[Item] = []
     deadline = time.monotonic() + timeout
     while True:
@@ -33,10 +50,10 @@ def is_state(state: LinkState) -> Callable[[Item], bool]:
     return lambda item: isinstance(item, LinkChange) and item.state is state
 
 
-def test_reconnects_within_a_second_of_replug(tmp_path: Path) -> None:
+def test_reconnects_within_a_second_of_replug(tmp_path: Path, make_link: MakeLink) -> None:
     link_path = tmp_path / "ttyRIG"
     piece = open_simulated("pty", link=str(link_path))
-    link = SerialLink(str(link_path)).start()
+    link = make_link(str(link_path)).start()
     enc = FrameEncoder()
     try:
         drain_until(link, is_state(LinkState.CONNECTED))
@@ -57,8 +74,8 @@ def test_reconnects_within_a_second_of_replug(tmp_path: Path) -> None:
         piece.close()
 
 
-def test_missing_device_is_reported_not_fatal(tmp_path: Path) -> None:
-    link = SerialLink(str(tmp_path / "no-such-tty")).start()
+def test_missing_device_is_reported_not_fatal(tmp_path: Path, make_link: MakeLink) -> None:
+    link = make_link(str(tmp_path / "no-such-tty")).start()
     try:
         seen = drain_until(link, is_state(LinkState.DISCONNECTED))
         change = seen[-1]
@@ -67,9 +84,9 @@ def test_missing_device_is_reported_not_fatal(tmp_path: Path) -> None:
         link.close()
 
 
-def test_stall_is_reported_and_clears() -> None:
+def test_stall_is_reported_and_clears(make_link: MakeLink) -> None:
     piece = open_simulated("pty")
-    link = SerialLink(piece.url, stall_after_s=0.3).start()
+    link = make_link(piece.url, stall_after_s=0.3).start()
     try:
         drain_until(link, is_state(LinkState.CONNECTED))
         link.send(FrameEncoder().command(Command(Opcode.START, 1)))
@@ -86,24 +103,103 @@ def test_stall_is_reported_and_clears() -> None:
         piece.close()
 
 
-def test_bytes_arrive_in_order_and_decode() -> None:
+def test_bytes_arrive_in_order_and_decode(make_link: MakeLink) -> None:
     piece = open_simulated("pty")
-    link = SerialLink(piece.url).start()
+    link = make_link(piece.url).start()
     dec = make_decoder("binary")
     try:
         drain_until(link, is_state(LinkState.CONNECTED))
         link.send(FrameEncoder().command(Command(Opcode.START, 1)))
-        total = 0
-        deadline = time.monotonic() + 5
-        while total < 20_000:
-            assert time.monotonic() < deadline
-            try:
-                item = link.items.get(timeout=0.1)
-            except queue.Empty:
-                continue
-            if isinstance(item, bytes):
-                total += sum(ev.count for ev in dec.feed(item) if isinstance(ev, SampleBlock))
+        _samples(link, dec, 20_000, timeout=5.0)
         assert dec.stats.crc_errors == 0 and dec.stats.samples_lost == 0
+    finally:
+        link.close()
+        piece.close()
+
+
+def _samples(link: Link, dec: Decoder, wanted: int, timeout: float = 10.0) -> int:
+    """Decode what the link hands over until `wanted` samples have come; their count."""
+    total = 0
+    deadline = time.monotonic() + timeout
+    while total < wanted:
+        assert time.monotonic() < deadline, f"only {total} samples in {timeout:g} s"
+        try:
+            item = link.items.get(timeout=0.1)
+        except queue.Empty:
+            continue
+        if isinstance(item, bytes):
+            total += sum(ev.count for ev in dec.feed(item) if isinstance(ev, SampleBlock))
+    return total
+
+
+@pytest.mark.parametrize("kind", [SerialLink, ProcessLink], ids=["thread", "process"])
+def test_a_host_that_stops_reading_loses_nothing_only_with_the_link_process(
+    kind: MakeLink,
+) -> None:
+    """The rig takes nothing from the link for 2 s (as a starved daemon would) while its queue
+    holds only 4 reads. In a thread the reader must drop what does not fit; the link process
+    holds it (the pipe fills, the child keeps reading into its own memory), and after the
+    pause every sample arrives, in order."""
+    piece = open_simulated("pty")
+    link = kind(piece.url, queue_chunks=4).start()
+    dec = make_decoder("binary")
+    try:
+        drain_until(link, is_state(LinkState.CONNECTED))
+        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+        _samples(link, dec, 5_000)
+        pause = threading.Event()
+        pause.wait(2.0)  # the starved host: nothing read meanwhile (the point of the test)
+        got = _samples(link, dec, int(2.5 * piece.rate_hz))  # the 2 s held, and more
+        if kind is ProcessLink:
+            assert dec.stats.samples_lost == 0 and dec.stats.crc_errors == 0
+            assert link.dropped_chunks == 0
+        else:
+            assert link.dropped_chunks > 0 and dec.stats.samples_lost > 0
+        assert got >= int(2.5 * piece.rate_hz)
+    finally:
+        link.close()
+        piece.close()
+
+
+def test_a_killed_link_process_is_started_again() -> None:
+    piece = open_simulated("pty")
+    link = ProcessLink(piece.url).start()
+    try:
+        drain_until(link, is_state(LinkState.CONNECTED))
+        first = link.child_pid
+        os.kill(first, signal.SIGKILL)
+        seen = drain_until(link, is_state(LinkState.DISCONNECTED))
+        assert isinstance(seen[-1], LinkChange) and "link process ended" in seen[-1].detail
+        drain_until(link, is_state(LinkState.CONNECTED))
+        assert link.child_pid != first
+        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+        drain_until(link, lambda i: isinstance(i, bytes))
+    finally:
+        link.close()
+        piece.close()
+    with pytest.raises(ProcessLookupError):
+        os.kill(link.child_pid, 0)  # closing ended the child too
+
+
+def test_a_stale_stall_report_does_not_reopen_a_flowing_link(make_link: MakeLink) -> None:
+    """The rig asks to reopen after a stall, but only if the link is still stalled: a daemon
+    frozen through the stall acts on the report late, when the bytes flow again, and reopening
+    then would throw the flowing data away."""
+    piece = open_simulated("pty")
+    link = make_link(piece.url, stall_after_s=0.3).start()
+    dec = make_decoder("binary")
+    try:
+        drain_until(link, is_state(LinkState.CONNECTED))
+        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+        piece.faults.stalled = True
+        drain_until(link, is_state(LinkState.STALLED))
+        piece.faults.stalled = False
+        drain_until(link, is_state(LinkState.CONNECTED))
+        link.reconnect("stale", only_if_stalled=True)
+        _samples(link, dec, int(0.5 * piece.rate_hz))  # the reader has gone round meanwhile
+        link.reconnect("meant")
+        seen = drain_until(link, is_state(LinkState.DISCONNECTED))
+        assert isinstance(seen[-1], LinkChange) and seen[-1].detail == "meant"
     finally:
         link.close()
         piece.close()

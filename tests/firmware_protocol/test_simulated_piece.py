@@ -481,3 +481,40 @@ def test_decoder_sees_tap_time_exactly() -> None:
 
 def test_binary_decoder_type_is_used() -> None:
     assert isinstance(make_decoder("binary"), BinaryDecoder)
+
+
+def test_a_tap_can_pull_the_cable_at_a_given_sample(tmp_path: Path) -> None:
+    """`unplug_after_s`: the device loses power at that sample of its own clock, so no sample
+    after it is ever sent, however late the host reads (the cut-record fault, made certain).
+    What was in flight when the cable went may be lost too (a pty hangs up), never more."""
+    link = tmp_path / "ttyCUT"
+    with open_simulated("pty", link=str(link)) as inst:
+        port = serial.serial_for_url(str(link), timeout=0.05)
+        dec = BinaryDecoder()
+        last = -1
+
+        def read() -> None:
+            nonlocal last
+            for ev in dec.feed(port.read(65536)):
+                if isinstance(ev, SampleBlock):
+                    last = ev.first_index + ev.count - 1
+
+        port.write(FrameEncoder().command(Command(Opcode.START, 1)))
+        deadline = time.monotonic() + 10
+        while last < 0:
+            assert time.monotonic() < deadline
+            read()
+        record = inst.tap("A1", unplug_after_s=0.02)
+        assert record is not None
+        cut = record.first_index + math.ceil(0.02 * inst.rate_hz)
+        try:
+            while time.monotonic() < deadline:
+                read()
+        except serial.SerialException:
+            pass  # the cable is out: the host's read fails
+        finally:
+            port.close()
+        while inst.streaming:  # powered off just after the port went away
+            assert time.monotonic() < deadline, "the device never stopped"
+            time.sleep(0.005)
+        assert 0 <= last < cut + inst.settings.frame_samples  # nothing past the cut's chunk
