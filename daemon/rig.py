@@ -1,6 +1,6 @@
 """The rig: one device, one processing thread, the capture pipeline end to end.
 
-    SerialLink (reader thread) ─► Decoder ─► Acquirer ─► check_hit ─► Session ─► Store
+    link (its own process) ─► Decoder ─► Acquirer ─► check_hit ─► Session ─► Store
 
 The processing thread owns the decoder, the acquirer, the session and every field of
 the rig; other threads (the CLI, the HTTP service, the event loop) never read those
@@ -33,11 +33,10 @@ from taprig.firmware_protocol import (
 from . import resume, stages, tally
 from .capture.acquire import Acquirer
 from .capture.hits import check_hit
-from .capture.link import LinkChange, LinkState, SerialLink
-from .capture.linkproc import ProcessLink
+from .capture.link import LinkChange, LinkState
 from .capture.session import HitOutcome, Session, no_session
 from .capture.spectra import single_average_warning
-from .config import Config, LinkReader
+from .config import Config
 from .display import last_hit_view
 from .errors import DiskLowError, SessionError, TaprigError
 from .owner import Owner
@@ -69,10 +68,7 @@ class Rig(Owner[RigEvent]):
         self._checks = stages.check_settings(config)
         self._acq: Acquirer | None = None
         self._enc = FrameEncoder()
-        reader = ProcessLink if config.device.reader is LinkReader.PROCESS else SerialLink
-        self._link: SerialLink | ProcessLink = reader(
-            self.url, baudrate=config.device.baudrate, stall_after_s=config.device.stall_s
-        )
+        self._link = stages.link(config, self.url)
         self._closed = False
         self._item_time = 0.0
         self._last_record: HitRecord | None = None
@@ -230,8 +226,7 @@ class Rig(Owner[RigEvent]):
             for data in stages.opening_bytes(self._decoder, self._enc):
                 self._link.send(data)
         elif change.state is LinkState.STALLED:
-            # Decided where the bytes are seen: this report may be stale (the daemon frozen
-            # while the link process went on reading), and the data may flow again by now.
+            # The reader decides: this report may be stale, the bytes flowing again by now.
             self._link.reconnect("no data: reopening the device", only_if_stalled=True)
 
     def _bytes(self, data: bytes) -> None:

@@ -24,9 +24,11 @@ from taprig.firmware_protocol.text import RATE_QUERY
 from . import __version__, placement
 from .capture.acquire import Acquirer, TriggerSettings
 from .capture.hits import CheckSettings
+from .capture.link import SerialLink
+from .capture.linkproc import ProcessLink
 from .capture.session import Plan, Session
 from .capture.spectra import WindowSettings
-from .config import Config
+from .config import Config, LinkReader
 from .errors import SessionError, TaprigError
 from .grid import test_meta
 from .records import GridPoint, Role, RovingMode
@@ -34,6 +36,13 @@ from .store import Store, TestPlan
 
 log = logging.getLogger(__name__)
 Places = Mapping[str, str | tuple[str, str]]  # label -> where, or (where, direction)
+
+def link(config: Config, url: str) -> SerialLink | ProcessLink:
+    """The link device.reader asks for (not started): a process of its own, or a thread."""
+    device = config.device
+    kind = ProcessLink if device.reader is LinkReader.PROCESS else SerialLink
+    return kind(url, baudrate=device.baudrate, stall_after_s=device.stall_s)
+
 
 def decoder(config: Config) -> Decoder:
     """The input format's decoder, as device.format names it."""

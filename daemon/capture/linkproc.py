@@ -29,7 +29,15 @@ import sys
 import time
 from typing import IO, Any, Final
 
-from .link import BACKOFF_FIRST_S, BACKOFF_MAX_S, Item, LinkBase, LinkChange, LinkState, log_state
+from .link import (
+    BACKOFF_FIRST_S,
+    BACKOFF_MAX_S,
+    Item,
+    LinkBase,
+    LinkChange,
+    LinkState,
+    log_state,
+)
 
 log = logging.getLogger(__name__)
 
