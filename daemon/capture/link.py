@@ -149,10 +149,16 @@ class SerialLink(LinkBase):
 
     def _open(self) -> bool:
         try:
-            # Every backend (tty, socket://, rfc2217://) has Serial's read interface.
-            port = serial.serial_for_url(self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S)
+            # Every backend (tty, socket://, rfc2217://) has Serial's read interface. A tty is
+            # locked for this reader alone (flock; the network backends ignore it): a second
+            # reader of the same tty would take bytes from this one, and a reader retrying a
+            # path its device left (/dev/pts/N is handed to the next pty at once) would too.
+            port = serial.serial_for_url(
+                self.url, baudrate=self.baudrate, timeout=READ_TIMEOUT_S, exclusive=True
+            )
         except (serial.SerialException, OSError, ValueError) as exc:
-            self._set_state(LinkState.DISCONNECTED, f"cannot open {self.url}: {exc}")
+            busy = "; another program reads this port" if "exclusively lock" in str(exc) else ""
+            self._set_state(LinkState.DISCONNECTED, f"cannot open {self.url}: {exc}{busy}")
             return False
         with self._write_lock:
             self._port = port

@@ -84,6 +84,35 @@ def test_missing_device_is_reported_not_fatal(tmp_path: Path, make_link: MakeLin
         link.close()
 
 
+def test_a_second_reader_of_the_tty_is_refused_and_takes_nothing(make_link: MakeLink) -> None:
+    """Two readers of one tty share its bytes, each getting some; the second link is refused.
+    (The usual way to get there: a link retrying a path its device left, /dev/pts/N, which
+    the kernel hands to the next pty at once.) Seen before the lock: the first reader's
+    pyserial read found the bytes gone ("device reports readiness to read but returned no
+    data"), dropped what it had read in that call and reopened the port."""
+    piece = open_simulated("pty")
+    first = make_link(piece.url).start()
+    second: SerialLink | None = None
+    try:
+        drain_until(first, is_state(LinkState.CONNECTED))
+        first.send(FrameEncoder().command(Command(Opcode.START, 1)))
+        dec = make_decoder("binary")
+        _samples(first, dec, 5_000, timeout=5.0)
+        second = SerialLink(piece.url).start()
+        refused = drain_until(second, is_state(LinkState.DISCONNECTED))[-1]
+        assert isinstance(refused, LinkChange) and "lock" in refused.detail, refused
+        _samples(first, dec, 20_000, timeout=5.0)  # ~0.4 s more of the stream
+        assert dec.stats.samples_lost == 0 and dec.stats.crc_errors == 0
+        assert first.reconnects == 0 and first.state is LinkState.CONNECTED
+        assert second.state is LinkState.DISCONNECTED
+        assert not any(isinstance(i, bytes) for i in list(second.items.queue))
+    finally:
+        if second is not None:
+            second.close()
+        first.close()
+        piece.close()
+
+
 def test_stall_is_reported_and_clears(make_link: MakeLink) -> None:
     piece = open_simulated("pty")
     link = make_link(piece.url, stall_after_s=0.3).start()
