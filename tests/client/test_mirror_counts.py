@@ -17,7 +17,7 @@ from schema import golden  # tests/ is on sys.path (tests/conftest.py)
 from taprig.client.mirror import MIRROR_VERSION, Mirror, MirroredPointSet
 from taprig.client.pull import pull
 from taprig.client.remote import RigClient
-from taprig.schema import codec, http, objects, pointset, records
+from taprig.schema import codec, http, objects, records
 
 from .conftest import ServedRig, commit_synthetic
 
@@ -52,14 +52,7 @@ def test_a_mirror_of_schema_2_raw_hits_reads_them_as_before(tmp_path: Path) -> N
         (point_set_id, kept_digest), *_ = mirror.digests()
         assert mirror.body(point_set_id) == (digest, body) and kept_digest == digest
         ps = mirror.point_set(point_set_id)
-        assert len(ps.hits) == 2
-        for i, hit in enumerate(ps.hits):
-            was = golden.schema_2_hit_data(i)
-            assert hit.data is not None and hit.scale is not None
-            assert hit.data.dtype == pointset.F4 and hit.data.tobytes() == was.tobytes()
-            assert hit.scale.tolist() == [1.0] * was.shape[0]
-            si = hit.si()
-            assert si is not None and np.array_equal(si, was.astype(np.float64), equal_nan=True)
+        golden.assert_schema_2_hits(ps.hits)
         assert [p.id for p in mirror.point_sets(ps.test)] == [point_set_id]
     assert MIRROR_VERSION == 1  # bodies as served: the mirror's tables did not change
 

@@ -21,8 +21,9 @@ import hashlib
 import json
 import struct
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -35,7 +36,7 @@ from taprig.schema.objects import (
     point_set_to_obj,
     test_to_obj,
 )
-from taprig.schema.pointset import field_values
+from taprig.schema.pointset import HitFields, field_values
 from taprig.schema.records import WireChange, WireHit, WirePointSet, WireTest
 
 FOLDER = Path(__file__).with_name("golden") / "v3"
@@ -80,6 +81,20 @@ def _codes(i: int, channels: int, block: int) -> tuple[np.ndarray, np.ndarray]:
 def schema_2_hit_data(i: int, n_resp: int = 2, block: int = 16) -> np.ndarray:
     """Hit `i`'s record as `golden/v2/` holds it (float32 values)."""
     return _real(1 + n_resp, block, offset=i).astype("<f4")
+
+
+def assert_schema_2_hits(hits: Sequence[HitFields[Any]]) -> None:
+    """`hits` hold `golden/v2/`'s records as today's code reads them: the float32 values bit
+    for bit, a scale of 1.0, and `si()` their widening to float64, which is exact (IEEE
+    754-2008 §5.4.2: every binary32 value is a binary64 value)."""
+    assert len(hits) == 2
+    for i, hit in enumerate(hits):
+        was = schema_2_hit_data(i)
+        assert hit.data is not None and hit.scale is not None
+        assert hit.data.dtype == np.float32 and hit.data.tobytes() == was.tobytes()
+        assert hit.scale.dtype == np.float64 and hit.scale.tolist() == [1.0] * was.shape[0]
+        si = hit.si()
+        assert si is not None and np.array_equal(si, was.astype(np.float64), equal_nan=True)
 
 
 Values = Callable[..., np.ndarray]

@@ -9,14 +9,13 @@ from __future__ import annotations
 
 import json
 
-import numpy as np
 import psycopg
 import pytest
 
 from schema import golden  # tests/ is on sys.path (tests/conftest.py)
 from taprig.client.archive import Archive, db
 from taprig.client.archive.db import migrate, migrations
-from taprig.schema import codec, http, objects, pointset, records
+from taprig.schema import codec, http, objects, records
 
 from .pg import PgServer
 
@@ -66,14 +65,7 @@ def test_an_archive_at_migration_1_is_migrated_to_2_and_reads_back_equal(
     with Archive(dsn, rig=RIG_ID) as archive:
         assert archive.body(point_set_id) == (digest, body)
         assert http.digest_matches(digest, body)
-        ps = archive.point_set(point_set_id)
-        for i, hit in enumerate(ps.hits):
-            was = golden.schema_2_hit_data(i)
-            assert hit.data is not None and hit.scale is not None
-            assert hit.data.dtype == pointset.F4 and hit.data.tobytes() == was.tobytes()
-            assert hit.scale.tolist() == [1.0] * was.shape[0]
-            si = hit.si()
-            assert si is not None and np.array_equal(si, was.astype(np.float64), equal_nan=True)
+        golden.assert_schema_2_hits(archive.point_set(point_set_id).hits)
     with psycopg.connect(dsn) as conn:
         described = {v for (v,) in conn.execute("SELECT version FROM wire_schemas")}
         assert described >= records.READ_VERSIONS  # every schema a client reads has its row
