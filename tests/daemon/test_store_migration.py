@@ -5,12 +5,14 @@ they had and a scale of 1.0, its stored bodies served as they were stored."""
 from __future__ import annotations
 
 import dataclasses
+import json
 import sqlite3
 from pathlib import Path
 
 import numpy as np
 import pytest
 
+from taprig.daemon.api.bodies import encode_point_set
 from taprig.daemon.errors import StoreError
 from taprig.daemon.records import PointSet, RovingMode, StoredHit
 from taprig.daemon.store import FILE_NAME, Store
@@ -107,3 +109,23 @@ def test_a_hit_whose_scale_does_not_fit_is_refused_naming_the_field(tmp_path: Pa
         with pytest.raises(StoreError, match=r"hit 0: data\.dtype: <f8 is not one of <i2, <i4"):
             store.commit_point_set(dataclasses.replace(ps, hits=(float64,)))
         assert store.list_point_sets() == []
+
+
+def test_the_json_form_carries_codes_as_integers_and_the_scale(tmp_path: Path) -> None:
+    """`GET /v1/points/{id}?hits=1` as JSON: a record of codes is a list of integers (exact
+    in JSON), its scale a list of floats written as the shortest text that reads back the
+    same double (Python's repr)."""
+    ps = make_point_set("beam", "P1", 8, n_freq=17, block=32)
+    with Store(tmp_path, body_encoder=encode_body) as store:
+        store.save_test("beam", GRID, RovingMode.HAMMER, "P1", 3, {})
+        store.commit_point_set(ps)
+        (summary,) = store.list_point_sets()
+        body, media, _digest = encode_point_set(store, summary.id, True, as_msgpack=False)
+    assert media == "application/json"
+    hits = json.loads(body)["hits"]
+    for got, was in zip(hits, ps.hits, strict=True):
+        assert was.data is not None and was.scale is not None
+        assert got["data"]["dtype"] == was.data.dtype.str
+        assert got["data"]["values"] == was.data.tolist()
+        assert got["scale"] == {"dtype": "<f8", "shape": [3], "values": was.scale.tolist()}
+    assert all(type(v) is int for v in hits[0]["data"]["values"][0])
