@@ -29,8 +29,8 @@ hit scale  <f8        (C,)        SI units per count     per channel N or m/s² 
 
 Dimensions (`DIMS`): R = len(response_labels) responses, F frequency lines, C channels of a
 hit record, N samples of a hit record. Every array has exactly its dtype on the wire and in
-the store (little-endian, C order); `check_shapes` holds the arrays of one point set to one R
-and one F.
+the store (little-endian, C order), a hit's record one of its three; `check_shapes` holds
+the arrays of one point set to one R and one F.
 
 A hit's record (schema 3) is what the device sent: its integer codes, `<i2` when every
 channel's converter has at most 16 bits, `<i4` otherwise, with `scale` (SI units per code of
@@ -87,7 +87,7 @@ DIMS: Final[Mapping[str, str]] = {
 class ArraySpec:
     """One array of a point set (a row of the table).
 
-    name: the field's name in every record and on the wire. dtype: its one dtype. dims:
+    name: the field's name in every record and on the wire. dtype: its dtype. dims:
     symbolic dimensions, keys of `DIMS`. unit: SI unit of its values. column: the store's
     column for it. optional: None is allowed (a hit fetched without its record). v1: its
     dtype in schema 1 where that differs (None: the same). also: other dtypes it may have
