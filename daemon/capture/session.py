@@ -253,8 +253,12 @@ class Session:
         return outcome
 
     def _keep(self, record: HitRecord, verdict: HitVerdict, *, accepted: bool) -> None:
-        # The device's codes with their scale (schema.pointset "hit data"), not SI floats.
-        data, scale = hit_record(record.data, record.per_count, record.code_bits)
+        # The device's codes with their scale (schema.pointset "hit data"), not SI floats;
+        # values no code can give (beyond 32 bits, NaN) are kept as SI values instead.
+        try:
+            data, scale = hit_record(record.data, record.per_count, record.code_bits)
+        except ValueError:
+            data, scale = hit_record(record.data, None)
         self._hits.append(
             StoredHit(
                 trigger_index=record.trigger_index,

@@ -160,3 +160,23 @@ def test_an_int16_record_is_half_the_float32_one(int16_point_set: PointSet) -> N
         assert as_float32 is not None
         assert hit.data.nbytes * 2 == as_float32.nbytes
         assert hit.data.nbytes + hit.scale.nbytes <= as_float32.nbytes / 2 + 8 * hit.data.shape[0]
+
+
+def test_the_session_keeps_codes_and_falls_back_to_si_values_for_impossible_ones() -> None:
+    """A record made of codes × scale is kept as those codes; one no 32-bit code can give
+    (two's-complement range, common practice) is kept as float32 SI values, scale 1.0."""
+    from .test_session import hit, session
+
+    record, verdict = hit(100.0)
+    per_count = np.array([100.0 / 2**15, 300.0 / 2**15])  # N and m/s² per code
+    codes = np.rint(record.data / per_count[:, None])
+    exact = dataclasses.replace(record, data=codes * per_count[:, None], per_count=per_count,
+                                code_bits=16)  # fmt: skip
+    ps = session(averages=1).on_hit(exact, verdict).completed
+    assert ps is not None and ps.hits[0].data is not None and ps.hits[0].scale is not None
+    assert ps.hits[0].data.dtype == I2 and np.array_equal(ps.hits[0].data, codes)
+    assert np.array_equal(ps.hits[0].scale, per_count)
+    huge = dataclasses.replace(exact, per_count=per_count * 1e-9)
+    ps = session(averages=1).on_hit(huge, verdict).completed
+    assert ps is not None and ps.hits[0].data is not None and ps.hits[0].scale is not None
+    assert ps.hits[0].data.dtype == F4 and ps.hits[0].scale.tolist() == [1.0, 1.0]
