@@ -52,6 +52,11 @@ d/dt ↔ iω, so the same division holds. At f = 0 the division is undefined: mo
 receptance exports drop the 0 Hz line (a fitter gets only lines with a value, no NaN).
 Coherence is a ratio of spectra and is the same for every quantity.
 
+Hit records. The exports carry the FRFs, not the hits' raw records, so they did not change
+when the records became device codes (schema 3). A reader who wants a record takes it from
+the mirror in SI units (N, m/s²) with ``hit.si()``: ``data × scale``, the one conversion
+(`taprig.schema.pointset.hit_si`); ``data`` alone is in device counts.
+
 Band: ``band=(F1, F2)`` keeps the lines with F1 <= f <= F2 (Hz); a band that is not two
 finite numbers 0 <= F1 < F2, or holds no line, is a ValueError naming the band.
 """

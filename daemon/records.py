@@ -52,6 +52,10 @@ class HitRecord:
     near_full_scale: per channel, True if any sample is within 1 % of full scale.
     device_overload: per channel, True if a STATUS frame flagged an overload in the record.
     gap: the record straddles samples the link lost.
+    per_count: (channels,) float64 SI units per device code (volts per code × si_per_volt),
+    so data / per_count[:, None] rounds to the codes the device sent; None when the device
+    sends no codes (float32 samples, a text board). code_bits: the widest converter among
+    the record's channels.
     """
 
     first_index: int
@@ -61,6 +65,8 @@ class HitRecord:
     near_full_scale: tuple[bool, ...]
     device_overload: tuple[bool, ...]
     gap: bool
+    per_count: np.ndarray | None = None
+    code_bits: int = 32
 
     @property
     def pretrigger(self) -> int:

@@ -247,8 +247,8 @@ class Rig(Owner[RigEvent]):
                 self._emit("message", {"text": ev.message})
 
     def _new_info(self, info: DeviceInfo) -> None:
-        changed = self.info is None or (info.rate_milli_hz, info.channels) != (
-            self.info.rate_milli_hz, self.info.channels,
+        changed = self.info is None or (info.rate_milli_hz, info.channels, info.sample_format) != (
+            self.info.rate_milli_hz, self.info.channels, self.info.sample_format,
         )  # fmt: skip
         self.info = info
         if not changed and self._acq is not None:

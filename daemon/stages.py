@@ -17,6 +17,7 @@ from taprig.firmware_protocol import (
     DeviceInfo,
     FrameEncoder,
     Opcode,
+    SampleFormat,
     make_decoder,
 )
 from taprig.firmware_protocol.text import RATE_QUERY
@@ -92,9 +93,12 @@ def acquirer(config: Config, info: DeviceInfo) -> Acquirer:
     cap = config.capture
     trig = TriggerSettings(cap.trigger_level_n, cap.hysteresis_n, cap.trigger_slope,
                            cap.pretrigger, cap.block)  # fmt: skip
+    codes = info.sample_format is not SampleFormat.FLOAT32  # float32 and text: no codes
     return Acquirer(
         config.channels, trig, info.rate_hz, [c.full_scale_v for c in info.channels],
         ring_seconds=cap.ring_seconds, full_scale_margin=cap.full_scale_margin,
+        volts_per_code=info.volts_per_code() if codes else None,
+        adc_bits=[c.adc_bits for c in info.channels],
     )  # fmt: skip
 
 

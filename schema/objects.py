@@ -10,11 +10,14 @@ field (``hits[2].data.shape``). Adding a field is a new `SCHEMA_VERSION`.
 The point set's fields, dtypes and dimensions come from `schema.pointset`; this module adds
 only what each scalar may hold (`_RULES`).
 
-Arrays travel as ``{"dtype": "<f8" | "<f4" | "<c8", "shape": [d0, d1, ...], "data": <bin>}``:
-the raw little-endian C-order bytes of the array, so a round trip is bit for bit (NaN payloads
-included). Each array field has one fixed dtype; the encoder casts to it when the cast stays
-within the kind (float → float, real → complex is refused for real fields) and the decoder
-accepts exactly that dtype. Decoded arrays are read-only views of the received bytes.
+Arrays travel as ``{"dtype": "<f8" | "<f4" | "<c8" | "<i2" | "<i4", "shape": [d0, d1, ...],
+"data": <bin>}``: the raw little-endian C-order bytes of the array, so a round trip is bit
+for bit (NaN payloads included). Each spectrum has one fixed dtype; the encoder casts to it
+when the cast stays within the kind (float → float, real → complex is refused for real
+fields) and the decoder accepts exactly that dtype. A hit's record keeps its own dtype, one
+of ``"<i2"``, ``"<i4"`` (device codes) or ``"<f4"`` (SI values), with its ``scale``
+(``"<f8"``, one per channel) beside it; any other dtype or a scale that does not fit is
+refused. Decoded arrays are read-only views of the received bytes.
 """
 
 from __future__ import annotations
@@ -45,9 +48,12 @@ from .pointset import (
     ARRAY_DTYPES,
     ARRAYS,
     HIT_DATA,
+    HIT_DATA_SINCE,
     HIT_SCALARS,
+    HIT_SCALE,
     SCALARS,
     SCHEMA_DTYPES,
+    check_hit_record,
     check_shapes,
     in_dtype,
 )
@@ -86,14 +92,19 @@ def array_to_obj(a: Any, dtype: np.dtype[Any], ndim: int, where: str) -> dict[st
     return {"dtype": dtype.str, "shape": [int(n) for n in arr.shape], "data": data}
 
 
-def array_from_obj(obj: Any, dtype: np.dtype[Any], ndim: int, where: str) -> np.ndarray:
-    """The read-only array of an `array_to_obj` object; it must have `dtype` and `ndim`."""
+def array_from_obj(
+    obj: Any, dtype: np.dtype[Any] | tuple[np.dtype[Any], ...], ndim: int, where: str
+) -> np.ndarray:
+    """The read-only array of an `array_to_obj` object; it must have `dtype` (or one of the
+    tuple `dtype`) and `ndim`."""
     fields = exact(obj, where, ("dtype", "shape", "data"))
     code = text(fields["dtype"], at(where, "dtype"))
     if code not in ARRAY_DTYPES:
         fail(at(where, "dtype"), f"{code!r} is not one of {', '.join(ARRAY_DTYPES)}")
-    if code != dtype.str:
-        fail(at(where, "dtype"), f"expected {dtype.str}, got {code}")
+    allowed = {d.str: d for d in (dtype if isinstance(dtype, tuple) else (dtype,))}
+    if code not in allowed:
+        fail(at(where, "dtype"), f"expected {' or '.join(allowed)}, got {code}")
+    dtype = allowed[code]
     shape_at = at(where, "shape")
     shape = tuple(
         integer(n, f"{shape_at}[{i}]", 0) for i, n in enumerate(sequence(fields["shape"], shape_at))
@@ -144,7 +155,9 @@ _RULES: Final[dict[str, Rule]] = {
 
 _PS_SCALARS: Final = ("id", *SCALARS)
 _PS_FIELDS: Final = (*_PS_SCALARS, *(a.name for a in ARRAYS), "hits", "meta")
-_HIT_FIELDS: Final = (*HIT_SCALARS, "findings", HIT_DATA.name)
+_HIT_FIELDS: Final = (*HIT_SCALARS, "findings", HIT_DATA.name, HIT_SCALE.name)
+_OLD_HIT_FIELDS: Final = (*HIT_SCALARS, "findings", HIT_DATA.name)
+"""A hit's fields before `HIT_DATA_SINCE` (float32 SI records, no scale)."""
 _SUMMARY_FIELDS: Final = tuple(f.name for f in dataclasses.fields(WirePointSetSummary))
 
 
@@ -172,26 +185,49 @@ def _findings(value: Any, where: str) -> tuple[tuple[str, str], ...]:
     return tuple(findings)
 
 
+def _hit_record_must_fit(data: Any, scale: Any, where: str) -> None:
+    """SchemaError naming the field when a hit's record and scale do not fit together
+    (`schema.pointset.check_hit_record`)."""
+    problem = check_hit_record(data, scale)
+    if problem is not None:
+        fail(at(where, problem[0]), problem[1])
+
+
 def _hit_to_obj(h: WireHit, where: str, with_data: bool) -> dict[str, Any]:
     out = _checked(lambda k: getattr(h, k), HIT_SCALARS, where)
     out["findings"] = [list(pair) for pair in _findings(h.findings, at(where, "findings"))]
-    data = None
+    data = scale = None
     if with_data and h.data is not None:
-        data = array_to_obj(h.data, HIT_DATA.dtype, HIT_DATA.ndim, at(where, HIT_DATA.name))
+        arr = np.asarray(h.data)
+        per = None if h.scale is None else np.asarray(h.scale)
+        _hit_record_must_fit(arr, per, where)
+        data = array_to_obj(arr, arr.dtype, HIT_DATA.ndim, at(where, HIT_DATA.name))
+        scale = array_to_obj(per, HIT_SCALE.dtype, HIT_SCALE.ndim, at(where, HIT_SCALE.name))
     out[HIT_DATA.name] = data
+    out[HIT_SCALE.name] = scale
     return out
 
 
-def _hit_from_obj(obj: Any, where: str) -> WireHit:
-    f = exact(obj, where, _HIT_FIELDS)
-    d = HIT_DATA
-    data = f[d.name]
-    if data is not None or not d.optional:
-        data = array_from_obj(data, d.dtype, d.ndim, at(where, d.name))
+def _hit_from_obj(obj: Any, where: str, schema: int) -> WireHit:
+    """A hit of a body of `schema`: before `HIT_DATA_SINCE` its record is float32 SI values
+    without a scale, read with a scale of 1.0."""
+    d, s = HIT_DATA, HIT_SCALE
+    old = schema < HIT_DATA_SINCE
+    f = exact(obj, where, _OLD_HIT_FIELDS if old else _HIT_FIELDS)
+    data = scale = None
+    if f[d.name] is not None:
+        data = array_from_obj(f[d.name], d.dtype if old else d.allowed, d.ndim, at(where, d.name))
+    if old and data is not None:
+        scale = np.ones(data.shape[0], dtype=s.dtype)
+        scale.flags.writeable = False
+    elif not old and f[s.name] is not None:
+        scale = array_from_obj(f[s.name], s.dtype, s.ndim, at(where, s.name))
+    _hit_record_must_fit(data, scale, where)
     return WireHit(
         **_checked(f.__getitem__, HIT_SCALARS, where),
         findings=_findings(f["findings"], at(where, "findings")),
         data=data,
+        scale=scale,
     )
 
 
@@ -220,7 +256,8 @@ def point_set_from_obj(obj: Any) -> WirePointSet:
     """The `WirePointSet` of a `point_set_to_obj` object (as `unpack` gives it back).
 
     Reads every schema of `READ_VERSIONS`: arrays an older schema stored in other dtypes
-    (`SCHEMA_DTYPES`) come back in today's, rounded as a cast rounds (to nearest).
+    (`SCHEMA_DTYPES`) come back in today's, rounded as a cast rounds (to nearest); hits of
+    schemas before `HIT_DATA_SINCE` keep their float32 SI records, with a scale of 1.0.
     Strict: SchemaError naming the field for a missing or extra field, a wrong type, a dtype
     other than the field's, a shape that does not match its bytes or the other arrays.
     """
@@ -232,7 +269,8 @@ def point_set_from_obj(obj: Any) -> WirePointSet:
         for a in ARRAYS
     }
     _shapes_must_agree(scalars, {name: a.shape for name, a in arrays.items()})
-    hits = tuple(_hit_from_obj(h, f"hits[{i}]") for i, h in enumerate(sequence(f["hits"], "hits")))
+    listed = enumerate(sequence(f["hits"], "hits"))
+    hits = tuple(_hit_from_obj(h, f"hits[{i}]", f["schema"]) for i, h in listed)
     return WirePointSet(**scalars, **arrays, hits=hits, meta=meta_map(f["meta"], "meta"))
 
 

@@ -19,13 +19,15 @@ from typing import Any, Final, Protocol
 
 from .pointset import HIT_SCALARS, HitFields, PointSetFields, field_values
 
-SCHEMA_VERSION: Final = 2
+SCHEMA_VERSION: Final = 3
 """Version of the objects below; raised on any change to their fields or meaning.
 
 1: the first. 2: spectra as float32 / complex64 (were float64 / complex128); every other
-field as in 1 (`schema.pointset`, "Precision").
+field as in 1 (`schema.pointset`, "Precision"). 3: a hit's record as the device's integer
+codes (int16 / int32, or float32 SI values from a device without codes) with its ``scale``,
+SI units per code of each channel (were float32 SI values, no scale).
 """
-READ_VERSIONS: Final = frozenset({1, SCHEMA_VERSION})
+READ_VERSIONS: Final = frozenset({1, 2, SCHEMA_VERSION})
 """Versions this side reads: bodies stored by older rigs, mirrors and archives stay readable."""
 
 ROVING_MODES: Final = frozenset({"hammer", "sensor"})
@@ -165,9 +167,10 @@ class ChangeLike(Protocol):
 
 
 def hit_from_record(hit: HitFields[FindingLike]) -> WireHit:
-    """The `WireHit` of a stored hit (its record is not copied)."""
+    """The `WireHit` of a stored hit (its record and scale are not copied)."""
     pairs = tuple((f.code, f.message) for f in hit.findings)
-    return WireHit(**{n: getattr(hit, n) for n in HIT_SCALARS}, findings=pairs, data=hit.data)
+    scalars = {n: getattr(hit, n) for n in HIT_SCALARS}
+    return WireHit(**scalars, findings=pairs, data=hit.data, scale=hit.scale)
 
 
 def point_set_from_record(

@@ -154,7 +154,8 @@ class BodyCache:
 
 
 def _point_json(obj: Payload) -> bytes:
-    """JSON of a `objects.point_set_to_obj` object: each array's bytes become nested lists.
+    """JSON of a `objects.point_set_to_obj` object: each array's bytes become nested lists
+    (a hit's codes as integers, its scale beside them).
 
     A real array is ``{"dtype", "shape", "values"}``, a complex one ``{"dtype", "shape",
     "real", "imag"}``; a non-finite value is null. Finite values round-trip exactly (Python
@@ -165,7 +166,8 @@ def _point_json(obj: Payload) -> bytes:
         if isinstance(value, dict) and set(value) == {"dtype", "shape", "data"}:
             out[key] = _array_json(value)
     out["hits"] = [
-        {**h, "data": None if h["data"] is None else _array_json(h["data"])} for h in obj["hits"]
+        {**h, **{k: None if h[k] is None else _array_json(h[k]) for k in ("data", "scale")}}
+        for h in obj["hits"]
     ]
     for h in out["hits"]:
         h["peak_force_n"], h["pulse_width_s"] = plain(h["peak_force_n"]), plain(h["pulse_width_s"])
@@ -181,6 +183,8 @@ def _array_json(a: Payload) -> Payload:
 
 
 def _finite_list(arr: np.ndarray) -> Any:
+    if arr.dtype.kind == "i":  # a hit's device codes stay integers
+        return arr.tolist()
     if bool(np.isfinite(arr).all()):
         return arr.astype(np.float64).tolist()
     out = arr.astype(np.float64).astype(object)

@@ -225,11 +225,14 @@ ROUTES: Final[tuple[Route, ...]] = (
           errors=(404, 503)),
     Route("GET", "/v1/points/{id}", "getPoint", "point",
           "one point set: JSON (arrays as lists) or msgpack (typed arrays) by Accept; "
-          "spectra float32/complex64 (schema 2), or as stored by an older schema",
+          "spectra float32/complex64; a hit's raw record as the device's int16/int32 codes "
+          "(float32 SI values from a device without codes) with `scale`, SI units per count "
+          "of each channel (schema 3), or as stored by an older schema",
           params=(_POINT_ID, Param("hits", "query", {"type": "integer", "enum": [0, 1]},
-                                   "1: include every hit's raw record (several times the "
-                                   "bytes); 0 (default): hits without records, the msgpack "
-                                   "body stored at commit, sent as stored")),
+                                   "1: include every hit's raw record and its scale (several "
+                                   "times the bytes; SI values = data × scale); 0 (default): "
+                                   "hits without records, the msgpack body stored at commit, "
+                                   "sent as stored")),
           media=(JSON, http.MSGPACK), errors=(404, 503), token_in_worker=True),
     Route("GET", "/v1/changes", "getChanges", "changes",
           "the change feed after `since`; waits up to `wait` s for a change",

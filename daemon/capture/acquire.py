@@ -86,7 +86,11 @@ class Acquirer:
         *,
         ring_seconds: float = 4.0,
         full_scale_margin: float = 0.01,
+        volts_per_code: Sequence[float] | None = None,
+        adc_bits: Sequence[int] | None = None,
     ) -> None:
+        """volts_per_code, adc_bits: per device channel, as the device describes them; None
+        for a device that sends no integer codes (its records are kept as SI values)."""
         self.channels = tuple(sorted(channels, key=lambda c: c.index))
         forces = [i for i, c in enumerate(self.channels) if c.role is Role.FORCE]
         if len(forces) != 1:
@@ -96,6 +100,13 @@ class Acquirer:
         self.rate_hz = rate_hz
         self._device_rows = np.array([c.index for c in self.channels])
         self._si = np.array([c.si_per_volt for c in self.channels])[:, None]
+        self._per_count: np.ndarray | None = None  # SI units per code, each channel
+        if volts_per_code is not None:
+            vpc = np.asarray(volts_per_code, dtype=np.float64)[self._device_rows]
+            self._per_count = vpc * self._si[:, 0]
+            self._per_count.flags.writeable = False
+        rows = self._device_rows.tolist()
+        self._code_bits = 32 if adc_bits is None else max(int(adc_bits[i]) for i in rows)
         fs = np.asarray(full_scale_v, dtype=np.float64)[self._device_rows]
         self._clip_v = (1.0 - full_scale_margin) * fs
         capacity = max(int(ring_seconds * rate_hz), 2 * trigger.block)
@@ -204,6 +215,8 @@ class Acquirer:
             near_full_scale=tuple(bool(x) for x in np.asarray(near.any(axis=1)).tolist()),
             device_overload=overload,
             gap=gap,
+            per_count=self._per_count,
+            code_bits=self._code_bits,
         )
 
     def _prune(self) -> None:

@@ -14,7 +14,7 @@ from typing import Any, Final
 
 import numpy as np
 
-from taprig.schema.pointset import utc_now
+from taprig.schema.pointset import hit_record, utc_now
 
 from ..errors import NotFound, SessionError
 from ..records import (
@@ -253,6 +253,12 @@ class Session:
         return outcome
 
     def _keep(self, record: HitRecord, verdict: HitVerdict, *, accepted: bool) -> None:
+        # The device's codes with their scale (schema.pointset "hit data"), not SI floats;
+        # values no code can give (beyond 32 bits, NaN) are kept as SI values instead.
+        try:
+            data, scale = hit_record(record.data, record.per_count, record.code_bits)
+        except ValueError:
+            data, scale = hit_record(record.data, None)
         self._hits.append(
             StoredHit(
                 trigger_index=record.trigger_index,
@@ -261,7 +267,8 @@ class Session:
                 peak_force_n=verdict.peak_force_n,
                 pulse_width_s=verdict.pulse_width_s,
                 findings=verdict.rejections + verdict.warnings,
-                data=record.data.astype(np.float32),
+                data=data,
+                scale=scale,
             )
         )
 

@@ -154,8 +154,9 @@ class Reads:
 
 
 def _fetch_point_set(conn: sqlite3.Connection, point_set_id: int, with_hits: bool) -> PointSet:
-    """One point set read on `conn`; its hits carry data=None unless with_hits."""
-    data = "data" if with_hits else "NULL AS data"
+    """One point set read on `conn`; its hits carry data=None (and scale=None) unless
+    with_hits."""
+    data = "data, scale" if with_hits else "NULL AS data, NULL AS scale"
     cur = conn.cursor()
     cur.row_factory = sqlite3.Row
     row = cur.execute(

@@ -14,7 +14,16 @@ from typing import Any
 
 import numpy as np
 
-from taprig.schema.pointset import ARRAYS, HIT_DATA, HIT_SCALARS, SCALARS, check_shapes, in_dtype
+from taprig.schema.pointset import (
+    ARRAYS,
+    HIT_DATA,
+    HIT_SCALARS,
+    HIT_SCALE,
+    SCALARS,
+    check_hit_record,
+    check_shapes,
+    in_dtype,
+)
 from taprig.schema.records import WirePointSetSummary
 
 from ..errors import StoreError
@@ -48,7 +57,9 @@ _PS_COLUMNS = (
     "meta",
     *(a.column for a in ARRAYS),
 )
-_HIT_COLUMNS = ("point_set_id", "ordinal", *HIT_SCALARS, "findings", HIT_DATA.column)
+_HIT_COLUMNS = (
+    "point_set_id", "ordinal", *HIT_SCALARS, "findings", HIT_DATA.column, HIT_SCALE.column
+)  # fmt: skip
 _SUMMARY_COLUMNS = ", ".join(
     "t.name AS test" if f.name == "test" else f"p.{f.name}"
     for f in dataclasses.fields(WirePointSetSummary)
@@ -79,9 +90,8 @@ def _point_set_row(test_id: int, ps: PointSet) -> tuple[Any, ...]:
 def _hit_rows(point_set_id: int, hits: Iterable[StoredHit]) -> Iterator[tuple[Any, ...]]:
     """The values of `_HIT_COLUMNS` for each hit."""
     # A generator: each hit is encoded as it is inserted, so a bad hit fails mid-transaction.
-    d = HIT_DATA
     for i, h in enumerate(hits):
-        data = None if h.data is None else encode_array(h.data, d.dtype, d.ndim, f"hit {i} data")
+        data, scale = _record_blobs(h, f"hit {i}")
         findings = _to_json([[f.code, f.message] for f in h.findings], f"hit {i} findings")
         values = {name: getattr(h, name) for name in HIT_SCALARS}
         values.update(
@@ -93,8 +103,24 @@ def _hit_rows(point_set_id: int, hits: Iterable[StoredHit]) -> Iterator[tuple[An
             pulse_width_s=float(h.pulse_width_s),
             findings=findings,
             data=data,
+            scale=scale,
         )
         yield tuple(values[column] for column in _HIT_COLUMNS)
+
+
+def _record_blobs(h: StoredHit, what: str) -> tuple[bytes | None, bytes | None]:
+    """The BLOBs of a hit's record (in its own dtype: codes or float32) and scale; StoreError
+    when they do not fit together (`schema.pointset.check_hit_record`)."""
+    if h.data is None:
+        return None, None
+    data = np.asarray(h.data)
+    scale = None if h.scale is None else np.asarray(h.scale)
+    problem = check_hit_record(data, scale)
+    if problem is not None:
+        raise StoreError(f"{what}: {problem[0]}: {problem[1]}")
+    d, s = HIT_DATA, HIT_SCALE
+    return (encode_array(data, data.dtype, d.ndim, f"{what} {d.name}"),
+            encode_array(scale, s.dtype, s.ndim, f"{what} {s.name}"))  # fmt: skip
 
 
 def _test_plan(conn: sqlite3.Connection, row: sqlite3.Row) -> TestPlan:
@@ -132,11 +158,18 @@ def _point_set(row: sqlite3.Row, hits: Sequence[sqlite3.Row]) -> PointSet:
 
 
 def _stored_hit(h: sqlite3.Row) -> StoredHit:
-    """The `StoredHit` of a hits row; SQLite's NULL for a NaN measure reads back as NaN."""
+    """The `StoredHit` of a hits row; SQLite's NULL for a NaN measure reads back as NaN, and
+    a NULL scale beside a record (a row written before store version 3: float32 SI values)
+    as 1.0."""
     values = {name: h[name] for name in HIT_SCALARS}
     values["accepted"] = bool(h["accepted"])
     for name in ("peak_force_n", "pulse_width_s"):
         values[name] = math.nan if h[name] is None else h[name]
     findings = tuple(Finding(c, m) for c, m in json.loads(h["findings"]))
-    data = None if h[HIT_DATA.column] is None else decode_array(h[HIT_DATA.column])
-    return StoredHit(**values, findings=findings, data=data)
+    data = scale = None
+    if h[HIT_DATA.column] is not None:
+        data = decode_array(h[HIT_DATA.column])
+        blob = h[HIT_SCALE.column]
+        scale = np.ones(data.shape[0]) if blob is None else decode_array(blob)
+        scale.flags.writeable = False
+    return StoredHit(**values, findings=findings, data=data, scale=scale)

@@ -98,7 +98,17 @@ _SCHEMA_2 = (
     )""",
 )
 
-MIGRATIONS: list[Migration] = [_run_statements(_SCHEMA_1), _run_statements(_SCHEMA_2)]
+# Version 3: a hit's record as the device's integer codes (the data BLOB's header names its
+# dtype: <i2, <i4, or <f4 for a device without codes) with its scale, SI units per code of
+# each channel (a <f8 BLOB). Rows written before keep float32 SI data and a NULL scale,
+# which reads as 1.0: nothing of theirs is rewritten.
+_SCHEMA_3 = ("ALTER TABLE hits ADD COLUMN scale BLOB",)
+
+MIGRATIONS: list[Migration] = [
+    _run_statements(_SCHEMA_1),
+    _run_statements(_SCHEMA_2),
+    _run_statements(_SCHEMA_3),
+]
 
 
 def prepare(conn: sqlite3.Connection, path: Path) -> None:

@@ -50,6 +50,8 @@ class PieceConverter(PieceCore):
         return out
 
     def _emit_chunk(self, first: int, codes: np.ndarray) -> None:
+        if self._sent is not None:
+            self._sent[first] = codes.copy()
         if self.settings.output == "text":
             self._queue(format_lines(codes.T))
             return

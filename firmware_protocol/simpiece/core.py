@@ -9,6 +9,7 @@ them. The command handling (commands.py), the converter front end
 
 from __future__ import annotations
 
+import itertools
 import queue
 import threading
 import time
@@ -63,6 +64,26 @@ class PieceCore:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._closed = False
+        self._sent: dict[int, np.ndarray] | None = None  # first index -> codes, once kept
+
+    def keep_sent(self) -> None:
+        """From now on, remember every chunk's samples as converted (codes, or volts for
+        float32 and text), before any frame fault, for `sent` (tests)."""
+        if self._sent is None:
+            self._sent = {}
+
+    def sent(self, first: int, n: int) -> np.ndarray | None:
+        """(n, channels) samples the converter made for indexes first..first+n-1 (`keep_sent`),
+        or None when some of them were not kept."""
+        chunks = sorted(dict(self._sent or {}).items())
+        parts = [(f, c) for f, c in chunks if f < first + n and f + len(c) > first]
+        if not parts or parts[0][0] > first:
+            return None
+        if any(f + len(c) != g for (f, c), (g, _) in itertools.pairwise(parts)):
+            return None
+        held = np.concatenate([c for _, c in parts])
+        start = first - parts[0][0]
+        return held[start : start + n] if start + n <= len(held) else None
 
     @property
     def url(self) -> str:

@@ -57,10 +57,12 @@ def test_the_old_store_opens_and_reads_in_todays_dtypes(tmp_path: Path) -> None:
         (summary,) = store.list_point_sets()
         ps = store.get_point_set(summary.id, with_hits=True)
         assert_is_schema_1_point_set(ps)
-        # Hit records were float32 in schema 1 already: unchanged, bit for bit.
-        for got, ref in zip(ps.hits, golden.wire_point_set().hits, strict=True):
-            assert got.data is not None and ref.data is not None
-            assert got.data.tobytes() == ref.data.tobytes()
+        # Hit records were float32 SI values in schema 1: unchanged, bit for bit, scale 1.0.
+        for i, got in enumerate(ps.hits):
+            assert got.data is not None and got.scale is not None
+            assert got.data.tobytes() == golden.schema_2_hit_data(i).tobytes()
+            assert got.scale.tolist() == [1.0] * got.data.shape[0]
+        assert store.stats().schema_version == 3
         digest, body = store.get_wire_body(summary.id, *records.READ_VERSIONS) or ("", b"")
         assert http.digest_matches(digest, body)
         assert codec.unpack(body, max_bytes=1 << 20)["schema"] == 1

@@ -228,7 +228,10 @@ def commit_with_records(served: ServedRig, test: str) -> tuple[int, list[np.ndar
     plain = store.get_point_set(store.list_point_sets(test)[0].id)
     rng = np.random.default_rng(3)
     raw = [rng.standard_normal((3, 256)).astype(np.float32) for _ in plain.hits]
-    hits = tuple(dataclasses.replace(h, data=r) for h, r in zip(plain.hits, raw, strict=True))
+    hits = tuple(
+        dataclasses.replace(h, data=r, scale=np.ones(3))
+        for h, r in zip(plain.hits, raw, strict=True)
+    )
     store.commit_point_set(dataclasses.replace(plain, version=0, seq=0, hits=hits))
     return store.list_point_sets(test)[-1].id, raw
 

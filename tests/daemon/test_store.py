@@ -39,6 +39,16 @@ GRID = [GridPoint(f"P{i}", 0.1 * i, 0.0, 0.0) for i in range(1, 5)]
 ARRAYS = ("freq_hz", "h1", "h2", "coherence", "gff", "gxx", "gfx")
 
 
+def _hit_record(rng: np.random.Generator, i: int, block: int) -> tuple[np.ndarray, np.ndarray]:
+    """(data, scale) of hit `i`, by turns: int16 codes, int24 codes in int32, float32 SI
+    values (a device without codes) with a scale of 1.0."""
+    if i % 3 == 2:
+        return rng.standard_normal((3, block)).astype(np.float32), np.ones(3)
+    half = 1 << (15 if i % 3 == 0 else 23)
+    codes = rng.integers(-half, half, (3, block)).astype(np.int16 if i % 3 == 0 else np.int32)
+    return codes, rng.uniform(1e-6, 1e-3, 3)
+
+
 def make_point_set(
     test: str,
     point: str,
@@ -65,9 +75,10 @@ def make_point_set(
             peak_force_n=float(rng.uniform(10, 500)),
             pulse_width_s=float(rng.uniform(1e-4, 1e-3)),
             findings=(Finding("double_hit", f"second peak in hit {i}"),) if i % 2 else (),
-            data=rng.standard_normal((3, block)).astype(np.float32),
+            data=record[0],
+            scale=record[1],
         )
-        for i in range(n_hits)
+        for i, record in enumerate(_hit_record(rng, i, block) for i in range(n_hits))
     )
     return PointSet(
         test=test,
@@ -117,9 +128,11 @@ def assert_same(got: PointSet, want: PointSet, with_data: bool = True) -> None:
         assert (g.peak_force_n, g.pulse_width_s) == (w.peak_force_n, w.pulse_width_s)
         if with_data:
             assert g.data is not None and w.data is not None
-            assert g.data.dtype == np.float32 and np.array_equal(g.data, w.data)
+            assert g.data.dtype == w.data.dtype and np.array_equal(g.data, w.data)
+            assert g.scale is not None and w.scale is not None
+            assert g.scale.tobytes() == np.asarray(w.scale, dtype=np.float64).tobytes()
         else:
-            assert g.data is None
+            assert g.data is None and g.scale is None
 
 
 @pytest.fixture
@@ -278,14 +291,17 @@ def test_columns_follow_the_declared_point_set(store: Store) -> None:
         conn.close()
     assert {a.column for a in pointset.ARRAYS} <= ps_cols
     assert set(pointset.SCALARS) - {"test"} <= ps_cols
-    assert {*pointset.HIT_SCALARS, "findings", pointset.HIT_DATA.column} <= hit_cols
+    hit_arrays = {pointset.HIT_DATA.column, pointset.HIT_SCALE.column}
+    assert {*pointset.HIT_SCALARS, "findings", *hit_arrays} <= hit_cols
     stored = store.commit_point_set(make_point_set("beam", "P1", 1))
     pid = store.list_point_sets()[-1].id
     back = store.get_point_set(pid, with_hits=True)
     for a in pointset.ARRAYS:
         assert getattr(back, a.name).dtype == a.dtype, a.name
         assert getattr(back, a.name).shape == np.shape(getattr(stored, a.name)), a.name
-    assert all(h.data is not None and h.data.dtype == pointset.HIT_DATA.dtype for h in back.hits)
+    for h, was in zip(back.hits, stored.hits, strict=True):
+        assert h.data is not None and was.data is not None and h.data.dtype == was.data.dtype
+        assert h.scale is not None and h.scale.dtype == pointset.HIT_SCALE.dtype
 
 
 def test_readers_see_whole_point_sets_while_commits_run(store: Store) -> None:
@@ -456,7 +472,7 @@ def test_version_0_database_is_migrated(tmp_path: Path) -> None:
     _raw_db(path, "CREATE TABLE notes (t TEXT)", "INSERT INTO notes VALUES ('kept')")
     assert _user_version(path) == 0
     with Store(tmp_path) as s:
-        assert s.stats().schema_version == len(store_tables.MIGRATIONS) == 2
+        assert s.stats().schema_version == len(store_tables.MIGRATIONS) == 3
         assert s.last_seq() == 0 and s.list_tests() == []
     raw = sqlite3.connect(path)
     assert raw.execute("SELECT t FROM notes").fetchall() == [("kept",)]

@@ -1,12 +1,13 @@
 """Fixed point sets and their encodings, one folder per wire schema version.
 
-`golden/v2/` (schema 2, float32 spectra) was written by this module (``python
-tests/schema/golden.py --write``); `test_golden.py` checks that today's code makes the same
-bytes, because the store keeps bodies as encoded at commit and clients verify their digests.
-Do not rewrite them unless the wire format is changed on purpose (a new SCHEMA_VERSION, and
-then into a new folder). `golden/v1/` holds what schema 1's code wrote (December 2026, before
-the wire module was split; also a store and a mirror, `old_files.py`): never rewritten, it is
-what newer code must still read.
+`golden/v3/` (schema 3, float32 spectra, hit records as integer codes with their scale) was
+written by this module (``python tests/schema/golden.py --write``); `test_golden.py` checks
+that today's code makes the same bytes, because the store keeps bodies as encoded at commit
+and clients verify their digests. Do not rewrite them unless the wire format is changed on
+purpose (a new SCHEMA_VERSION, and then into a new folder). `golden/v2/` holds what schema
+2's code wrote (hit records as float32 SI values, `schema_2_hit_data`) and `golden/v1/` what
+schema 1's code wrote (December 2026, before the wire module was split; also a store and a
+mirror, `old_files.py`): never rewritten, they are what newer code must still read.
 
 The arrays are built from exact IEEE arithmetic only (integers, halves and quarters, no
 transcendental functions and no random generator), so they are the same on every platform
@@ -20,8 +21,9 @@ import hashlib
 import json
 import struct
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -34,13 +36,15 @@ from taprig.schema.objects import (
     point_set_to_obj,
     test_to_obj,
 )
-from taprig.schema.pointset import field_values
+from taprig.schema.pointset import HitFields, field_values
 from taprig.schema.records import WireChange, WireHit, WirePointSet, WireTest
 
-FOLDER = Path(__file__).with_name("golden") / "v2"
+FOLDER = Path(__file__).with_name("golden") / "v3"
 DIGESTS = FOLDER / "digests.json"
 OLD = FOLDER.with_name("v1")
 """Schema 1's encodings of the same point sets (its arrays float64), and its store and mirror."""
+PREVIOUS = FOLDER.with_name("v2")
+"""Schema 2's encodings of the same point sets (hit records float32 SI values, no scale)."""
 
 
 def _real(*shape: int, offset: int = 0) -> np.ndarray:
@@ -61,6 +65,38 @@ def _cplx(*shape: int, offset: int = 0) -> np.ndarray:
 LARGE_F = 4200
 """Lines of the large point set (2100 in schema 1, when a complex value took 16 bytes)."""
 
+
+def _codes(i: int, channels: int, block: int) -> tuple[np.ndarray, np.ndarray]:
+    """(codes, scale) of hit `i`: int16 codes for even hits, int24 codes in int32 for odd
+    ones, both ends of the range among them; a scale of exact binary fractions."""
+    bits = 16 if i % 2 == 0 else 24
+    n = channels * block
+    span = 1 << bits
+    codes = (np.arange(n, dtype=np.int64) * 40503 + 977 * i) % span - span // 2
+    codes[:2] = (-(span // 2), span // 2 - 1)
+    scale = np.array([(c + 1) * 0.5 ** (bits - 1) for c in range(channels)], dtype="<f8")
+    return codes.reshape(channels, block).astype("<i2" if bits == 16 else "<i4"), scale
+
+
+def schema_2_hit_data(i: int, n_resp: int = 2, block: int = 16) -> np.ndarray:
+    """Hit `i`'s record as `golden/v2/` holds it (float32 values)."""
+    return _real(1 + n_resp, block, offset=i).astype("<f4")
+
+
+def assert_schema_2_hits(hits: Sequence[HitFields[Any]]) -> None:
+    """`hits` hold `golden/v2/`'s records as today's code reads them: the float32 values bit
+    for bit, a scale of 1.0, and `si()` their widening to float64, which is exact (IEEE
+    754-2008 §5.4.2: every binary32 value is a binary64 value)."""
+    assert len(hits) == 2
+    for i, hit in enumerate(hits):
+        was = schema_2_hit_data(i)
+        assert hit.data is not None and hit.scale is not None
+        assert hit.data.dtype == np.float32 and hit.data.tobytes() == was.tobytes()
+        assert hit.scale.dtype == np.float64 and hit.scale.tolist() == [1.0] * was.shape[0]
+        si = hit.si()
+        assert si is not None and np.array_equal(si, was.astype(np.float64), equal_nan=True)
+
+
 Values = Callable[..., np.ndarray]
 """(*shape, offset=k) -> array of that shape; k tells arrays of one point set apart."""
 
@@ -74,6 +110,7 @@ def wire_point_set(
     block: int = 16,
 ) -> WirePointSet:
     """A fixed `WirePointSet` (hits with data); `real` and `cplx` make its arrays."""
+    records = [_codes(i, 1 + n_resp, block) for i in range(n_hits)]
     hits = tuple(
         WireHit(
             trigger_index=4096 * i + 17,
@@ -82,7 +119,8 @@ def wire_point_set(
             peak_force_n=150.5 + i if i else float("nan"),
             pulse_width_s=0.000375 * (i + 1),
             findings=(("double_hit", "a second pulse 3 ms after the first"),) if i else (),
-            data=real(1 + n_resp, block, offset=i).astype("<f4"),
+            data=records[i][0],
+            scale=records[i][1],
         )
         for i in range(n_hits)
     )
@@ -115,7 +153,7 @@ def daemon_point_set(n_resp: int = 2, n_freq: int = 9) -> PointSet:
     w = wire_point_set(n_resp, n_freq)
     hits = tuple(
         StoredHit(h.trigger_index, h.utc, h.accepted, h.peak_force_n, h.pulse_width_s,
-                  tuple(Finding(c, m) for c, m in h.findings), None)
+                  tuple(Finding(c, m) for c, m in h.findings), None, None)
         for h in w.hits
     )  # fmt: skip
     values = {**field_values(w), "roving_mode": RovingMode.HAMMER}

@@ -21,7 +21,7 @@ from pathlib import Path
 from taprig.daemon.records import Finding, GridPoint, PointSet, RovingMode, StoredHit
 from taprig.schema.pointset import field_values
 
-from .golden import OLD, wire_point_set
+from .golden import OLD, schema_2_hit_data, wire_point_set
 
 STORE = OLD / "store.sqlite3"
 MIRROR = OLD / "mirror.sqlite3"
@@ -31,12 +31,13 @@ RIG_ID = "0f3c6a52-1d1e-4d43-9a4e-2b6f8d1e7c01"
 
 
 def stored_point_set() -> PointSet:
-    """The daemon's record of `golden.wire_point_set()`, hits with their records."""
+    """The daemon's record of `golden.wire_point_set()`, hits with their records (float32
+    SI values then, `golden.schema_2_hit_data`)."""
     w = wire_point_set()
     hits = tuple(
         StoredHit(h.trigger_index, h.utc, h.accepted, h.peak_force_n, h.pulse_width_s,
-                  tuple(Finding(c, m) for c, m in h.findings), h.data)
-        for h in w.hits
+                  tuple(Finding(c, m) for c, m in h.findings), schema_2_hit_data(i))
+        for i, h in enumerate(w.hits)
     )  # fmt: skip
     values = {**field_values(w), "roving_mode": RovingMode.HAMMER, "version": 0, "seq": 0}
     return PointSet(**values, hits=hits)

@@ -180,7 +180,7 @@ def test_extra_field_is_named(where: str) -> None:
         (("h2", "data"), "not bytes", "h2.data"),
         (("h2", "data"), b"\x00" * 7, "h2.data"),
         (("h2",), [1, 2, 3], "h2"),
-        (("schema",), 3, "schema"),
+        (("schema",), 4, "schema"),
         (("schema",), True, "schema"),
         (("id",), True, "id"),
         (("id",), -1, "id"),

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from taprig.schema import pointset
-from taprig.schema.pointset import ARRAYS, HIT_DATA, check_shapes
+from taprig.schema.pointset import ARRAYS, F8, HIT_DATA, HIT_SCALE, check_shapes
 
 from .fixtures import ARRAYS as PUBLISHED
 from .fixtures import make_point_set
@@ -38,6 +38,10 @@ def test_the_table_is_the_published_schema() -> None:
                   "gff": "<f8", "gxx": "<f8", "gfx": "<c16", "data": "<f4"}  # fmt: skip
     assert (HIT_DATA.name, HIT_DATA.dtype.str, HIT_DATA.dims, HIT_DATA.optional) == (
         "data", "<f4", ("C", "N"), True)  # fmt: skip
+    assert [d.str for d in HIT_DATA.allowed] == ["<i2", "<i4", "<f4"]
+    assert (HIT_SCALE.name, HIT_SCALE.dtype.str, HIT_SCALE.dims, HIT_SCALE.unit) == (
+        "scale", "<f8", ("C",), "SI units per count")  # fmt: skip
+    assert "scale" not in pointset.SCHEMA_DTYPES[2] and pointset.SCHEMA_DTYPES[3]["scale"] == F8
     assert all(d in pointset.DIMS for a in (*ARRAYS, HIT_DATA) for d in a.dims)
 
 
@@ -48,6 +52,12 @@ def test_the_module_docstring_shows_the_table() -> None:
         dims = "(" + ", ".join(a.dims) + ("," if a.ndim == 1 else "") + ")"
         rows = [ln for ln in doc.splitlines() if re.match(rf"(\w+, )*{a.name}\b", ln)]
         assert any(a.dtype.str in r and dims in r and a.unit in r for r in rows), a.name
+    lines = doc.splitlines()
+    for a in pointset.HIT_ARRAYS:  # "hit data" spans two lines: its dtypes do not fit one
+        at = next(i for i, ln in enumerate(lines) if ln.startswith(f"hit {a.name} "))
+        row = lines[at] + lines[at + 1]
+        dims = "(" + ", ".join(a.dims) + ("," if a.ndim == 1 else "") + ")"
+        assert all(d.str in row for d in a.allowed) and dims in row and a.unit in row, a.name
 
 
 def test_scalars_and_field_values() -> None:
@@ -111,5 +121,6 @@ def test_utc_now_is_iso_8601_utc_with_milliseconds() -> None:
 
 def test_dtypes_are_the_wires_only_ones() -> None:
     every = {d for dtypes in pointset.SCHEMA_DTYPES.values() for d in dtypes.values()}
+    every |= set(HIT_DATA.also)  # a hit's record: device codes, from schema 3
     assert every == set(pointset.ARRAY_DTYPES.values())
     assert all(np.dtype(code).byteorder in "<=|" for code in pointset.ARRAY_DTYPES)

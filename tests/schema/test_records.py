@@ -24,7 +24,8 @@ def test_a_daemon_point_set_goes_out_whole() -> None:
     w = make_point_set(n_hits=1)
     hit = w.hits[0]
     stored = StoredHit(hit.trigger_index, hit.utc, hit.accepted, hit.peak_force_n,
-                       hit.pulse_width_s, (Finding("soft", "weak tap"),), hit.data)  # fmt: skip
+                       hit.pulse_width_s, (Finding("soft", "weak tap"),), hit.data,
+                       hit.scale)  # fmt: skip
     ps = PointSet(**{**field_values(w), "roving_mode": RovingMode.SENSOR}, hits=(stored,))
     back = through_wire(records.point_set_from_record(w.id, ps))
     assert back.id == w.id and back.point == w.point and back.meta == w.meta
@@ -32,6 +33,8 @@ def test_a_daemon_point_set_goes_out_whole() -> None:
     assert back.hits[0].findings == (("soft", "weak tap"),)
     assert back.hits[0].data is not None and hit.data is not None
     assert same_bits(back.hits[0].data, hit.data)
+    assert back.hits[0].scale is not None and hit.scale is not None
+    assert same_bits(back.hits[0].scale, hit.scale)
     for name in ("freq_hz", "gfx", "coherence"):
         assert same_bits(getattr(back, name), getattr(w, name)), name
 

@@ -50,7 +50,8 @@ def test_export_from_the_archive_is_byte_identical_to_the_mirrors(
     RigBook(Places.from_env({"TAPRIG_HOME": str(home)})).save(
         PairedRig(served.rig_id, "rig-1", served.url, served.token))  # fmt: skip
     dsn = pg.database("cli_export")
-    assert ok(taprig(home, "archive", "migrate", "--json", dsn=dsn))["applied"] == ["0001_archive"]
+    applied = ok(taprig(home, "archive", "migrate", "--json", dsn=dsn))["applied"]
+    assert applied == ["0001_archive", "0002_wire_schemas"]
     ok(taprig(home, "pull"))
     # The follower with no configuration: the DSN from the environment, the paired rigs.
     events = ok(taprig(home, "archive", "run", "--once", "--json", dsn=dsn))
