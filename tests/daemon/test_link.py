@@ -3,13 +3,15 @@ bytes in order, reconnect after unplug, stall detection, the same for both."""
 
 from __future__ import annotations
 
+import contextlib
 import os
 import queue
 import signal
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -17,7 +19,7 @@ from taprig.daemon.capture.link import Item, LinkChange, LinkState, SerialLink
 from taprig.daemon.capture.linkproc import ProcessLink
 from taprig.firmware_protocol import Command, FrameEncoder, Opcode, SampleBlock, make_decoder
 from taprig.firmware_protocol.formats import Decoder
-from taprig.firmware_protocol.simpiece.instrument import open_simulated
+from taprig.firmware_protocol.simpiece.instrument import SimulatedPiece, open_simulated
 
 Link = SerialLink | ProcessLink
 MakeLink = Callable[..., Link]
@@ -48,6 +50,21 @@ def drain_until(link: Link, cond: Callable[[Item], bool], timeout: float = 5.0) 
 
 def is_state(state: LinkState) -> Callable[[Item], bool]:
     return lambda item: isinstance(item, LinkChange) and item.state is state
+
+
+@contextlib.contextmanager
+def streaming(make: MakeLink, **options: Any) -> Iterator[tuple[SimulatedPiece, Link]]:
+    """A simulated piece on a new pty and a link reading it (`options` for the link),
+    connected and sent START; both closed on the way out."""
+    piece = open_simulated("pty")
+    link = make(piece.url, **options).start()
+    try:
+        drain_until(link, is_state(LinkState.CONNECTED))
+        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+        yield piece, link
+    finally:
+        link.close()
+        piece.close()
 
 
 def test_reconnects_within_a_second_of_replug(tmp_path: Path, make_link: MakeLink) -> None:
@@ -90,35 +107,26 @@ def test_a_second_reader_of_the_tty_is_refused_and_takes_nothing(make_link: Make
     the kernel hands to the next pty at once.) Seen before the lock: the first reader's
     pyserial read found the bytes gone ("device reports readiness to read but returned no
     data"), dropped what it had read in that call and reopened the port."""
-    piece = open_simulated("pty")
-    first = make_link(piece.url).start()
     second: SerialLink | None = None
-    try:
-        drain_until(first, is_state(LinkState.CONNECTED))
-        first.send(FrameEncoder().command(Command(Opcode.START, 1)))
-        dec = make_decoder("binary")
-        _samples(first, dec, 5_000, timeout=5.0)
-        second = SerialLink(piece.url).start()
-        refused = drain_until(second, is_state(LinkState.DISCONNECTED))[-1]
-        assert isinstance(refused, LinkChange) and "lock" in refused.detail, refused
-        _samples(first, dec, 20_000, timeout=5.0)  # ~0.4 s more of the stream
-        assert dec.stats.samples_lost == 0 and dec.stats.crc_errors == 0
-        assert first.reconnects == 0 and first.state is LinkState.CONNECTED
-        assert second.state is LinkState.DISCONNECTED
-        assert not any(isinstance(i, bytes) for i in list(second.items.queue))
-    finally:
-        if second is not None:
-            second.close()
-        first.close()
-        piece.close()
+    with streaming(make_link) as (piece, first):
+        try:
+            dec = make_decoder("binary")
+            _samples(first, dec, 5_000, timeout=5.0)
+            second = SerialLink(piece.url).start()
+            refused = drain_until(second, is_state(LinkState.DISCONNECTED))[-1]
+            assert isinstance(refused, LinkChange) and "lock" in refused.detail, refused
+            _samples(first, dec, 20_000, timeout=5.0)  # ~0.4 s more of the stream
+            assert dec.stats.samples_lost == 0 and dec.stats.crc_errors == 0
+            assert first.reconnects == 0 and first.state is LinkState.CONNECTED
+            assert second.state is LinkState.DISCONNECTED
+            assert not any(isinstance(i, bytes) for i in list(second.items.queue))
+        finally:
+            if second is not None:
+                second.close()
 
 
 def test_stall_is_reported_and_clears(make_link: MakeLink) -> None:
-    piece = open_simulated("pty")
-    link = make_link(piece.url, stall_after_s=0.3).start()
-    try:
-        drain_until(link, is_state(LinkState.CONNECTED))
-        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+    with streaming(make_link, stall_after_s=0.3) as (piece, link):
         drain_until(link, lambda i: isinstance(i, bytes))
         piece.faults.stalled = True
         t0 = time.monotonic()
@@ -127,23 +135,13 @@ def test_stall_is_reported_and_clears(make_link: MakeLink) -> None:
         piece.faults.stalled = False
         seen = drain_until(link, is_state(LinkState.CONNECTED))
         assert isinstance(seen[-1], LinkChange) and "flowing again" in seen[-1].detail
-    finally:
-        link.close()
-        piece.close()
 
 
 def test_bytes_arrive_in_order_and_decode(make_link: MakeLink) -> None:
-    piece = open_simulated("pty")
-    link = make_link(piece.url).start()
     dec = make_decoder("binary")
-    try:
-        drain_until(link, is_state(LinkState.CONNECTED))
-        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+    with streaming(make_link) as (_, link):
         _samples(link, dec, 20_000, timeout=5.0)
         assert dec.stats.crc_errors == 0 and dec.stats.samples_lost == 0
-    finally:
-        link.close()
-        piece.close()
 
 
 def _samples(link: Link, dec: Decoder, wanted: int, timeout: float = 10.0) -> int:
@@ -169,12 +167,8 @@ def test_a_host_that_stops_reading_loses_nothing_only_with_the_link_process(
     holds only 4 reads. In a thread the reader must drop what does not fit; the link process
     holds it (the pipe fills, the child keeps reading into its own memory), and after the
     pause every sample arrives, in order."""
-    piece = open_simulated("pty")
-    link = kind(piece.url, queue_chunks=4).start()
     dec = make_decoder("binary")
-    try:
-        drain_until(link, is_state(LinkState.CONNECTED))
-        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+    with streaming(kind, queue_chunks=4) as (piece, link):
         _samples(link, dec, 5_000)
         pause = threading.Event()
         pause.wait(2.0)  # the starved host: nothing read meanwhile (the point of the test)
@@ -185,9 +179,6 @@ def test_a_host_that_stops_reading_loses_nothing_only_with_the_link_process(
         else:
             assert link.dropped_chunks > 0 and dec.stats.samples_lost > 0
         assert got >= int(2.5 * piece.rate_hz)
-    finally:
-        link.close()
-        piece.close()
 
 
 def test_a_killed_link_process_is_started_again() -> None:
@@ -214,12 +205,8 @@ def test_a_stale_stall_report_does_not_reopen_a_flowing_link(make_link: MakeLink
     """The rig asks to reopen after a stall, but only if the link is still stalled: a daemon
     frozen through the stall acts on the report late, when the bytes flow again, and reopening
     then would throw the flowing data away."""
-    piece = open_simulated("pty")
-    link = make_link(piece.url, stall_after_s=0.3).start()
     dec = make_decoder("binary")
-    try:
-        drain_until(link, is_state(LinkState.CONNECTED))
-        link.send(FrameEncoder().command(Command(Opcode.START, 1)))
+    with streaming(make_link, stall_after_s=0.3) as (piece, link):
         piece.faults.stalled = True
         drain_until(link, is_state(LinkState.STALLED))
         piece.faults.stalled = False
@@ -229,6 +216,3 @@ def test_a_stale_stall_report_does_not_reopen_a_flowing_link(make_link: MakeLink
         link.reconnect("meant")
         seen = drain_until(link, is_state(LinkState.DISCONNECTED))
         assert isinstance(seen[-1], LinkChange) and seen[-1].detail == "meant"
-    finally:
-        link.close()
-        piece.close()
